@@ -1,0 +1,3 @@
+from specmatch.cli import main
+
+raise SystemExit(main())

@@ -1,0 +1,1 @@
+"""identification stage (being built)."""

@@ -1,0 +1,43 @@
+"""Prediction stage: 1H and 13C spectra from additive increment tables.
+
+``predict(smiles)`` returns a :class:`Prediction`; results are cached per input
+text, so scoring many spectra against one candidate predicts it once.
+"""
+
+from __future__ import annotations
+
+from functools import lru_cache
+
+from ..structures import Structure, parse_structure
+from .model import CarbonShift, Prediction, ProtonGroup
+
+__all__ = ["CarbonShift", "Prediction", "ProtonGroup", "predict", "predict_structure"]
+
+
+def predict_structure(structure: Structure) -> Prediction:
+    """Predict both spectra of an already perceived structure."""
+    from .carbon import TABLES_VERSION as C_VERSION, predict_carbons
+    from .proton import TABLES_VERSION as H_VERSION, predict_protons
+
+    carbons, c_warn = predict_carbons(structure)
+    protons, h_warn = predict_protons(structure)
+    return Prediction(
+        smiles=structure.smiles,
+        canonical_smiles=structure.canonical_smiles,
+        carbons=tuple(carbons),
+        protons=tuple(protons),
+        warnings=tuple(dict.fromkeys([*c_warn, *h_warn])),
+        tables_version=f"13C {C_VERSION}; 1H {H_VERSION}",
+    )
+
+
+@lru_cache(maxsize=8192)
+def predict(smiles: str) -> Prediction:
+    """Predict the 1H and 13C spectra of a molecule given as SMILES or molfile text.
+
+    Raises
+    ------
+    specmatch.SpecmatchError
+        If the structure cannot be parsed.
+    """
+    return predict_structure(parse_structure(smiles))

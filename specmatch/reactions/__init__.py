@@ -1,0 +1,1 @@
+"""reactions stage (being built)."""

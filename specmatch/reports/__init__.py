@@ -1,0 +1,1 @@
+"""Reports stage: readable text, journal-style peak text, HTML, JSON and CSV exports."""

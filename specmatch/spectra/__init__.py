@@ -1,0 +1,1 @@
+"""spectra stage (being built)."""

@@ -1,0 +1,275 @@
+"""Parse and perceive molecules once; every later stage reads the perceived object.
+
+A :class:`Structure` holds the RDKit molecule (heavy atoms in the input's parse
+order, hydrogens implicit) together with everything the NMR stages ask about it:
+canonical SMILES, formula, topological symmetry classes, diastereotopic groups
+and potential stereocentres. It is computed once per input and is immutable.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+from functools import lru_cache
+
+from rdkit import Chem, RDLogger
+from rdkit.Chem import rdMolDescriptors
+
+from ..errors import SpecmatchError
+
+RDLogger.DisableLog("rdApp.*")
+
+#: Largest molecule the structures layer accepts. The NMR tables are meant for
+#: small molecules; a 500-atom input is almost certainly a paste error.
+MAX_HEAVY_ATOMS = 150
+
+# elements the increment tables know something about; others still parse
+_ALLOWED = {"H", "C", "N", "O", "F", "Cl", "Br", "I", "S", "P", "Si", "B", "Se", "Hg", "D"}
+
+
+@dataclass(frozen=True)
+class Structure:
+    """A molecule perceived once for the NMR stages.
+
+    Attributes
+    ----------
+    mol : rdkit.Chem.Mol
+        Sanitised molecule, heavy atoms in the input's parse order, H implicit.
+    smiles : str
+        The text as given (SMILES, or ``"molfile"`` for a molfile).
+    canonical_smiles : str
+        RDKit canonical SMILES without stereo (the constitution).
+    formula : str
+        Molecular formula in Hill order, e.g. ``"C8H16O"``.
+    symmetry_classes : tuple of int
+        Per heavy atom, its topological symmetry class (RDKit canonical ranking
+        without tie breaking): atoms with the same number are equivalent.
+    diastereotopic_ch2 : frozenset of int
+        Carbon atoms carrying two H that are diastereotopic (separate 1H signals).
+    diastereotopic_pairs : tuple of (int, int)
+        Pairs of topologically equivalent groups on one carbon (gem-dimethyls,
+        isopropyl methyls) that are diastereotopic, given by the heavy atom that
+        attaches each group. They are expected as separate signals.
+    stereocentres : tuple of int
+        Atoms that are potential tetrahedral stereocentres (assigned or not).
+    """
+
+    mol: Chem.Mol
+    smiles: str
+    canonical_smiles: str
+    formula: str
+    symmetry_classes: tuple[int, ...]
+    diastereotopic_ch2: frozenset[int]
+    diastereotopic_pairs: tuple[tuple[int, int], ...]
+    stereocentres: tuple[int, ...]
+    _classes: dict[int, tuple[int, ...]] = field(default_factory=dict, repr=False, compare=False)
+
+    @property
+    def n_heavy(self) -> int:
+        return self.mol.GetNumAtoms()
+
+    def equivalence_sets(self, element: str | None = None) -> list[tuple[int, ...]]:
+        """Sets of topologically equivalent heavy atoms, in order of first atom.
+
+        Parameters
+        ----------
+        element : str, optional
+            Only atoms of this element symbol (e.g. ``"C"``).
+        """
+        groups: dict[int, list[int]] = {}
+        for atom in self.mol.GetAtoms():
+            if element is None or atom.GetSymbol() == element:
+                groups.setdefault(self.symmetry_classes[atom.GetIdx()], []).append(atom.GetIdx())
+        return [tuple(v) for v in sorted(groups.values())]
+
+    def is_diastereotopic_group(self, atom_index: int) -> bool:
+        """True if this atom attaches a group that has a diastereotopic twin."""
+        return any(atom_index in pair for pair in self.diastereotopic_pairs)
+
+
+def _hill_formula(mol: Chem.Mol) -> str:
+    return rdMolDescriptors.CalcMolFormula(mol)
+
+
+def _smiles_problem(text: str) -> str:
+    """A best guess at why RDKit refused a SMILES, for the error message."""
+    opened: dict[str, int] = {}
+    for m in re.finditer(r"%\d\d|(?<!\[)\d", re.sub(r"\[[^\]]*\]", "", text)):
+        opened[m.group()] = opened.get(m.group(), 0) ^ 1
+    unclosed = [k for k, v in opened.items() if v]
+    if unclosed:
+        return f"ring bond {unclosed[0].lstrip('%')} is never closed"
+    if text.count("(") != text.count(")"):
+        return "parentheses do not balance"
+    if text.count("[") != text.count("]"):
+        return "square brackets do not balance"
+    mol = Chem.MolFromSmiles(text, sanitize=False)
+    if mol is None:
+        return "it does not follow SMILES syntax"
+    try:
+        Chem.SanitizeMol(mol)
+    except Exception as exc:  # RDKit raises several types; we only want the text
+        msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        msg = msg.replace("Explicit valence for atom", "valence too high for atom")
+        return msg
+    return "RDKit could not interpret it"
+
+
+def _check_size(mol: Chem.Mol, what: str, max_heavy_atoms: int) -> None:
+    n = mol.GetNumHeavyAtoms()
+    if n == 0:
+        raise SpecmatchError(f"{what} contains no heavy atoms")
+    if n > max_heavy_atoms:
+        raise SpecmatchError(
+            f"{what} has {n} heavy atoms; specmatch handles molecules of up to "
+            f"{max_heavy_atoms} heavy atoms (small organic molecules)"
+        )
+    if len(Chem.GetMolFrags(mol)) > 1:
+        raise SpecmatchError(
+            f"{what} has {len(Chem.GetMolFrags(mol))} disconnected parts; give one molecule "
+            "(drop counter-ions and solvent)"
+        )
+    odd = sorted({a.GetSymbol() for a in mol.GetAtoms()} - _ALLOWED)
+    if odd:
+        raise SpecmatchError(f"{what} contains {', '.join(odd)}, which specmatch does not handle")
+
+
+def mol_from_text(text: str, *, max_heavy_atoms: int = MAX_HEAVY_ATOMS) -> Chem.Mol:
+    """Parse SMILES or a molfile (V2000/V3000 block) into a sanitised RDKit molecule.
+
+    Raises
+    ------
+    SpecmatchError
+        With a message that says what is wrong: empty input, bad syntax, a valence
+        error, several fragments, a molecule too large.
+    """
+    if not isinstance(text, str):
+        raise SpecmatchError(f"expected a SMILES string or molfile text, got {type(text).__name__}")
+    stripped = text.strip()
+    if not stripped:
+        raise SpecmatchError("no structure given (the SMILES or molfile is empty)")
+    if "M  END" in text or "V2000" in text or "V3000" in text:
+        mol = Chem.MolFromMolBlock(text, sanitize=False, removeHs=False)
+        what = "the molfile"
+        if mol is None:
+            raise SpecmatchError("the molfile could not be read (check the counts line and atom block)")
+        try:
+            Chem.SanitizeMol(mol)
+        except Exception as exc:
+            raise SpecmatchError(f"the molfile is not a valid structure: {str(exc).splitlines()[0]}") from None
+    else:
+        if "\n" in stripped:
+            raise SpecmatchError("give one SMILES per structure (the text has several lines)")
+        what = f"'{stripped}'" if len(stripped) <= 60 else f"'{stripped[:57]}...'"
+        mol = Chem.MolFromSmiles(stripped)
+        if mol is None:
+            raise SpecmatchError(f"{what} is not a valid SMILES ({_smiles_problem(stripped)})")
+    if any(a.GetAtomicNum() == 1 for a in mol.GetAtoms()):
+        mol = Chem.RemoveHs(mol)
+    if any(a.GetAtomicNum() == 0 for a in mol.GetAtoms()):
+        raise SpecmatchError(f"{what} contains a wildcard atom '*'; give a complete structure")
+    _check_size(mol, what if what != "the molfile" else "the molfile", max_heavy_atoms)
+    return mol
+
+
+def _label_one_h(mol: Chem.Mol, carbon: int) -> Chem.Mol:
+    mh = Chem.AddHs(mol, onlyOnAtoms=(carbon,))
+    for nb in mh.GetAtomWithIdx(carbon).GetNeighbors():
+        if nb.GetAtomicNum() == 1:
+            nb.SetIsotope(2)
+            break
+    return mh
+
+
+def _label_atom(mol: Chem.Mol, atom: int) -> Chem.Mol:
+    rw = Chem.RWMol(mol)
+    a = rw.GetAtomWithIdx(atom)
+    a.SetIsotope(a.GetMass().__round__() + 1 if a.GetIsotope() == 0 else a.GetIsotope() + 1)
+    return rw.GetMol()
+
+
+def _stereo_elements(mol: Chem.Mol) -> list[tuple[str, int]]:
+    mol = Chem.Mol(mol)
+    info = Chem.FindPotentialStereo(mol, cleanIt=True, flagPossible=True)
+    return [(str(s.type), s.centeredOn) for s in info]
+
+
+def _is_diastereotopic_after_label(labelled: Chem.Mol, centre: int) -> bool:
+    """Labelling one of two equivalent ligands turns `centre` into a stereocentre;
+    the ligands are diastereotopic if another stereo element then exists too.
+
+    This is the substitution test of standard texts (replace each ligand in turn by
+    a test group; diastereomers result -> diastereotopic). It covers both an
+    existing stereocentre elsewhere and a prochiral centre (pentan-3-ol's CH2).
+    """
+    elements = _stereo_elements(labelled)
+    if not any(kind == "Atom_Tetrahedral" and at == centre for kind, at in elements):
+        return False
+    return any(at != centre for _, at in elements)
+
+
+def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...]) -> tuple[frozenset[int], tuple[tuple[int, int], ...]]:
+    ch2: set[int] = set()
+    pairs: list[tuple[int, int]] = []
+    for atom in mol.GetAtoms():
+        idx = atom.GetIdx()
+        if atom.GetAtomicNum() == 6 and atom.GetTotalNumHs() == 2 and atom.GetDegree() == 2 \
+                and atom.GetHybridization() == Chem.HybridizationType.SP3:
+            if _is_diastereotopic_after_label(_label_one_h(mol, idx), idx):
+                ch2.add(idx)
+        if atom.GetAtomicNum() == 6 and atom.GetHybridization() == Chem.HybridizationType.SP3:
+            by_class: dict[int, list[int]] = {}
+            for nb in atom.GetNeighbors():
+                by_class.setdefault(classes[nb.GetIdx()], []).append(nb.GetIdx())
+            for members in by_class.values():
+                if len(members) == 2:
+                    a, b = members
+                    if _is_diastereotopic_after_label(_label_atom(mol, a), idx):
+                        pairs.append((a, b))
+    return frozenset(ch2), tuple(pairs)
+
+
+def perceive(mol: Chem.Mol, smiles: str = "") -> Structure:
+    """Perceive an already parsed molecule (see :func:`parse_structure`)."""
+    classes = tuple(int(r) for r in Chem.CanonicalRankAtoms(mol, breakTies=False, includeChirality=False))
+    ch2, pairs = _diastereotopic(mol, classes)
+    stereo = tuple(sorted(at for kind, at in _stereo_elements(mol) if kind == "Atom_Tetrahedral"))
+    return Structure(
+        mol=mol,
+        smiles=smiles or Chem.MolToSmiles(mol),
+        canonical_smiles=Chem.MolToSmiles(mol, isomericSmiles=False),
+        formula=_hill_formula(mol),
+        symmetry_classes=classes,
+        diastereotopic_ch2=ch2,
+        diastereotopic_pairs=pairs,
+        stereocentres=stereo,
+    )
+
+
+@lru_cache(maxsize=4096)
+def parse_structure(text: str, *, max_heavy_atoms: int = MAX_HEAVY_ATOMS) -> Structure:
+    """Parse SMILES or a molfile and perceive it once (cached per input text).
+
+    Examples
+    --------
+    >>> s = parse_structure("CC(C)C(C)O")
+    >>> s.formula
+    'C5H12O'
+    >>> s.diastereotopic_pairs   # isopropyl methyls next to a stereocentre
+    ((0, 2),)
+    """
+    mol = mol_from_text(text, max_heavy_atoms=max_heavy_atoms)
+    label = text.strip() if "M  END" not in text else "molfile"
+    return perceive(mol, label)
+
+
+def canonical_smiles(text: str) -> str:
+    """Canonical SMILES of the constitution (no stereo), for de-duplication."""
+    return parse_structure(text).canonical_smiles
+
+
+def stereocentres_created(before: str | Structure, after: str | Structure) -> int:
+    """How many more potential stereocentres the product has than the substrate."""
+    b = before if isinstance(before, Structure) else parse_structure(before)
+    a = after if isinstance(after, Structure) else parse_structure(after)
+    return max(0, len(a.stereocentres) - len(b.stereocentres))

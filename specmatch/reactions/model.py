@@ -1,0 +1,104 @@
+"""Result objects of the reactions stage: one Candidate per product, one Enumeration per reaction."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from .reagents import Reagent
+
+ROLES = ("major", "minor", "trace", "not expected under these conditions")
+
+
+@dataclass(frozen=True)
+class Candidate:
+    """A product worth testing against the spectra.
+
+    Attributes
+    ----------
+    smiles : str
+        Canonical SMILES of the constitution (no stereo: stereoisomers share a candidate,
+        see `notes`).
+    label : str
+        Short description in the trade's words ("Markovnikov product", "after 1,2-hydride shift",
+        "ring-expanded", "1,4-adduct", "E1 alkene", ...).
+    pathway : tuple of str
+        Readable steps, with cation classes and energies (kcal/mol on the specmatch scale,
+        0 = tert-alkyl cation, ring strain included).
+    prior : float
+        Mechanistic prior; the priors of one enumeration sum to 1.
+    role : str
+        ``"major"``, ``"minor"``, ``"trace"`` or ``"not expected under these conditions"``.
+    flags : tuple of str
+        Machine-readable tags: ``rearranged``, ``isoenergetic shift``, ``ring-expanded``,
+        ``ring-contracted``, ``anti-Markovnikov``, ``E1 by-product``, ``unreacted substrate``,
+        ``1,4-adduct``, ``other conditions`` ...
+    notes : tuple of str
+        Stereochemical and practical notes (racemic new stereocentre, diastereomers, E/Z,
+        syn/anti addition, other routes to the same product).
+    """
+
+    smiles: str
+    label: str
+    pathway: tuple[str, ...]
+    prior: float
+    role: str
+    flags: tuple[str, ...] = ()
+    notes: tuple[str, ...] = ()
+    mechanistic_weight: float = 0.0
+
+    def to_dict(self) -> dict:
+        return {"smiles": self.smiles, "label": self.label, "pathway": list(self.pathway),
+                "prior": round(self.prior, 6), "role": self.role, "flags": list(self.flags),
+                "notes": list(self.notes), "mechanistic_weight": float(f"{self.mechanistic_weight:.4g}")}
+
+
+@dataclass(frozen=True)
+class Enumeration:
+    """The plausible products of one reaction, most probable first.
+
+    Attributes
+    ----------
+    substrate : str
+        Canonical SMILES of the substrate.
+    reagent : Reagent
+        The catalogue reagent the text was matched to.
+    candidates : tuple of Candidate
+        Sorted by descending prior; priors sum to 1.
+    warnings : tuple of str
+        Things the chemist should know (model limits, reagent read as ..., caps).
+    model : str
+        Which model ranked the pathways ("empirical cation scale" or "... + GFN2-xTB (tblite)").
+    alcohol : str or None
+        Canonical SMILES of the alcohol nucleophile, if any.
+    reaction_class : str
+        The mechanism class used (the reagent class after resolving a bare acid).
+    """
+
+    substrate: str
+    reagent: Reagent
+    candidates: tuple[Candidate, ...]
+    warnings: tuple[str, ...] = ()
+    model: str = "empirical cation scale"
+    alcohol: str | None = None
+    reaction_class: str = ""
+    substrate_input: str = ""
+    safety: tuple[str, ...] = field(default_factory=tuple)
+
+    @property
+    def major(self) -> Candidate:
+        return self.candidates[0]
+
+    def candidate(self, smiles: str) -> Candidate | None:
+        """The candidate with this constitution (any SMILES spelling), or None."""
+        from ..structures import mol_from_text
+        from rdkit import Chem
+
+        key = Chem.MolToSmiles(mol_from_text(smiles), isomericSmiles=False)
+        return next((c for c in self.candidates if c.smiles == key), None)
+
+    def to_dict(self) -> dict:
+        return {"substrate": self.substrate, "reagent": self.reagent.name,
+                "candidates": [c.to_dict() for c in self.candidates], "warnings": list(self.warnings),
+                "model": self.model, "reaction_class": self.reaction_class, "alcohol": self.alcohol,
+                "substrate_input": self.substrate_input, "reagent_key": self.reagent.key,
+                "safety": list(self.safety)}

@@ -1,0 +1,52 @@
+"""Readable table of a measured peak list, for ``specmatch peaks``."""
+
+from __future__ import annotations
+
+from ..spectra.model import PeakList
+
+
+def _fmt(v: float | None, spec: str) -> str:
+    return "" if v is None else format(v, spec)
+
+
+def peaklist_table(peaklist: PeakList) -> str:
+    """Header (nucleus, frequency, solvent, reference), then multiplets (1H) or lines (13C).
+
+    Flagged lines (solvent, water, TMS, grease, impurities) are listed with their
+    flag so a chemist sees what was set aside and why.
+    """
+    freq = f"{peaklist.frequency_mhz:.2f} MHz" if peaklist.frequency_mhz else "frequency not given"
+    exp = f", {peaklist.experiment}" if peaklist.experiment != "1D" else ""
+    lines = [
+        f"{peaklist.nucleus}{exp}  {freq}  solvent: {peaklist.solvent or 'not given'}",
+        f"source: {peaklist.source}",
+        f"reference: {peaklist.reference or 'not stated'}",
+        "",
+    ]
+    if peaklist.multiplets:
+        lines.append(f"  {'shift/ppm':>9}  {'range/ppm':<15}{'integral':>9}  {'mult':<6}{'J/Hz':<20}flag")
+        for m in peaklist.multiplets:
+            rng = f"{m.range[1]:.3f}-{m.range[0]:.3f}" if m.range[0] != m.range[1] else ""
+            js = ", ".join(f"{j:.1f}" for j in m.j_hz)
+            lines.append(f"  {m.shift:>9.3f}  {rng:<15}{_fmt(m.integral, '>9.2f'):>9}  "
+                         f"{m.multiplicity:<6}{js:<20}{m.flag or ''}")
+        n_lines = len(peaklist.peaks)
+        lines.append("")
+        lines.append(f"  {len(peaklist.multiplets)} multiplets from {n_lines} lines")
+    else:
+        dept = any(p.sign is not None for p in peaklist.peaks)
+        head = f"  {'shift/ppm':>9}  {'intensity':>9}"
+        if dept:
+            head += f"  {'DEPT-135':<10}"
+        lines.append(head + "  flag")
+        for p in peaklist.peaks:
+            row = f"  {p.shift:>9.2f}  {_fmt(p.intensity, '>9.1f'):>9}"
+            if dept:
+                hint = {1: "up (CH/CH3)", -1: "down (CH2)"}.get(p.sign or 0, "")
+                row += f"  {hint:<10}"
+            lines.append(row + f"  {p.flag or ''}")
+        lines.append("")
+        lines.append(f"  {len(peaklist.peaks)} lines, {len(peaklist.compound_peaks())} not flagged")
+    if peaklist.warnings:
+        lines += ["", "Notes:"] + [f"  - {w}" for w in peaklist.warnings]
+    return "\n".join(lines)

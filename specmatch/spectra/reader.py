@@ -1,0 +1,181 @@
+"""One entry point for every spectrum file: :func:`read_spectrum` and :func:`peaks_from_file`.
+
+The format is recognised from the contents (a zip archive, ``##`` records of
+JCAMP-DX, nmrML XML, an NMRPipe header, else CSV/TSV text), not from the file
+name alone, so a renamed file still reads.
+"""
+
+from __future__ import annotations
+
+import tempfile
+from pathlib import Path
+
+from ..errors import SpecmatchError
+from .model import PeakList, Spectrum
+
+MAX_FILE_BYTES = 256 * 1024 * 1024
+
+
+def _load(path_or_bytes: str | Path | bytes, name: str | None) -> tuple[bytes, str]:
+    if isinstance(path_or_bytes, (bytes, bytearray)):
+        return bytes(path_or_bytes), name or "upload"
+    p = Path(path_or_bytes)
+    if p.is_dir():
+        return b"", str(p)
+    try:
+        size = p.stat().st_size
+        if size > MAX_FILE_BYTES:
+            raise SpecmatchError(f"'{p}' is {size:,} bytes; spectrum files above {MAX_FILE_BYTES:,} are refused")
+        return p.read_bytes(), name or p.name
+    except FileNotFoundError:
+        raise SpecmatchError(f"cannot read '{p}': no such file") from None
+    except OSError as exc:
+        raise SpecmatchError(f"cannot read '{p}': {exc.strerror}") from None
+
+
+def read_spectrum(path_or_bytes: str | Path | bytes, *, name: str | None = None,
+                  nucleus: str | None = None) -> Spectrum | PeakList:
+    """Read a spectrum file of any supported format.
+
+    Parameters
+    ----------
+    path_or_bytes
+        A file path, an instrument folder path, or file contents.
+    name
+        File name for messages (and format hints) when contents are given.
+    nucleus
+        What the user says the nucleus is: used when the file does not say, and
+        checked against it when it does.
+
+    Returns
+    -------
+    Spectrum or PeakList
+        A PeakList for files that hold peaks only (CSV peak lists, JCAMP-DX
+        PEAK TABLE).
+    """
+    if nucleus is not None and nucleus not in ("1H", "13C"):
+        raise SpecmatchError(f"nucleus '{nucleus}' is not supported; use 1H or 13C")
+    if not isinstance(path_or_bytes, (bytes, bytearray)) and Path(path_or_bytes).is_dir():
+        from .instrument import read_folder
+
+        result = read_folder(Path(path_or_bytes), nucleus=nucleus)
+        return _check_claim(result, nucleus)
+    data, src = _load(path_or_bytes, name)
+    if not data.strip():
+        raise SpecmatchError(f"'{src}' is empty")
+    head = data[:4096]
+    if head.startswith(b"PK\x03\x04") or head.startswith(b"PK\x05\x06"):
+        from .archive import extract_archive
+        from .instrument import read_folder
+
+        with tempfile.TemporaryDirectory(prefix="specmatch-") as tmp:
+            extract_archive(data, tmp, max_bytes=MAX_FILE_BYTES, max_files=2000)
+            result = read_folder(Path(tmp), nucleus=nucleus, label=src)
+        return _check_claim(result, nucleus)
+    from .jcampdx import looks_like_jcampdx, read_jcampdx
+
+    if looks_like_jcampdx(head):
+        return _check_claim(read_jcampdx(data, source=src, nucleus=nucleus), nucleus)
+    stripped = head.lstrip(b"\xef\xbb\xbf \t\r\n")
+    if stripped.startswith(b"<") and b"nmrML" in data[:65536]:
+        from .instrument import read_nmrml
+
+        return _check_claim(read_nmrml(data, source=src, nucleus=nucleus), nucleus)
+    if len(data) >= 2048 and _is_nmrpipe(data):
+        from .instrument import read_nmrpipe_bytes
+
+        return _check_claim(read_nmrpipe_bytes(data, source=src, nucleus=nucleus), nucleus)
+    if b"\x00" in head:
+        raise SpecmatchError(
+            f"'{src}' is a binary file specmatch does not recognise; supported: JCAMP-DX (.jdx/.dx), "
+            "a zip of the instrument folder, NMRPipe .ft, nmrML, CSV/TSV peak lists, x,y text")
+    from .peaklist_io import read_peak_csv
+
+    return _check_claim(read_peak_csv(data, nucleus=nucleus, name=src), nucleus)
+
+
+def _is_nmrpipe(data: bytes) -> bool:
+    import struct
+
+    for fmt in ("<f", ">f"):
+        if abs(struct.unpack(fmt, data[8:12])[0] - 2.345) < 1e-3:
+            return True
+    return False
+
+
+def _check_claim(result: Spectrum | PeakList, claimed: str | None) -> Spectrum | PeakList:
+    if claimed and result.nucleus != claimed:
+        raise SpecmatchError(
+            f"{result.source}: the file says it is a {result.nucleus} spectrum but {claimed} was given; "
+            f"check the file or drop --nucleus")
+    if isinstance(result, Spectrum):
+        from .processing import check_nucleus_range
+
+        check_nucleus_range(result)
+    return result
+
+
+def peaks_from_file(path: str | Path | bytes, *, nucleus: str | None = None, solvent: str | None = None,
+                    dept135: bool = False, name: str | None = None, total_h: float | None = None,
+                    snr: float = 8.0) -> PeakList:
+    """Read a file and return its peak list (processing a spectrum if needed).
+
+    Parameters
+    ----------
+    path
+        File, instrument folder, zip, or contents.
+    nucleus
+        "1H" / "13C" as the user says; checked against the file.
+    solvent
+        NMR solvent; default: the one named in the file.
+    dept135
+        The spectrum is a DEPT-135.
+    total_h
+        Normalise 1H integrals to this many H.
+    snr
+        Peak-picking threshold in noise units.
+    """
+    result = read_spectrum(path, name=name, nucleus=nucleus)
+    if isinstance(result, PeakList):
+        from dataclasses import replace
+
+        from .processing import flag_peaklist
+
+        if dept135:
+            result = replace(result, experiment="DEPT-135")
+        return flag_peaklist(result, solvent)
+    from .processing import process_spectrum
+
+    return process_spectrum(result, solvent=solvent, snr=snr, dept135=dept135, total_h=total_h)
+
+
+def peaklist_to_dict(peaklist: PeakList) -> dict:
+    """The JSON form of a peak list (``specmatch peaks --json``)."""
+    out: dict = {
+        "nucleus": peaklist.nucleus,
+        "frequency_mhz": peaklist.frequency_mhz,
+        "solvent": peaklist.solvent,
+        "reference": peaklist.reference,
+        "peaks": [_peak_dict(p) for p in peaklist.peaks],
+    }
+    if peaklist.nucleus == "1H" or peaklist.multiplets:
+        out["multiplets"] = [
+            {"shift": m.shift, "range": [m.range[0], m.range[1]], "integral": m.integral,
+             "multiplicity": m.multiplicity, "j_hz": list(m.j_hz), "flag": m.flag}
+            for m in peaklist.multiplets
+        ]
+    if peaklist.experiment != "1D":
+        out["experiment"] = peaklist.experiment
+    if peaklist.warnings:
+        out["warnings"] = list(peaklist.warnings)
+    out["source"] = peaklist.source
+    return out
+
+
+def _peak_dict(p) -> dict:
+    d = {"shift": p.shift, "intensity": p.intensity, "flag": p.flag}
+    if p.sign is not None:
+        d["sign"] = p.sign
+    if p.hydrogens is not None:
+        d["hydrogens"] = p.hydrogens
+    return d

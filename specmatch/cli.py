@@ -106,7 +106,7 @@ def cmd_peaks(args: argparse.Namespace) -> int:
     from .spectra import peaks_from_file
 
     peaklist = peaks_from_file(args.file, nucleus=args.nucleus, solvent=args.solvent,
-                               dept135=args.dept135)
+                               dept135=args.dept135, total_h=getattr(args, "total_h", None))
     if args.json:
         from .spectra import peaklist_to_dict
 
@@ -203,7 +203,10 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("enumerate", help="list the plausible products of a reaction")
     p.add_argument("--substrate", required=True, metavar="SMILES")
-    p.add_argument("--reagent", required=True, metavar="TEXT", help="e.g. HBr, H2O/H2SO4, MeOH/H+")
+    p.add_argument("--reagent", required=True, metavar="TEXT",
+                   help="as written, case/space-tolerant: HCl, HBr, HI, H2O/H2SO4, H2O/H3PO4, H3O+, "
+                        "MeOH/H2SO4, EtOH/H2SO4, ROH/H+ (with --alcohol), 'H2SO4, heat', HBr/ROOR, "
+                        "'BH3; H2O2, NaOH', 'Hg(OAc)2, H2O; NaBH4', Br2, Cl2, Br2/H2O, Cl2/H2O")
     p.add_argument("--alcohol", metavar="SMILES", help="alcohol for acid-catalysed ether formation")
     p.add_argument("--max-shifts", type=int, default=2, metavar="N", help="1,2-shifts in a row (default 2)")
     p.add_argument("--xtb", action="store_true", help="refine close cation energies with GFN2-xTB (needs tblite)")
@@ -215,6 +218,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--nucleus", choices=["1H", "13C"])
     p.add_argument("--solvent", metavar="NAME")
     p.add_argument("--dept135", action="store_true", help="the file is a DEPT-135 spectrum")
+    p.add_argument("--total-h", type=float, metavar="N", dest="total_h",
+                   help="scale 1H integrals so the compound's multiplets add up to N H")
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_peaks)
 
@@ -246,8 +251,49 @@ def build_parser() -> argparse.ArgumentParser:
     p.set_defaults(func=cmd_mixture)
 
     p = sub.add_parser("history", help="saved analyses: list, search, show, export, compare")
-    p.set_defaults(func=cmd_history)
+    p.add_argument("--store", metavar="URL", help="database URL (default $SPECMATCH_STORE, "
+                   "else a SQLite file in your data directory)")
+    p.set_defaults(func=cmd_history, action=None)
+    hs = p.add_subparsers(dest="action", metavar="ACTION")
+    store_opt = argparse.ArgumentParser(add_help=False)  # --store also after the action
+    store_opt.add_argument("--store", metavar="URL", default=argparse.SUPPRESS)
+    store_opt.add_argument("--json", action="store_true", help="print JSON")
+    q = hs.add_parser("list", parents=[store_opt], help="latest saved analyses, newest first")
+    q.add_argument("--limit", type=int, default=30, metavar="N", help="how many (default 30)")
+    q.add_argument("--all-versions", action="store_true", help="list every version, notes included")
+    q = hs.add_parser("search", parents=[store_opt], help="find saved analyses")
+    q.add_argument("--substrate", metavar="SMILES", help="same molecule, any SMILES spelling")
+    q.add_argument("--reagent", metavar="TEXT")
+    q.add_argument("--verdict", metavar="TEXT", help="verdict words or the top candidate's SMILES")
+    q.add_argument("--since", metavar="DATE", help="run on or after (UTC, YYYY-MM-DD[THH:MM])")
+    q.add_argument("--until", metavar="DATE", help="run on or before (UTC)")
+    q.add_argument("--sample-id", metavar="ID")
+    q.add_argument("--limit", type=int, default=200, metavar="N")
+    q.add_argument("--all-versions", action="store_true")
+    q = hs.add_parser("show", parents=[store_opt], help="one analysis with its versions and files")
+    q.add_argument("id", help="analysis id (or its first characters)")
+    q = hs.add_parser("export", parents=[store_opt], help="write an analysis as JSON or HTML")
+    q.add_argument("id")
+    q.add_argument("--format", choices=["json", "html"], default="json")
+    q.add_argument("--out", metavar="FILE", help="file to write (default: standard output)")
+    q.add_argument("--include-files", action="store_true", help="JSON: embed the input files (base64)")
+    q = hs.add_parser("compare", parents=[store_opt], help="two analyses side by side")
+    q.add_argument("id_a")
+    q.add_argument("id_b")
+    q = hs.add_parser("note", parents=[store_opt], help="add a note or a corrected verdict (new version)")
+    q.add_argument("id")
+    q.add_argument("text", help="the note; with --verdict, the reason for the correction")
+    q.add_argument("--verdict", metavar="TEXT", help="record this corrected verdict")
+    q.add_argument("--author", metavar="NAME", help="who writes it (default: the OS user)")
     p = sub.add_parser("batch", help="run a manifest of samples, resumable")
+    p.add_argument("manifest", metavar="MANIFEST.csv", help="columns: sample_id, substrate, reagent, "
+                   "c13, h1, dept135, solvent, alcohol, candidates (paths relative to the manifest)")
+    p.add_argument("--out", metavar="DIR", help="where summary.csv goes (default MANIFEST_results/)")
+    p.add_argument("--workers", type=int, metavar="N", help="local worker processes (default: CPUs; 0: in this process)")
+    p.add_argument("--scheduler", metavar="ADDRESS", help="run on a Dask cluster, e.g. tcp://host:8786")
+    p.add_argument("--store", metavar="URL", help="database URL for the results (as for history)")
+    p.add_argument("--user", metavar="NAME", help="who runs the batch (default: the OS user)")
+    p.add_argument("--json", action="store_true", help="print the summary as JSON")
     p.set_defaults(func=cmd_batch)
     return ap
 
@@ -269,6 +315,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("specmatch: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:
+        # output piped into `head` and closed early: not an error of the user's input
+        import os
+
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
     except Exception as exc:  # last line of defence: one clear line, never a traceback
         if args.debug:
             raise

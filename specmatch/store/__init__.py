@@ -1,0 +1,35 @@
+"""Saved analyses with an audit trail, and resumable batches.
+
+``open_store()`` opens the store (SQLite by default, any SQLAlchemy URL); every
+analysis is saved whole and immutable, corrections and notes become new versions.
+``specmatch.store.batch`` runs a manifest of samples on a process pool or a Dask
+cluster, saving each finished sample at once.
+"""
+
+from __future__ import annotations
+
+from importlib import import_module
+from typing import Any
+
+_LAZY = {
+    "open_store": "specmatch.store.store",
+    "Store": "specmatch.store.store",
+    "save_result": "specmatch.store.store",
+    "save_run": "specmatch.store.store",
+    "default_store_url": "specmatch.store.store",
+    "resolve_store_url": "specmatch.store.store",
+    "AnalysisRecord": "specmatch.store.records",
+    "input_key": "specmatch.store.records",
+    "records_frame": "specmatch.store.records",
+    "SCHEMA_VERSION": "specmatch.store.models",
+    "run_batch": "specmatch.store.batch",
+    "run_sample": "specmatch.store.batch",
+}
+
+__all__ = list(_LAZY)
+
+
+def __getattr__(name: str) -> Any:
+    if name in _LAZY:
+        return getattr(import_module(_LAZY[name]), name)
+    raise AttributeError(f"module 'specmatch.store' has no attribute {name!r}")

@@ -164,9 +164,10 @@ def mol_from_text(text: str, *, max_heavy_atoms: int = MAX_HEAVY_ATOMS) -> Chem.
         mol = Chem.MolFromSmiles(stripped)
         if mol is None:
             raise SpecmatchError(f"{what} is not a valid SMILES ({_smiles_problem(stripped)})")
-    if any(a.GetAtomicNum() == 1 for a in mol.GetAtoms()):
+    numbers = {a.GetAtomicNum() for a in mol.GetAtoms()}  # one pass over the atoms
+    if 1 in numbers:
         mol = Chem.RemoveHs(mol)
-    if any(a.GetAtomicNum() == 0 for a in mol.GetAtoms()):
+    if 0 in numbers:
         raise SpecmatchError(f"{what} contains a wildcard atom '*'; give a complete structure")
     _check_size(mol, what if what != "the molfile" else "the molfile", max_heavy_atoms)
     return mol
@@ -208,32 +209,49 @@ def _is_diastereotopic_after_label(labelled: Chem.Mol, centre: int) -> bool:
     return any(at != centre for _, at in elements)
 
 
-def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...]) -> tuple[frozenset[int], tuple[tuple[int, int], ...]]:
+def _may_be_prochiral(atom: Chem.Atom, classes: tuple[int, ...]) -> bool:
+    """An sp3 centre Caabc: two equivalent heavy ligands, the other two different."""
+    if atom.GetHybridization() != Chem.HybridizationType.SP3 or atom.GetTotalNumHs() > 1:
+        return False
+    counts: dict[int, int] = {}
+    for nb in atom.GetNeighbors():
+        counts[classes[nb.GetIdx()]] = counts.get(classes[nb.GetIdx()], 0) + 1
+    return sorted(counts.values(), reverse=True)[0] == 2
+
+
+def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: list[tuple[str, int]]
+                    ) -> tuple[frozenset[int], tuple[tuple[int, int], ...]]:
+    # Cheap pre-test: without a stereo element or a prochiral centre nothing can be
+    # diastereotopic, which spares the labelled-molecule test for most small molecules.
+    if not original_stereo and not any(_may_be_prochiral(a, classes) for a in mol.GetAtoms()):
+        return frozenset(), ()
     ch2: set[int] = set()
     pairs: list[tuple[int, int]] = []
     for atom in mol.GetAtoms():
         idx = atom.GetIdx()
-        if atom.GetAtomicNum() == 6 and atom.GetTotalNumHs() == 2 and atom.GetDegree() == 2 \
-                and atom.GetHybridization() == Chem.HybridizationType.SP3:
+        if atom.GetAtomicNum() != 6 or atom.GetHybridization() != Chem.HybridizationType.SP3:
+            continue
+        neighbours = [nb.GetIdx() for nb in atom.GetNeighbors()]
+        if atom.GetTotalNumHs() == 2 and len(neighbours) == 2:
             if _is_diastereotopic_after_label(_label_one_h(mol, idx), idx):
                 ch2.add(idx)
-        if atom.GetAtomicNum() == 6 and atom.GetHybridization() == Chem.HybridizationType.SP3:
-            by_class: dict[int, list[int]] = {}
-            for nb in atom.GetNeighbors():
-                by_class.setdefault(classes[nb.GetIdx()], []).append(nb.GetIdx())
-            for members in by_class.values():
-                if len(members) == 2:
-                    a, b = members
-                    if _is_diastereotopic_after_label(_label_atom(mol, a), idx):
-                        pairs.append((a, b))
+        by_class: dict[int, list[int]] = {}
+        for nb in neighbours:
+            by_class.setdefault(classes[nb], []).append(nb)
+        for members in by_class.values():
+            if len(members) == 2:
+                a, b = members
+                if _is_diastereotopic_after_label(_label_atom(mol, a), idx):
+                    pairs.append((a, b))
     return frozenset(ch2), tuple(pairs)
 
 
 def perceive(mol: Chem.Mol, smiles: str = "") -> Structure:
     """Perceive an already parsed molecule (see :func:`parse_structure`)."""
     classes = tuple(int(r) for r in Chem.CanonicalRankAtoms(mol, breakTies=False, includeChirality=False))
-    ch2, pairs = _diastereotopic(mol, classes)
-    stereo = tuple(sorted(at for kind, at in _stereo_elements(mol) if kind == "Atom_Tetrahedral"))
+    original_stereo = _stereo_elements(mol)
+    ch2, pairs = _diastereotopic(mol, classes, original_stereo)
+    stereo = tuple(sorted(at for kind, at in original_stereo if kind == "Atom_Tetrahedral"))
     return Structure(
         mol=mol,
         smiles=smiles or Chem.MolToSmiles(mol),

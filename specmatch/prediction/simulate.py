@@ -1,0 +1,224 @@
+"""Simulated spectra from a prediction: first-order sticks -> Lorentzian lines.
+
+Pure functions on arrays (no state, no file access), used for overlays and for
+mixture fitting. Axes are in ppm; a printed spectrum runs from high to low ppm,
+and :func:`default_axis` returns such a descending axis, but every function here
+accepts an axis in either order.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+
+from .model import CarbonShift, Prediction, ProtonGroup
+
+__all__ = ["default_axis", "lorentzian_sum", "simulate_13c", "simulate_1h", "sticks_1h"]
+
+#: exchange-broadened lines (OH, NH) are drawn this many times wider than the
+#: others (common practice: OH signals are typically 5-20 Hz wide in CDCl3)
+EXCHANGE_BROADENING = 10.0
+
+# sticks closer than this (Hz) are merged; keeps long coupling trees small
+_STICK_GRID_HZ = 1e-3
+
+# memory bound for one broadcast block (axis points x lines)
+_BLOCK = 2_000_000
+
+_AXIS = {"1H": (12.0, -0.5, 16384), "13C": (220.0, -5.0, 65536)}
+
+
+def default_axis(nucleus: str, n_points: int | None = None) -> np.ndarray:
+    """A descending ppm axis covering the usual range of the nucleus.
+
+    Parameters
+    ----------
+    nucleus : {"1H", "13C"}
+    n_points : int, optional
+        Number of points (default 16384 for 1H, 12 to -0.5 ppm; 65536 for 13C,
+        220 to -5 ppm).
+    """
+    from ..errors import SpecmatchError
+
+    if nucleus not in _AXIS:
+        raise SpecmatchError(f"nucleus '{nucleus}' is not simulated; use '1H' or '13C'")
+    hi, lo, n_default = _AXIS[nucleus]
+    n = int(n_points or n_default)
+    if n < 2:
+        raise SpecmatchError(f"an axis needs at least 2 points, got {n}")
+    return np.linspace(hi, lo, n)
+
+
+def sticks_1h(group: ProtonGroup, frequency_mhz: float) -> tuple[np.ndarray, np.ndarray]:
+    """First-order stick spectrum of one proton group.
+
+    Each partner set of ``n`` equivalent protons with coupling ``J`` splits every
+    line into ``n + 1`` lines spaced ``J`` apart with binomial intensities.
+
+    Parameters
+    ----------
+    group : ProtonGroup
+        Uses ``shift``, ``count`` and ``couplings`` (exchangeable groups give one line).
+    frequency_mhz : float
+        Spectrometer 1H frequency; converts J (Hz) into ppm.
+
+    Returns
+    -------
+    (positions_ppm, intensities)
+        Intensities sum to ``group.count``.
+    """
+    offsets_hz = np.zeros(1)
+    weights = np.ones(1)
+    couplings = () if group.exchangeable else group.couplings
+    for n, j_hz in couplings:
+        n = int(n)
+        if n <= 0 or j_hz == 0:
+            continue
+        k = np.arange(n + 1)
+        # binomial coefficients C(n, k) / 2**n, exact for the small n that occur
+        binom = np.array([_comb(n, int(i)) for i in k], dtype=float) / 2.0**n
+        split = (k - n / 2.0) * abs(j_hz)
+        offsets_hz = (offsets_hz[:, None] + split[None, :]).ravel()
+        weights = (weights[:, None] * binom[None, :]).ravel()
+        # merge coincident lines so the tree stays small
+        keys = np.round(offsets_hz / _STICK_GRID_HZ).astype(np.int64)
+        uniq, inv = np.unique(keys, return_inverse=True)
+        weights = np.bincount(inv.ravel(), weights=weights, minlength=len(uniq))
+        offsets_hz = uniq * _STICK_GRID_HZ
+    positions = group.shift + offsets_hz / float(frequency_mhz)
+    return positions, weights * group.count
+
+
+def _comb(n: int, k: int) -> int:
+    from math import comb
+
+    return comb(n, k)
+
+
+def lorentzian_sum(
+    ppm_axis: np.ndarray, centres_ppm: np.ndarray, heights: np.ndarray, width_ppm: float | np.ndarray
+) -> np.ndarray:
+    """Sum of Lorentzian lines evaluated on an axis.
+
+    Parameters
+    ----------
+    ppm_axis : ndarray, shape (m,)
+    centres_ppm, heights : ndarray, shape (k,)
+        Line positions and peak heights.
+    width_ppm : float or ndarray of shape (k,)
+        Full width at half height, ppm (one for all lines or one per line).
+
+    Returns
+    -------
+    ndarray, shape (m,)
+        ``sum_i h_i * g_i**2 / ((x - c_i)**2 + g_i**2)`` with ``g = width/2``;
+        the area of line i is ``pi * h_i * g_i``.
+    """
+    x = np.asarray(ppm_axis, dtype=float)
+    c = np.atleast_1d(np.asarray(centres_ppm, dtype=float))
+    h = np.atleast_1d(np.asarray(heights, dtype=float))
+    g2 = (np.broadcast_to(np.asarray(width_ppm, dtype=float), c.shape) / 2.0) ** 2
+    out = np.zeros_like(x)
+    if c.size == 0:
+        return out
+    step = max(1, _BLOCK // max(1, x.size))
+    for s in range(0, c.size, step):
+        d = x[:, None] - c[None, s:s + step]
+        out += (h[s:s + step] * g2[s:s + step] / (d * d + g2[s:s + step])).sum(axis=1)
+    return out
+
+
+def simulate_1h(
+    prediction: Prediction,
+    ppm_axis: np.ndarray,
+    frequency_mhz: float = 400.0,
+    line_width_hz: float = 1.0,
+    shifts: Sequence[float] | np.ndarray | None = None,
+) -> np.ndarray:
+    """Simulated first-order 1H spectrum of one molecule.
+
+    Parameters
+    ----------
+    prediction : Prediction
+    ppm_axis : ndarray
+    frequency_mhz : float
+        Spectrometer 1H frequency (sets the multiplet widths in ppm).
+    line_width_hz : float
+        Full width at half height of each line; exchangeable groups are drawn
+        ``EXCHANGE_BROADENING`` times wider with the same area.
+    shifts : array-like, optional
+        One shift (ppm) per entry of ``prediction.protons`` replacing the
+        predicted one (mixture fitting moves groups within their sigma).
+
+    Returns
+    -------
+    ndarray
+        Intensity on ``ppm_axis``; the area of each group is proportional to its
+        proton count (1 proton = area ``pi * width_ppm / 2``).
+    """
+    groups = prediction.protons
+    if shifts is not None:
+        shifts = np.asarray(shifts, dtype=float)
+        if shifts.shape != (len(groups),):
+            from ..errors import SpecmatchError
+
+            raise SpecmatchError(
+                f"{len(groups)} proton groups but {shifts.size} shifts given; give one shift per group"
+            )
+    width = line_width_hz / float(frequency_mhz)
+    centres, heights, widths = [], [], []
+    for i, g in enumerate(groups):
+        pos, inten = sticks_1h(g, frequency_mhz)
+        if shifts is not None:
+            pos = pos + (shifts[i] - g.shift)
+        w = width * (EXCHANGE_BROADENING if g.exchangeable else 1.0)
+        centres.append(pos)
+        # same area whatever the width: scale height by width ratio
+        heights.append(inten * (width / w))
+        widths.append(np.full(pos.shape, w))
+    if not centres:
+        return np.zeros(np.shape(ppm_axis), dtype=float)
+    return lorentzian_sum(ppm_axis, np.concatenate(centres), np.concatenate(heights), np.concatenate(widths))
+
+
+def simulate_13c(
+    prediction: Prediction,
+    ppm_axis: np.ndarray,
+    line_width_hz: float = 1.5,
+    frequency_mhz: float = 100.0,
+    *,
+    shifts: Sequence[float] | np.ndarray | None = None,
+) -> np.ndarray:
+    """Simulated proton-decoupled 13C spectrum: one line per set of equivalent carbons.
+
+    Parameters
+    ----------
+    prediction : Prediction
+    ppm_axis : ndarray
+    line_width_hz : float
+        Full width at half height.
+    frequency_mhz : float
+        Spectrometer 13C frequency.
+    shifts : array-like, optional
+        One shift per entry of ``prediction.carbons`` replacing the predicted one.
+
+    Returns
+    -------
+    ndarray
+        Line heights proportional to the number of carbons in each set (no NOE or
+        relaxation weighting).
+    """
+    carbons: tuple[CarbonShift, ...] = prediction.carbons
+    centres = np.array([c.shift for c in carbons], dtype=float)
+    if shifts is not None:
+        shifts = np.asarray(shifts, dtype=float)
+        if shifts.shape != centres.shape:
+            from ..errors import SpecmatchError
+
+            raise SpecmatchError(
+                f"{len(carbons)} carbon sets but {shifts.size} shifts given; give one shift per set"
+            )
+        centres = shifts
+    heights = np.array([len(c.atoms) for c in carbons], dtype=float)
+    return lorentzian_sum(ppm_axis, centres, heights, line_width_hz / float(frequency_mhz))

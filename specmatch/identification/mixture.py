@@ -1,0 +1,733 @@
+"""Product ratio (regioselectivity) from a crude 1H spectrum.
+
+Two estimates, compared with each other:
+
+1. **Full-spectrum fit** (:mod:`.mixture_fit`): the measured 1H spectrum is fitted
+   as a non-negative combination of the candidates' simulated first-order spectra,
+   each proton group moving within its prediction uncertainty (shift and coupling
+   constants refined), with a polynomial baseline, solvent/water/TMS/impurity lines
+   masked and exchangeable OH protons modelled by one free broad line (they
+   exchange between the components). Mole fraction of candidate k =
+   ``w_k / sum(w)`` with ``w`` the fitted amounts (each candidate's spectrum has
+   area = its proton count, so ``w`` counts molecules). Uncertainty: the fit
+   covariance, inflated for excess residual and residual correlation, plus
+   ``MODEL_SD_FLOOR`` in quadrature; 95% interval = fraction +- 1.96 sd, clipped
+   to [0, 1]. A minor candidate the data do not need (a fresh fit without it is
+   not clearly worse) is put back at its predicted shifts, so noise does not
+   become a few per cent of a product that is not there.
+2. **Classical integral ratio**: for every candidate the best well-separated
+   signal (>= 95% of the fitted intensity over its range from that candidate, no
+   masked points; an X-CH signal on the carbon bearing the heteroatom is
+   preferred, as a chemist would pick it), integrated over its range with the fitted baseline removed,
+   corrected for Lorentzian tails outside the range, per proton. The two estimates
+   *disagree* when some fraction differs by more than ``DISAGREE_MIN`` (5
+   percentage points) and by more than twice their combined uncertainty.
+
+With a peak list with integrals instead of a spectrum (:mod:`.mixture_peaks`),
+multiplet integrals are fitted by an assignment of groups to multiplets; the
+classical ratio then uses the multiplets that belong to one candidate only.
+
+13C intensities are not quantitative under routine conditions (nuclear Overhauser
+enhancement and unequal relaxation): a ratio is never computed from 13C; asking
+for one raises :class:`~specmatch.errors.SpecmatchError` saying so.
+
+Wording (common practice; thresholds on the major product's mole fraction):
+
+======================  ===========================
+major fraction          wording
+======================  ===========================
+>= 0.99  (>= 99:1)      completely regioselective
+>= 0.90  (>= 90:10)     highly regioselective
+>= 0.70  (>= 70:30)     moderately regioselective
+< 0.70                  not regioselective
+======================  ===========================
+
+1H integrals give mole ratios only when every signal is fully relaxed (recycle
+delay >= 5 T1, common practice); the uncertainty here is statistical and does not
+include that. An estimate is advisory, like every identification.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ..errors import SpecmatchError
+
+#: (minimum major fraction, word), checked in order; common practice
+SELECTIVITY_THRESHOLDS: tuple[tuple[float, str], ...] = (
+    (0.99, "completely"),
+    (0.90, "highly"),
+    (0.70, "moderately"),
+)
+#: the two estimates disagree above this difference in any fraction ...
+DISAGREE_MIN = 0.05
+#: ... when it is also more than this many combined sd
+DISAGREE_SIGMAS = 2.0
+#: the full fit grows quickly with the number of candidates (multi-start searches)
+MAX_CANDIDATES = 6
+#: a candidate below this fraction counts as absent when choosing carrying signals
+ABSENT_FRACTION = 0.01
+Z95 = 1.959964
+#: sd added in quadrature to every fraction for what the statistical covariance does
+#: not see (first-order line shapes, binning, truncated tails, baseline model).
+#: Set by hand (a round value) from the synthetic benchmark (benchmarks/bench_mixture.py,
+#: six nmrshiftdb2 isomer pairs, development data, 2026-12-01): without it the
+#: statistical sd (~0.05 pp at SNR 500) is smaller than the 0.1-0.2 pp errors of the
+#: line-shape model; with it the 95% interval covers 98% of the well-resolved cases.
+MODEL_SD_FLOOR = 0.002
+
+_SOLVENT_HALF_WIDTH_PPM = 0.02
+_WATER_HALF_WIDTH_PPM = 0.03  # water moves with concentration and temperature
+
+
+# ------------------------------------------------------------------------ results
+@dataclass(frozen=True)
+class CarryingSignal:
+    """A resolved signal that carries the estimate for one candidate."""
+
+    candidate: int
+    range_ppm: tuple[float, float]
+    protons: int
+    groups: str  # e.g. "1H sept at 4.11 (predicted 4.02)"
+    purity: float  # share of the fitted intensity over the range from this candidate
+    amount: float | None  # integral per proton (weight units)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "candidate": self.candidate,
+            "range_ppm": [round(self.range_ppm[0], 3), round(self.range_ppm[1], 3)],
+            "protons": self.protons,
+            "groups": self.groups,
+            "purity": round(self.purity, 3),
+        }
+
+
+@dataclass(frozen=True)
+class IntegralRatio:
+    """The classical ratio from integrals of diagnostic signals, per proton."""
+
+    fractions: tuple[float, ...]
+    uncertainties: tuple[float, ...]
+    ratio_text: str
+    signals: tuple[CarryingSignal, ...]  # one per candidate
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "fractions": [round(f, 4) for f in self.fractions],
+            "uncertainties": [round(u, 4) for u in self.uncertainties],
+            "ratio_text": self.ratio_text,
+            "signals": [s.to_dict() for s in self.signals],
+        }
+
+
+@dataclass(frozen=True)
+class MixtureEstimate:
+    """Mole fractions of the candidates in a sample, from its 1H spectrum.
+
+    Attributes
+    ----------
+    candidates : tuple of str
+        SMILES as given, in input order; every per-candidate tuple follows it.
+    names : tuple of str
+        Display names (the SMILES if none was given).
+    fractions : tuple of float
+        Mole fractions (sum 1).
+    uncertainties : tuple of float
+        One standard deviation of each fraction.
+    interval_95 : tuple of (float, float)
+        95% intervals (fraction +- 1.96 sd, clipped to [0, 1]).
+    ratio_text : str
+        The ratio in candidate order, e.g. "78:22".
+    selectivity : str
+        e.g. "highly regioselective" (thresholds in SELECTIVITY_THRESHOLDS).
+    major : int
+        Index of the major candidate.
+    method, uncertainty_method : str
+        What was fitted and how the uncertainty was obtained.
+    carrying_signals : tuple of CarryingSignal
+        The resolved signals that carry the estimate.
+    integral_ratio : IntegralRatio or None
+        The classical estimate, when every candidate has a diagnostic signal.
+    disagreement : bool
+        True if the two estimates disagree (see module docstring).
+    warnings : tuple of str
+    source : str
+        The spectrum or peak list used.
+    """
+
+    candidates: tuple[str, ...]
+    names: tuple[str, ...]
+    fractions: tuple[float, ...]
+    uncertainties: tuple[float, ...]
+    interval_95: tuple[tuple[float, float], ...]
+    ratio_text: str
+    selectivity: str
+    major: int
+    method: str
+    uncertainty_method: str
+    carrying_signals: tuple[CarryingSignal, ...] = ()
+    integral_ratio: IntegralRatio | None = None
+    disagreement: bool = False
+    warnings: tuple[str, ...] = ()
+    source: str = ""
+    selectivity_note: str = ""
+    thresholds: tuple[tuple[float, str], ...] = SELECTIVITY_THRESHOLDS
+    details: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON form used by ``specmatch mixture --json``."""
+        return {
+            "candidates": [
+                {
+                    "smiles": s,
+                    "name": n,
+                    "fraction": round(f, 4),
+                    "uncertainty": round(u, 4),
+                    "interval_95": [round(lo, 4), round(hi, 4)],
+                }
+                for s, n, f, u, (lo, hi) in zip(self.candidates, self.names, self.fractions,
+                                                self.uncertainties, self.interval_95)
+            ],
+            "ratio_text": self.ratio_text,
+            "selectivity": self.selectivity,
+            "selectivity_note": self.selectivity_note,
+            "thresholds": [{"major_fraction_min": t, "word": w} for t, w in self.thresholds],
+            "major": self.major,
+            "method": self.method,
+            "uncertainty_method": self.uncertainty_method,
+            "carrying_signals": [c.to_dict() for c in self.carrying_signals],
+            "integral_ratio": self.integral_ratio.to_dict() if self.integral_ratio else None,
+            "disagreement": self.disagreement,
+            "warnings": list(self.warnings),
+            "source": self.source,
+            "details": {k: v for k, v in self.details.items() if isinstance(v, (int, float, str, bool))},
+        }
+
+
+# ------------------------------------------------------------------------ wording
+def ratio_text(fractions: Sequence[float]) -> str:
+    """Integer percentages summing to 100 (largest remainder), e.g. "78:22".
+
+    A minor component below 0.5% is written "<1" (two candidates: ">99:1", the
+    usual way of writing an essentially single-isomer result).
+    """
+    f = np.clip(np.asarray(fractions, float), 0.0, None)
+    if f.sum() <= 0:
+        return ":".join("?" for _ in f)
+    p = 100.0 * f / f.sum()
+    base = np.floor(p).astype(int)
+    rem = p - base
+    for i in np.argsort(-rem)[: 100 - int(base.sum())]:
+        base[i] += 1
+    if (base == 100).any() and len(base) == 2:
+        return ">99:1" if base[0] == 100 else "1:>99"
+    if (base == 100).any() and len(base) > 2:
+        return ":".join(">99" if b == 100 else "<1" for b in base)
+    if (base == 0).any() and len(base) > 1:
+        parts = []
+        for b, q in zip(base, p):
+            parts.append("<1" if b == 0 else str(b))
+        return ":".join(parts)
+    return ":".join(str(int(b)) for b in base)
+
+
+def selectivity_words(major_fraction: float) -> str:
+    """"completely / highly / moderately / not regioselective" by SELECTIVITY_THRESHOLDS."""
+    for threshold, word in SELECTIVITY_THRESHOLDS:
+        if major_fraction >= threshold - 1e-12:
+            return f"{word} regioselective"
+    return "not regioselective"
+
+
+def _selectivity_note(lo: float, hi: float) -> str:
+    lo_w, hi_w = selectivity_words(lo), selectivity_words(hi)
+    if lo_w == hi_w:
+        return ""
+    return (f"the 95% interval of the major fraction ({100 * lo:.1f}-{100 * hi:.1f}%) spans more than one "
+            f"wording: from '{lo_w}' to '{hi_w}'")
+
+
+# ---------------------------------------------------------------------- internals
+@dataclass
+class _Candidate:
+    smiles: str
+    name: str
+    groups: tuple  # ProtonGroup with couplings
+    placeholder: bool
+
+
+#: geminal 2J between diastereotopic twins is left out of the fitted multiplets when
+#: at least this large (Hz): their shift difference is unknown, and when it is small
+#: the pair is a second-order AB pattern that looks much like no splitting
+GEMINAL_MIN_J_HZ = 10.0
+
+
+def _fit_groups(groups: Sequence) -> tuple:
+    """The groups as fitted: diastereotopic twins without their mutual geminal coupling."""
+    from dataclasses import replace
+
+    out = []
+    for g in groups:
+        twin = g.diastereotopic and sum(1 for h in groups if h.atoms == g.atoms) > 1
+        if twin:
+            gem = [c for c in g.couplings if c[0] == 1 and abs(c[1]) >= GEMINAL_MIN_J_HZ]
+            if gem:
+                big = max(gem, key=lambda c: abs(c[1]))
+                rest = list(g.couplings)
+                rest.remove(big)
+                g = replace(g, couplings=tuple(rest))
+        out.append(g)
+    return tuple(out)
+
+
+def _prepare_candidates(candidates: Sequence[str], names: Sequence[str] | None,
+                        predictions: Sequence | None = None) -> list[_Candidate]:
+    from ..prediction import predict
+    from ..structures import parse_structure
+    from .mixture_synth import with_couplings
+
+    cands = [str(c).strip() for c in candidates]
+    if len(cands) < 2:
+        raise SpecmatchError(
+            f"a product ratio needs at least two candidate structures, got {len(cands)}; "
+            "list every isomer that may be in the sample (one SMILES per line)")
+    if len(cands) > MAX_CANDIDATES:
+        raise SpecmatchError(
+            f"{len(cands)} candidates given; the ratio fit takes at most {MAX_CANDIDATES}. Keep the plausible "
+            "ones (e.g. those the identification gives more than 1% probability)")
+    seen: dict[str, int] = {}
+    out = []
+    for i, smi in enumerate(cands):
+        st = parse_structure(smi)
+        if st.canonical_smiles in seen:
+            raise SpecmatchError(
+                f"candidates {seen[st.canonical_smiles] + 1} and {i + 1} are the same compound "
+                f"({st.canonical_smiles}); give each isomer once")
+        seen[st.canonical_smiles] = i
+        pred = predictions[i] if predictions is not None else predict(smi)
+        groups = _fit_groups(with_couplings(st, pred.protons))
+        if not any(not g.exchangeable for g in groups):
+            raise SpecmatchError(f"candidate {i + 1} ({smi}) has no C-H protons; a 1H ratio cannot include it")
+        name = names[i] if names and i < len(names) and names[i] else smi
+        out.append(_Candidate(smi, name, groups, "placeholder" in (pred.tables_version or "")))
+    return out
+
+
+def _masks(peaklist, solvent: str | None, warnings: list[str], cands: Sequence[_Candidate] = ()
+           ) -> tuple[list[tuple[float, float]], list[str], list[tuple[str, float]]]:
+    """Ranges to leave out: TMS, the peak list's flagged lines and the solvent table's lines.
+
+    Lines flagged as a known impurity are kept in the fit when a candidate has a
+    predicted signal within 1 sigma (the "impurity" may be the product:
+    tert-butyl alcohol is both a common impurity and a hydration product); grease
+    is always masked.
+    """
+    def near_candidate(c: float) -> str | None:
+        return _near_candidate(cands, c)
+
+    masks: list[tuple[float, float]] = [(-_SOLVENT_HALF_WIDTH_PPM, _SOLVENT_HALF_WIDTH_PPM)]
+    names = ["TMS 0.00"]
+    flagged = []
+    if peaklist is not None:
+        for m in peaklist.multiplets:
+            if m.flag is not None:
+                lo, hi = min(m.range), max(m.range)
+                flagged.append((lo - 0.01, hi + 0.01, m.flag, m.shift))
+        for p in peaklist.peaks:
+            if p.flag is not None:
+                half = max(_SOLVENT_HALF_WIDTH_PPM, 4.0 * (p.width_hz or 1.0) / (peaklist.frequency_mhz or 400.0))
+                if p.flag == "water":
+                    half = max(half, _WATER_HALF_WIDTH_PPM)
+                flagged.append((p.shift - half, p.shift + half, p.flag, p.shift))
+    for lo, hi, flag, c in flagged:
+        if flag.startswith("impurity"):
+            who = near_candidate(c)
+            if who is not None:
+                warnings.append(f"the line at {c:.2f} ppm flagged '{flag}' is where {who} has a signal; "
+                                "kept in the fit")
+                continue
+        masks.append((lo, hi))
+        names.append(f"{flag} {c:.2f}")
+    # the solvent's table lines (specmatch.spectra.solvents) are masked as well: a weak
+    # water line is often not flagged
+    from ..spectra.solvents import canonical_solvent, lines_for
+
+    rows = [r for r in lines_for(canonical_solvent(solvent, strict=False), "1H")
+            if r.kind in ("solvent", "water", "TMS")]
+    if not rows and not flagged:
+        warnings.append(
+            f"solvent {'not given' if not solvent else repr(solvent)}: residual solvent and water lines "
+            "were not masked (give --solvent, e.g. CDCl3)")
+    for r in rows:
+        half = _WATER_HALF_WIDTH_PPM if r.kind == "water" else _SOLVENT_HALF_WIDTH_PPM
+        masks.append((r.shift_ppm - half, r.shift_ppm + half))
+        names.append(f"{r.kind} {r.shift_ppm:.2f}")
+    # every masked line also gets a free line in the fit (its tails reach past the mask)
+    lines = {}
+    for n in names:
+        label, _, c = n.rpartition(" ")
+        lines.setdefault(round(float(c), 2), n)
+    return masks, list(dict.fromkeys(names)), [(n, c) for c, n in lines.items()]
+
+
+def _near_candidate(cands: Sequence[_Candidate], shift: float) -> str | None:
+    """Name of a candidate with a predicted C-H signal within 1 sigma of ``shift``."""
+    for cand in cands:
+        for g in cand.groups:
+            if not g.exchangeable and abs(g.shift - shift) <= g.sigma:
+                return cand.name
+    return None
+
+
+def _describe_groups(cands: list[_Candidate], k: int, group_indices: Sequence[int],
+                     fitted: dict[int, float] | None = None) -> str:
+    parts = []
+    for i in group_indices:
+        g = cands[k].groups[i]
+        if fitted is not None and i in fitted:
+            parts.append(f"{g.count}H {g.multiplicity} at {fitted[i]:.2f} (predicted {g.shift:.2f})")
+        else:
+            parts.append(f"{g.count}H {g.multiplicity} predicted at {g.shift:.2f}")
+    return "; ".join(parts)
+
+
+def _interval(f: np.ndarray, sd: np.ndarray) -> tuple[tuple[float, float], ...]:
+    return tuple((float(max(0.0, a - Z95 * s)), float(min(1.0, a + Z95 * s))) for a, s in zip(f, sd))
+
+
+def _alpha_to_heteroatom(cand: _Candidate, group_indices: Sequence[int]) -> bool:
+    from ..structures import parse_structure
+
+    mol = parse_structure(cand.smiles).mol
+    for i in group_indices:
+        atom = mol.GetAtomWithIdx(int(cand.groups[i].atoms[0]))
+        if atom.GetSymbol() == "C" and any(n.GetSymbol() not in ("C", "H") for n in atom.GetNeighbors()):
+            return True
+    return False
+
+
+def _integral_ratio(regions, cands, weights, fitted_shift_map) -> tuple[IntegralRatio | None, str]:
+    """Best diagnostic region per candidate -> classical ratio; or None and why."""
+    from .mixture_fit import PURITY_MIN
+
+    chosen = []
+    for k in range(len(cands)):
+        regs = [r for r in regions if r.component == k and r.purity >= PURITY_MIN and r.amount is not None]
+        if not regs:
+            return None, f"no well-separated signal of {cands[k].name} for an integral ratio"
+        # the classical choice: an X-CH signal (on the carbon bearing the heteroatom) if
+        # one is resolved, else the most precise resolved signal
+        chosen.append(min(regs, key=lambda r: (not _alpha_to_heteroatom(cands[k], r.own_groups), r.amount_sd)))
+    amounts = np.array([max(0.0, r.amount) for r in chosen])
+    sds = np.array([r.amount_sd for r in chosen])
+    tot = amounts.sum()
+    if tot <= 0:
+        return None, "the diagnostic signals integrate to nothing"
+    f = amounts / tot
+    # delta method, independent integrals
+    d = (np.eye(len(f)) - f[:, None]) / tot
+    sd = np.sqrt(np.clip(np.diag(d @ np.diag(sds**2) @ d.T), 0.0, None))
+    sigs = tuple(
+        CarryingSignal(r.component, (r.lo_ppm, r.hi_ppm), r.protons,
+                       _describe_groups(cands, r.component, r.own_groups, fitted_shift_map.get(r.component)),
+                       r.purity, r.amount)
+        for r in chosen)
+    return IntegralRatio(tuple(float(v) for v in f), tuple(float(v) for v in sd), ratio_text(f), sigs), ""
+
+
+def _finish(cands, weights, wcov, regions, *, method, uncertainty_method, warnings, source,
+            fitted, group_keys, details, undetected: dict[int, float] | None = None) -> MixtureEstimate:
+    from .mixture_fit import PURITY_MIN, _fraction_sd
+
+    w = np.asarray(weights, float)
+    tot = w.sum()
+    if not tot > 0:
+        raise SpecmatchError(
+            "none of the candidates' predicted signals were found in the spectrum; check that the "
+            "spectrum is a 1H spectrum of this reaction and that the candidate list is right")
+    f = w / tot
+    sd = np.sqrt(_fraction_sd(w, wcov) ** 2 + MODEL_SD_FLOOR**2)
+    # a candidate the fit did not need: what it had before the detection test is how
+    # much the spectrum cannot exclude; its 95% interval reaches that far
+    for k, before in (undetected or {}).items():
+        extra = max(before, Z95 * sd[k]) / Z95
+        for j in range(len(sd)):
+            sd[j] = max(sd[j], extra) if j == k else float(np.sqrt(sd[j] ** 2 + extra**2))
+        warnings.append(f"{cands[k].name}: not detected; the spectrum cannot exclude up to about "
+                        f"{100 * Z95 * extra:.1f}%")
+    # per region, the candidate's own group indices (for descriptions)
+    for r in regions:
+        r.own_groups = tuple(group_keys[j][1] for j in r.groups)
+    carrying = []
+    for r in regions:
+        if r.purity < PURITY_MIN:
+            continue
+        k = r.component
+        desc = _describe_groups(cands, k, r.own_groups, fitted.get(k))
+        if f[k] < ABSENT_FRACTION:
+            desc += " (expected here if present; not seen)"
+        carrying.append(CarryingSignal(k, (r.lo_ppm, r.hi_ppm), r.protons, desc, r.purity, r.amount))
+    integral, why = _integral_ratio(regions, cands, w, fitted)
+    disagreement = False
+    if integral is None:
+        warnings.append(f"no classical integral ratio: {why}")
+    else:
+        diff = np.abs(np.array(integral.fractions) - f)
+        comb = np.sqrt(np.array(integral.uncertainties) ** 2 + sd**2)
+        bad = (diff > DISAGREE_MIN) & (diff > DISAGREE_SIGMAS * comb)
+        if bad.any():
+            disagreement = True
+            warnings.append(
+                f"the full fit ({ratio_text(f)}) and the integrals of the diagnostic signals "
+                f"({integral.ratio_text}) disagree; overlapped or misassigned signals, an impurity under a "
+                "diagnostic signal, or a missing candidate are the usual causes: inspect the fit")
+    for k in range(len(cands)):
+        if not any(c.candidate == k for c in carrying) and f[k] >= ABSENT_FRACTION:
+            warnings.append(f"{cands[k].name}: no resolved signal of its own; its fraction rests on overlapped signals")
+    if np.nanmax(sd) > 0.15:
+        warnings.append("the spectrum does not separate the candidates well: some fractions have an sd above 0.15")
+    if any(c.placeholder for c in cands):
+        warnings.append("the 1H prediction tables are placeholders; the estimate is not meaningful yet")
+    major = int(np.argmax(f))
+    iv = _interval(f, sd)
+    return MixtureEstimate(
+        candidates=tuple(c.smiles for c in cands),
+        names=tuple(c.name for c in cands),
+        fractions=tuple(float(v) for v in f),
+        uncertainties=tuple(float(v) for v in sd),
+        interval_95=iv,
+        ratio_text=ratio_text(f),
+        selectivity=selectivity_words(float(f[major])),
+        selectivity_note=_selectivity_note(*iv[major]),
+        major=major,
+        method=method,
+        uncertainty_method=uncertainty_method,
+        carrying_signals=tuple(carrying),
+        integral_ratio=integral,
+        disagreement=disagreement,
+        warnings=tuple(dict.fromkeys(warnings)),
+        source=source,
+        details=details,
+    )
+
+
+# ---------------------------------------------------------------------------- API
+def estimate_mixture(
+    candidates: Sequence[str],
+    *,
+    spectrum=None,
+    peaklist=None,
+    solvent: str | None = None,
+    frequency_mhz: float | None = None,
+    names: Sequence[str] | None = None,
+    predictions: Sequence | None = None,
+) -> MixtureEstimate:
+    """Mole fractions of the candidates from a 1H spectrum or a 1H peak list with integrals.
+
+    Parameters
+    ----------
+    candidates : sequence of str
+        SMILES of every isomer that may be in the sample (at least two).
+    spectrum : Spectrum, optional
+        The processed 1H spectrum (preferred: full-spectrum fit).
+    peaklist : PeakList, optional
+        Its peak list: used for the flagged solvent/water/impurity lines with a
+        spectrum, or alone (multiplet integrals needed) without one.
+    solvent : str, optional
+        Masks the solvent's residual and water lines when no flagged lines are known.
+    frequency_mhz : float, optional
+        1H frequency if the spectrum does not say (default 400 with a warning).
+    names : sequence of str, optional
+        Display names of the candidates.
+    predictions : sequence of Prediction, optional
+        Already computed predictions, one per candidate (default: ``predict``).
+
+    Raises
+    ------
+    SpecmatchError
+        Fewer than two candidates, a 13C spectrum (not quantitative), a peak list
+        without integrals, or nothing to fit.
+    """
+    warnings: list[str] = []
+    for obj in (spectrum, peaklist):
+        if obj is not None and getattr(obj, "nucleus", "1H") != "1H":
+            raise SpecmatchError(
+                f"a product ratio needs a 1H spectrum; this is {obj.nucleus}. 13C intensities are not "
+                "quantitative under routine conditions (nuclear Overhauser enhancement, unequal "
+                "relaxation), so specmatch does not report a ratio from them")
+        if obj is not None and getattr(obj, "experiment", "1D") != "1D":
+            raise SpecmatchError(f"a product ratio needs a plain 1D 1H spectrum, not {obj.experiment}")
+    if spectrum is None and peaklist is None:
+        raise SpecmatchError("give a 1H spectrum or a 1H peak list with integrals")
+    if predictions is not None and len(predictions) != len(candidates):
+        raise SpecmatchError(f"{len(candidates)} candidates but {len(predictions)} predictions")
+    cands = _prepare_candidates(candidates, names, predictions)
+    src = (spectrum.source if spectrum is not None else peaklist.source) or ""
+    solvent = solvent or (spectrum.solvent if spectrum is not None else None) or \
+        (peaklist.solvent if peaklist is not None else None)
+    f_mhz = frequency_mhz or (spectrum.frequency_mhz if spectrum is not None else None) or \
+        (peaklist.frequency_mhz if peaklist is not None else None)
+    if not f_mhz:
+        f_mhz = 400.0
+        if spectrum is not None:  # a peak-list fit does not simulate line shapes
+            warnings.append("the 1H frequency is not known; 400 MHz assumed (it sets the multiplet widths)")
+    if spectrum is not None:
+        if peaklist is None:
+            peaklist = _try_process(spectrum, solvent, warnings)
+        return _from_spectrum(cands, spectrum, peaklist, solvent, float(f_mhz), warnings, src)
+    return _from_peaklist(cands, peaklist, warnings, src)
+
+
+def _try_process(spectrum, solvent, warnings):
+    try:
+        from ..spectra import process_spectrum
+    except (ImportError, AttributeError):
+        return None
+    try:
+        return process_spectrum(spectrum, solvent=solvent)
+    except SpecmatchError as exc:
+        warnings.append(f"peak picking failed ({exc}); solvent lines masked from the table instead")
+        return None
+
+
+def _from_spectrum(cands, spectrum, peaklist, solvent, f_mhz, warnings, src) -> MixtureEstimate:
+    from .mixture_fit import fit_spectrum
+
+    ppm = np.asarray(spectrum.ppm, float)
+    y = np.asarray(spectrum.intensity, float)
+    if ppm.size < 100 or not np.all(np.isfinite(y)):
+        raise SpecmatchError(f"{src or 'the spectrum'}: too few points or non-finite intensities; "
+                             "export the processed (real, phased) 1H spectrum")
+    masks, mask_names, lines = _masks(peaklist, solvent, warnings, cands)
+    fit = fit_spectrum(ppm, y, [c.groups for c in cands], frequency_mhz=f_mhz, masks_ppm=masks,
+                       extra_lines_ppm=lines)
+    fitted: dict[int, dict[int, float]] = {}
+    for j, g in enumerate(fit.groups):
+        fitted.setdefault(g.component, {})[g.index] = float(fit.shifts_ppm[j])
+    group_keys = [(g.component, g.index) for g in fit.groups]
+    if fit.chi2_red > 4.0:
+        warnings.append(
+            f"the fit leaves structured residual (reduced chi-square {fit.chi2_red:.1f} over the signals): "
+            "second-order multiplets, an impurity or a candidate missing from the list")
+    resid = (fit.y - fit.model)[fit.used]
+    sig = (fit.model - fit.baseline_curve)[fit.used]
+    if sig.sum() > 0:
+        # positive residual well above the noise: lines no candidate accounts for
+        big = resid > 5.0 * fit.noise_sd
+        unexplained = float(resid[big].sum() / sig.sum())
+        if unexplained > 0.1:
+            warnings.append(f"{100 * unexplained:.0f}% of the intensity is not explained by any candidate "
+                            "(impurity, solvent or a missing candidate?)")
+    if fit.oh is not None and fit.oh[0] > 0:
+        warnings.append(f"exchangeable OH line fitted at {fit.oh[1]:.2f} ppm ({fit.oh[2]:.0f} Hz wide); "
+                        "not used for the ratio")
+    method = (f"full-spectrum fit: non-negative combination of the candidates' simulated first-order 1H "
+              f"spectra ({f_mhz:.0f} MHz), per-group shift (within {3:.0f} prediction sigma) and J "
+              f"refinement, one line width ({fit.width_hz:.2f} Hz fitted), degree-2 baseline; "
+              f"masked: {', '.join(mask_names)}")
+    unc = (f"fit covariance at the solution (Gauss-Newton), inflated x{fit.inflation:.2f} for excess residual "
+           f"and residual correlation, plus {100 * MODEL_SD_FLOOR:.1f} percentage points in quadrature for the "
+           f"line-shape model; 95% interval = fraction +- 1.96 sd (assumes fully relaxed spectra)")
+    details = {"width_hz": fit.width_hz, "chi2_red": fit.chi2_red, "inflation": fit.inflation,
+               "noise_sd": fit.noise_sd, "frequency_mhz": f_mhz}
+    est = _finish(cands, fit.weights, fit.weights_cov, fit.regions, method=method, uncertainty_method=unc,
+                  warnings=warnings, source=src, fitted=fitted, group_keys=group_keys, details=details,
+                  undetected=fit.undetected)
+    object.__setattr__(est, "details", {**details, "fit": fit})
+    return est
+
+
+def _from_peaklist(cands, peaklist, warnings, src) -> MixtureEstimate:
+    from .mixture_peaks import fit_integrals
+
+    mults = []
+    for m in peaklist.multiplets:
+        if m.integral is None or m.integral <= 0:
+            continue
+        if m.flag is not None:
+            who = _near_candidate(cands, m.shift) if m.flag.startswith("impurity") else None
+            if who is None:
+                continue
+            warnings.append(f"the multiplet at {m.shift:.2f} ppm flagged '{m.flag}' is where {who} has a "
+                            "signal; kept in the fit")
+        mults.append(m)
+    if not mults:
+        raise SpecmatchError(
+            f"{src or 'the peak list'} has no multiplets with integrals; a ratio needs integrals "
+            "(CSV columns shift_ppm, range, integral) or the full 1H spectrum")
+    fit = fit_integrals(mults, [c.groups for c in cands])
+    group_keys = list(fit.group_index)
+    warnings.extend(fit.notes)
+    if fit.chi2_red > 4.0:
+        warnings.append(f"the integrals are not well explained by the candidates (reduced chi-square "
+                        f"{fit.chi2_red:.1f}): an impurity, a missing candidate or a wrong assignment")
+    # an absent candidate has no multiplet of its own: its diagnostic signal is "not observed"
+    from .mixture_fit import SignalRegion
+
+    regions = list(fit.regions)
+    tot = fit.weights.sum()
+    for k in range(len(cands)):
+        if not any(r.component == k for r in regions) and tot > 0 and fit.weights[k] / tot < ABSENT_FRACTION:
+            gi = [q for q, (kk, _) in enumerate(group_keys) if kk == k]
+            if gi:
+                q = max(gi, key=lambda q: cands[k].groups[group_keys[q][1]].shift)
+                g = cands[k].groups[group_keys[q][1]]
+                regions.append(SignalRegion(k, (q,), g.shift - 0.05, g.shift + 0.05, g.count, 1.0,
+                                            integral=0.0, amount=0.0,
+                                            amount_sd=fit.abs_sd / g.count))
+    method = ("peak-list fit: multiplet integrals explained by the candidates' proton groups "
+              "(assignment within 3 prediction sigma, non-negative least squares for the amounts)")
+    unc = ("covariance of the amounts for the best assignment, integrals taken to +-2% (+0.5% of the largest), "
+           f"scaled by the reduced chi-square when above 1, plus {100 * MODEL_SD_FLOOR:.1f} percentage points in "
+           "quadrature; 95% interval = fraction +- 1.96 sd")
+    details = {"chi2_red": fit.chi2_red, "oh_multiplet": -1 if fit.oh_multiplet is None else fit.oh_multiplet}
+    return _finish(cands, fit.weights, fit.weights_cov, regions, method=method, uncertainty_method=unc,
+                   warnings=warnings, source=src, fitted={}, group_keys=group_keys, details=details)
+
+
+def read_candidates(path: str | Path) -> tuple[list[str], list[str]]:
+    """Candidate file: one SMILES per line, optionally followed by a name; '#' starts a comment."""
+    p = Path(path)
+    try:
+        text = p.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise SpecmatchError(f"candidate file '{path}' not found") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise SpecmatchError(f"cannot read candidate file '{path}': {exc}") from None
+    smiles, names = [], []
+    for line in text.splitlines():
+        line = line.split("#", 1)[0].strip() if not line.lstrip().startswith("#") else ""
+        if not line:
+            continue
+        parts = line.split(None, 1)
+        smiles.append(parts[0])
+        names.append(parts[1].strip() if len(parts) > 1 else parts[0])
+    if not smiles:
+        raise SpecmatchError(f"candidate file '{path}' lists no structures; write one SMILES per line")
+    return smiles, names
+
+
+def mixture_from_files(h1_path: str | Path, candidates_path: str | Path, *, solvent: str | None = None
+                       ) -> MixtureEstimate:
+    """``specmatch mixture``: read the 1H file (spectrum or CSV peak list) and the candidates."""
+    smiles, names = read_candidates(candidates_path)
+    try:
+        from ..spectra import read_spectrum
+    except (ImportError, AttributeError):
+        raise SpecmatchError("reading spectrum files is not available in this installation") from None
+    obj = read_spectrum(str(h1_path))
+    if getattr(obj, "nucleus", "1H") != "1H":
+        raise SpecmatchError(
+            f"'{h1_path}' is a {obj.nucleus} file. 13C intensities are not quantitative under routine "
+            "conditions (nuclear Overhauser enhancement, unequal relaxation), so specmatch does not "
+            "report a ratio from them; give the 1H spectrum")
+    from ..spectra.model import PeakList
+
+    if isinstance(obj, PeakList):
+        return estimate_mixture(smiles, peaklist=obj, solvent=solvent, names=names)
+    return estimate_mixture(smiles, spectrum=obj, solvent=solvent, names=names)

@@ -1,0 +1,993 @@
+"""Full-spectrum fit of a 1H spectrum as a non-negative mixture of candidate spectra.
+
+Model (on a uniform, cropped ppm axis):
+
+    y(x) = sum_k w_k * sum_{g in k} P_g(x; c_g, width) + baseline(x) + a_OH * P_OH(x) + noise
+
+* ``P_g`` is the first-order multiplet of proton group ``g`` (sticks from
+  :func:`specmatch.prediction.simulate.sticks_1h`) drawn with area-normalised
+  Lorentzian lines, area = the group's proton count; so ``w_k`` is the amount of
+  molecule ``k`` and the mole fraction is ``w_k / sum(w)``.
+* every group centre ``c_g`` moves within ``BOUND_SIGMAS`` prediction sigmas of the
+  predicted shift, with a Gaussian prior of that sigma (the refinement absorbs the
+  difference between predicted and real shifts);
+* coupling constants refined within ``J_BOUND_HZ`` of the predicted ones (prior
+  ``J_SIGMA_HZ``); one line width (Hz) for all non-exchangeable lines, fitted;
+* a Legendre polynomial baseline (degree ``BASELINE_DEGREE``);
+* exchangeable (OH) protons are not tied to any candidate: OH protons of the
+  components exchange with each other (and with water), so one broad line with
+  free height, position and width stands in for them;
+* flagged solvent, water, TMS and impurity lines are masked (points left out), and
+  each also gets a free Lorentzian so that its tails outside the mask are explained.
+
+Procedure (several starts, the lowest chi-square wins): candidates are added one
+at a time (each candidate first in turn); each newcomer's groups are placed by 1D
+grid searches of the shift on the residual (cross-correlation at the newcomer's
+estimated height), then all groups are re-searched, pairs of groups (and a group
+and the OH line) are exchanged where that helps, coupling constants are scanned
+in scale, and everything is polished by a bounded Levenberg-Marquardt fit on the
+normal equations with an analytic Jacobian. Minor candidates must then pass a
+detection test (a fresh fit without them must be clearly worse), else they are
+put back at their predicted shifts. Uncertainties come from the covariance at the
+solution, inflated for excess residual (reduced chi-square over the signal
+points) and for the correlation of neighbouring residuals (model misfit is
+smooth, noise is not).
+
+Pure functions on arrays; no file access.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..prediction.model import ProtonGroup
+
+#: groups may move this many prediction sigmas from the predicted shift
+BOUND_SIGMAS = 3.0
+#: ... but at least / at most this far (ppm)
+MIN_BOUND_PPM = 0.03
+MAX_BOUND_PPM = 1.0
+BASELINE_DEGREE = 2
+#: working grid spacing (Hz); finer input is binned (averaged) to this
+GRID_HZ = 0.2
+#: line-width bounds (Hz) for the non-exchangeable lines
+WIDTH_BOUNDS_HZ = (0.2, 8.0)
+#: exchangeable (OH) line width bounds (Hz): exchange-broadened, 5-60 Hz is common practice
+OH_WIDTH_BOUNDS_HZ = (3.0, 80.0)
+#: where an OH line may be searched (ppm, CDCl3-like solvents; common practice)
+OH_RANGE_PPM = (0.5, 6.0)
+#: coupling constants move at most this far (Hz) from the predicted ones, with a
+#: Gaussian prior of J_SIGMA_HZ (vicinal 3J in alkyl chains spans ~6-8 Hz; common practice)
+J_BOUND_HZ = 1.5
+J_SIGMA_HZ = 0.7
+#: multiplets are evaluated this many half-widths beyond their outer lines (the
+#: Lorentzian area left outside is 2/(pi*TAIL_HWHM), 0.16%, alike for every group)
+TAIL_HWHM = 400.0
+#: detection test for minor candidates (see _detection_test)
+DETECT_MAX_FRACTION = 0.15
+DETECT_DCHI2 = 25.0
+DETECT_DCHI2_PER_GROUP = 10.0
+#: restart from the resolved signals' amounts when they imply fractions this far off
+RESTART_FRACTION = 0.03
+#: a signal "carries" a component when that component makes at least this share of
+#: the fitted intensity over the signal's range
+PURITY_MIN = 0.95
+
+
+@dataclass(frozen=True)
+class GroupModel:
+    """One proton group as the fit sees it: a first-order coupling tree.
+
+    Stick ``s`` sits at ``centre + coef[s] @ j_hz / frequency`` with relative
+    intensity ``rel[s]`` (binomial, sum 1); lines are not merged so that every
+    coupling constant can be refined.
+    """
+
+    component: int
+    index: int  # index in the component's group list
+    shift0: float
+    sigma: float
+    count: int
+    coef: np.ndarray  # (sticks, couplings): spin-quantum offsets m_i per partner set
+    rel: np.ndarray  # (sticks,)
+    j0_hz: np.ndarray  # (couplings,) predicted J
+    label: str = ""
+
+    @property
+    def bound(self) -> float:
+        return float(np.clip(BOUND_SIGMAS * self.sigma, MIN_BOUND_PPM, MAX_BOUND_PPM))
+
+    def offsets_ppm(self, j_hz: np.ndarray, frequency_mhz: float) -> np.ndarray:
+        return self.coef @ np.asarray(j_hz, float) / frequency_mhz if self.coef.size else np.zeros(len(self.rel))
+
+    def half_span_hz(self) -> float:
+        return float(np.sum(np.abs(self.coef).max(axis=0) * (self.j0_hz + J_BOUND_HZ))) if self.coef.size else 0.0
+
+
+@dataclass
+class SignalRegion:
+    """A stretch of the spectrum covering one or more groups of a single component."""
+
+    component: int
+    groups: tuple[int, ...]  # indices into SpectrumFit.groups
+    lo_ppm: float
+    hi_ppm: float
+    protons: int
+    purity: float
+    integral: float | None = None  # measured over the window, baseline removed
+    amount: float | None = None  # molecules (weight units): integral less others, tail-corrected, per proton
+    amount_sd: float | None = None
+    own_groups: tuple[int, ...] = ()  # the candidate's own group indices (set by the caller)
+
+
+@dataclass
+class SpectrumFit:
+    """The result of :func:`fit_spectrum` (all arrays ascending in ppm)."""
+
+    groups: list[GroupModel]
+    weights: np.ndarray
+    weights_cov: np.ndarray
+    shifts_ppm: np.ndarray
+    j_hz: list[np.ndarray]
+    width_hz: float
+    baseline: np.ndarray  # coefficients
+    oh: tuple[float, float, float] | None  # (amplitude, shift_ppm, width_hz)
+    extra_lines: dict[str, tuple[float, float, float]]  # free lines incl. OH, same form
+    x: np.ndarray
+    y: np.ndarray
+    used: np.ndarray  # bool mask of points entering the fit
+    model: np.ndarray
+    component_models: np.ndarray  # (K, N)
+    baseline_curve: np.ndarray
+    noise_sd: float
+    chi2_red: float
+    inflation: float
+    regions: list[SignalRegion] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+    undetected: dict[int, float] = field(default_factory=dict)  # candidate -> fraction before the test
+
+    @property
+    def fractions(self) -> np.ndarray:
+        tot = self.weights.sum()
+        return self.weights / tot if tot > 0 else np.full(self.weights.shape, np.nan)
+
+    @property
+    def fractions_sd(self) -> np.ndarray:
+        return _fraction_sd(self.weights, self.weights_cov)
+
+
+def _fraction_sd(w: np.ndarray, cov: np.ndarray) -> np.ndarray:
+    tot = w.sum()
+    if tot <= 0:
+        return np.full(w.shape, np.nan)
+    f = w / tot
+    d = (np.eye(len(w)) - f[:, None]) / tot  # d f_k / d w_j = (delta_kj - f_k)/W
+    return np.sqrt(np.clip(np.diag(d @ cov @ d.T), 0.0, None))
+
+
+# ----------------------------------------------------------------------------- lines
+def _profile(x: np.ndarray, centre: float, offsets: np.ndarray, amps: np.ndarray, hw: float,
+             deriv: bool = False):
+    """Area-normalised Lorentzian multiplet (area = sum(amps)).
+
+    With ``deriv``: also the per-stick derivative wrt the centre (N x sticks; sum
+    it for d/dcentre, contract it with offsets' derivatives for d/dJ) and d/dhw.
+    """
+    d = x[:, None] - (centre + offsets)[None, :]
+    den = d * d + hw * hw
+    p = (amps * (hw / np.pi) / den).sum(axis=1)
+    if not deriv:
+        return p
+    dstick = amps * (hw / np.pi) * 2.0 * d / (den * den)
+    dhw = (amps / np.pi * (d * d - hw * hw) / (den * den)).sum(axis=1)
+    return p, dstick, dhw
+
+
+def _coupling_tree(couplings: Sequence[tuple[int, float]]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Unmerged first-order tree: (coef, rel, j0) for partner sets (n, J)."""
+    from math import comb
+
+    sets = [(int(n), abs(float(j))) for n, j in couplings if int(n) > 0 and float(j) != 0.0]
+    coef = np.zeros((1, 0))
+    rel = np.ones(1)
+    for n, _ in sets:
+        m = np.arange(n + 1) - n / 2.0
+        b = np.array([comb(n, k) for k in range(n + 1)], float) / 2.0**n
+        coef = np.hstack([np.repeat(coef, n + 1, axis=0), np.tile(m, len(rel))[:, None]])
+        rel = (rel[:, None] * b[None, :]).ravel()
+    return coef, rel, np.array([j for _, j in sets], float)
+
+
+def group_models(components: Sequence[Sequence[ProtonGroup]]) -> list[GroupModel]:
+    """Non-exchangeable groups of every component, as coupling trees."""
+    out: list[GroupModel] = []
+    for k, groups in enumerate(components):
+        for i, g in enumerate(groups):
+            if g.exchangeable or g.count <= 0:
+                continue
+            coef, rel, j0 = _coupling_tree(g.couplings)
+            out.append(GroupModel(k, i, float(g.shift), max(float(g.sigma), 1e-3), int(g.count),
+                                  coef, rel, j0, g.environment or f"{g.count}H {g.multiplicity}"))
+    return out
+
+
+# -------------------------------------------------------------------- preprocessing
+def prepare_axis(ppm: np.ndarray, intensity: np.ndarray, frequency_mhz: float,
+                 lo_ppm: float, hi_ppm: float) -> tuple[np.ndarray, np.ndarray, float]:
+    """Ascending, cropped, uniform (binned to ~GRID_HZ) copy of the spectrum, and the noise sd.
+
+    The noise is the robust (MAD) spread of first differences over the whole input,
+    which signals barely affect.
+    """
+    x = np.asarray(ppm, float)
+    y = np.asarray(intensity, float)
+    if x[0] > x[-1]:
+        x, y = x[::-1], y[::-1]
+    step_in = float(np.median(np.diff(x)))
+    keep = (x >= lo_ppm) & (x <= hi_ppm)
+    x, y = x[keep], y[keep]
+    factor = max(1, int(np.ceil(GRID_HZ / frequency_mhz / step_in - 1e-9)))
+    if factor > 1:
+        n = (len(x) // factor) * factor
+        x = x[:n].reshape(-1, factor).mean(axis=1)
+        y = y[:n].reshape(-1, factor).mean(axis=1)
+    dy = np.diff(y)
+    noise = 1.4826 * float(np.median(np.abs(dy - np.median(dy)))) / np.sqrt(2.0)
+    if not noise > 0:
+        noise = 1e-6 * max(float(np.max(np.abs(y))), 1e-12)
+    return x, y, noise
+
+
+def estimate_width_hz(x: np.ndarray, y: np.ndarray, used: np.ndarray, frequency_mhz: float) -> float:
+    """FWHM of the tallest used point's line (an upper bound for a multiplet line)."""
+    yy = np.where(used, y, -np.inf)
+    i = int(np.argmax(yy))
+    half = (y[i] + np.median(y)) / 2.0
+    lo = i
+    while lo > 0 and y[lo] > half:
+        lo -= 1
+    hi = i
+    while hi < len(y) - 1 and y[hi] > half:
+        hi += 1
+    fwhm_hz = (x[hi] - x[lo]) * frequency_mhz
+    return float(np.clip(fwhm_hz, 0.5, 3.0))
+
+
+# ---------------------------------------------------------------------------- fit
+class _Model:
+    """Evaluates the mixture model, its residuals and Jacobian for a parameter vector.
+
+    Layout of theta: group centres (G), coupling constants (all groups, in order),
+    line width (Hz), component weights (K), baseline coefficients, then the
+    exchangeable line (height, centre, width in Hz) if any.
+    """
+
+    def __init__(self, x, y, used, groups, n_comp, frequency_mhz, noise, free_lines):
+        self.x_all = x
+        self.y_all = y
+        self.used = used
+        self.xu = x[used]
+        self.yu = y[used]
+        self.groups = groups
+        self.K = n_comp
+        self.G = len(groups)
+        self.f = frequency_mhz
+        self.noise = noise
+        self._cache: dict = {}
+        self.free = list(free_lines)
+        self.L = len(self.free)
+        t = 2.0 * (x - x[0]) / (x[-1] - x[0]) - 1.0
+        self.leg_all = np.polynomial.legendre.legvander(t, BASELINE_DEGREE)
+        self.leg = self.leg_all[used]
+        self.nb = BASELINE_DEGREE + 1
+        self.i_c = np.arange(self.G)
+        pos = self.G
+        self.i_j = []
+        for g in groups:
+            self.i_j.append(np.arange(pos, pos + len(g.j0_hz)))
+            pos += len(g.j0_hz)
+        self.n_j = pos - self.G
+        self.i_wd = pos
+        self.i_w = pos + 1 + np.arange(self.K)
+        self.i_b = pos + 1 + self.K + np.arange(self.nb)
+        # free lines: (height, centre, width_hz) each
+        self.i_free = (pos + 1 + self.K + self.nb + np.arange(3 * self.L)).reshape(self.L, 3)
+        self.n = pos + 1 + self.K + self.nb + 3 * self.L
+
+    def offsets(self, j: int, theta) -> np.ndarray:
+        return self.groups[j].offsets_ppm(theta[self.i_j[j]], self.f)
+
+    def group_profile(self, j: int, theta, x=None, deriv=False):
+        """Group j on an ascending axis, evaluated within TAIL_HWHM half-widths of its lines."""
+        g = self.groups[j]
+        x = self.xu if x is None else x
+        c = theta[self.i_c[j]]
+        key = None
+        if not deriv:
+            # searches re-evaluate unchanged groups many times: keep the last one per axis
+            key = (j, id(x), float(c), float(theta[self.i_wd]), tuple(theta[self.i_j[j]]))
+            hit = self._cache.get(key[:2])
+            if hit is not None and hit[0] == key:
+                return hit[1]
+        off = self.offsets(j, theta)
+        hw = theta[self.i_wd] / self.f / 2.0
+        a, b = np.searchsorted(x, [c + off.min() - TAIL_HWHM * hw, c + off.max() + TAIL_HWHM * hw])
+        res = _profile(x[a:b], c, off, g.rel * g.count, hw, deriv)
+        if not deriv:
+            out = np.zeros(len(x))
+            out[a:b] = res
+            out.setflags(write=False)
+            self._cache[key[:2]] = (key, out)
+            return out
+        p, dstick, dhw = res
+        P = np.zeros(len(x))
+        P[a:b] = p
+        D = np.zeros((len(x), dstick.shape[1]))
+        D[a:b] = dstick
+        H = np.zeros(len(x))
+        H[a:b] = dhw
+        return P, D, H
+
+    def component_matrix(self, theta, x=None):
+        x = self.xu if x is None else x
+        S = np.zeros((self.K, len(x)))
+        for j, g in enumerate(self.groups):
+            S[g.component] += self.group_profile(j, theta, x)
+        return S
+
+    def free_profile(self, q: int, theta, x=None, deriv=False):
+        _, c, wd = theta[self.i_free[q]]
+        x = self.xu if x is None else x
+        return _profile(x, c, np.zeros(1), np.ones(1), wd / self.f / 2.0, deriv)
+
+    def free_total(self, theta, x=None):
+        x = self.xu if x is None else x
+        out = np.zeros(len(x))
+        for q in range(self.L):
+            out += theta[self.i_free[q][0]] * self.free_profile(q, theta, x)
+        return out
+
+    def evaluate(self, theta, x=None, leg=None):
+        x = self.xu if x is None else x
+        leg = self.leg if leg is None else leg
+        m = theta[self.i_w] @ self.component_matrix(theta, x) + leg @ theta[self.i_b]
+        if self.L:
+            m = m + self.free_total(theta, x)
+        return m
+
+    def priors(self, theta) -> np.ndarray:
+        pc = [(theta[self.i_c[j]] - g.shift0) / g.sigma for j, g in enumerate(self.groups)]
+        pj = [(theta[self.i_j[j]] - g.j0_hz) / J_SIGMA_HZ for j, g in enumerate(self.groups)]
+        return np.concatenate([np.array(pc, float), *pj]) if self.groups else np.zeros(0)
+
+    def residuals(self, theta):
+        return np.concatenate([(self.evaluate(theta) - self.yu) / self.noise, self.priors(theta)])
+
+    def jacobian(self, theta):
+        N = len(self.xu)
+        J = np.zeros((N + self.G + self.n_j, self.n))
+        dwd = np.zeros(N)
+        row = N + self.G
+        for j, g in enumerate(self.groups):
+            p, dstick, dhw = self.group_profile(j, theta, deriv=True)
+            wk = theta[self.i_w[g.component]]
+            J[:N, self.i_c[j]] = wk * dstick.sum(axis=1)
+            if len(self.i_j[j]):
+                J[:N, self.i_j[j]] = wk * (dstick @ g.coef) / self.f
+                J[row + np.arange(len(self.i_j[j])), self.i_j[j]] = 1.0 / J_SIGMA_HZ
+                row += len(self.i_j[j])
+            J[:N, self.i_w[g.component]] += p
+            dwd += wk * dhw / self.f / 2.0
+            J[N + j, self.i_c[j]] = 1.0 / g.sigma
+        J[:N, self.i_wd] = dwd
+        J[:N, self.i_b] = self.leg
+        for q in range(self.L):
+            ia, ic, iw = self.i_free[q]
+            p, dstick, dhw = self.free_profile(q, theta, deriv=True)
+            J[:N, ia] = p
+            J[:N, ic] = theta[ia] * dstick.sum(axis=1)
+            J[:N, iw] = theta[ia] * dhw / self.f / 2.0
+        J[:N] /= self.noise
+        return J
+
+    def cost(self, theta) -> float:
+        return float(np.sum(self.residuals(theta) ** 2))
+
+    def linear_solve(self, theta, active: np.ndarray | None = None) -> np.ndarray:
+        """Best weights, baseline and free-line heights (non-negative where physical) for fixed shapes.
+
+        ``active`` (bool per component) holds the other components at zero weight.
+        """
+        from scipy.optimize import lsq_linear
+
+        S = self.component_matrix(theta)
+        if active is not None:
+            S = S * active[:, None]
+        cols = [S.T, self.leg]
+        for q in range(self.L):
+            cols.append(self.free_profile(q, theta)[:, None])
+        A = np.hstack(cols) / self.noise
+        lb = np.concatenate([np.zeros(self.K), np.full(self.nb, -np.inf), np.zeros(self.L)])
+        # solve on the Cholesky factor of the small normal matrix: same minimiser,
+        # and no factorisation of the tall matrix
+        G = _gram(A)
+        G[np.diag_indices_from(G)] += 1e-12 * max(float(np.max(np.diag(G))), 1e-300)
+        R = np.linalg.cholesky(G).T
+        d = np.linalg.solve(R.T, np.einsum("ij,i->j", A, self.yu / self.noise))
+        sol = lsq_linear(R, d, bounds=(lb, np.full(lb.shape, np.inf)), method="bvls")
+        out = theta.copy()
+        out[self.i_w] = sol.x[: self.K]
+        out[self.i_b] = sol.x[self.K: self.K + self.nb]
+        for q in range(self.L):
+            out[self.i_free[q][0]] = sol.x[self.K + self.nb + q]
+        return out
+
+
+def _gram(A: np.ndarray) -> np.ndarray:
+    """A^T A without a threaded BLAS call: on a busy machine threading a tall, thin
+    product costs far more than it saves."""
+    return np.einsum("ij,ik->jk", A, A)
+
+
+def _search_shift(model: _Model, theta: np.ndarray, j: int, free_amplitude: bool,
+                  window_ppm: float | None = None) -> float:
+    """Best centre of group j on the grid, others fixed (cross-correlation with the residual)."""
+    from scipy.signal import correlate
+
+    g = model.groups[j]
+    x, used = model.x_all, model.used
+    h = x[1] - x[0]
+    # residual without this group, on the full grid (unused points get weight 0)
+    full_model = model.evaluate(theta, x, model.leg_all)
+    wk = theta[model.i_w[g.component]]
+    own = model.group_profile(j, theta, x)
+    r0 = np.where(used, model.y_all - full_model + wk * own, 0.0)
+    m = used.astype(float)
+    offsets = model.offsets(j, theta)
+    span = float(np.max(np.abs(offsets))) if offsets.size else 0.0
+    half_pts = int(np.ceil((span + 40.0 * theta[model.i_wd] / model.f) / h))
+    tx = (np.arange(-half_pts, half_pts + 1)) * h
+    t = _profile(tx, 0.0, offsets, g.rel * g.count, theta[model.i_wd] / model.f / 2.0)
+    lo_c = g.shift0 - g.bound
+    hi_c = g.shift0 + g.bound
+    if window_ppm is not None:  # local refinement around the current place
+        lo_c = max(lo_c, theta[model.i_c[j]] - window_ppm)
+        hi_c = min(hi_c, theta[model.i_c[j]] + window_ppm)
+    i_lo = int(np.ceil((lo_c - x[0]) / h))
+    i_hi = int(np.floor((hi_c - x[0]) / h))
+    i_lo, i_hi = max(i_lo, 0), min(i_hi, len(x) - 1)
+    if i_hi <= i_lo:
+        return float(np.clip(theta[model.i_c[j]], lo_c, hi_c))
+    pad = half_pts
+    rp = np.pad(r0, pad)
+    mp = np.pad(m, pad)
+    seg = slice(i_lo, i_hi + 2 * pad + 1)
+    corr = correlate(rp[seg], t, mode="valid")
+    norm = correlate(mp[seg], t * t, mode="valid")
+    centres = x[i_lo:i_hi + 1]
+    # Gaussian prior on the shift, in the same chi-square units as the data
+    prior = ((centres - g.shift0) / g.sigma) ** 2 * model.noise**2
+    if free_amplitude or wk <= 0:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            gain = np.where((corr > 0) & (norm > 0), corr * corr / norm, 0.0)
+        cost = -gain + prior
+    else:
+        cost = -2.0 * wk * corr + wk * wk * norm + prior
+    i = int(np.argmin(cost))
+    c = centres[i]
+    if 0 < i < len(cost) - 1:  # parabolic refinement between grid points
+        a, b, cc = cost[i - 1], cost[i], cost[i + 1]
+        den = a - 2 * b + cc
+        if den > 0:
+            c += 0.5 * (a - cc) / den * h
+    return float(np.clip(c, lo_c, hi_c))
+
+
+def _swap_moves(model: _Model, theta: np.ndarray, with_oh: bool, active: np.ndarray,
+                max_passes: int = 3) -> np.ndarray:
+    """Exchange the places of two groups (or a group and the OH line) when that lowers the cost.
+
+    Per-group searches get stuck when two groups sit on each other's multiplets (a
+    septet on a triplet and the triplet on the septet, a 3H doublet on two 1H
+    multiplets, a quintet on the broad OH line); moving one at a time cannot undo
+    that, exchanging them can.
+    """
+    cost = model.cost
+    best = cost(theta)
+    groups = model.groups
+    G = len(groups)
+    oh = G if with_oh else None  # pseudo-index of the OH line
+
+    def centre(t, j):
+        return t[model.i_free[0][1]] if j == oh else t[model.i_c[j]]
+
+    def fits(j, c):
+        if j == oh:
+            return OH_RANGE_PPM[0] <= c <= OH_RANGE_PPM[1]
+        return abs(c - groups[j].shift0) <= groups[j].bound
+
+    members = [j for j in range(G) if active[groups[j].component]] + ([oh] if with_oh else [])
+    for _ in range(max_passes):
+        improved = False
+        for a_i, j1 in enumerate(members):
+            for j2 in members[a_i + 1:]:
+                if j1 != oh and j2 != oh and groups[j1].component == groups[j2].component and \
+                        groups[j1].count == groups[j2].count and groups[j1].coef.shape == groups[j2].coef.shape:
+                    continue  # same candidate, same pattern: exchanging changes nothing
+                c1, c2 = centre(theta, j1), centre(theta, j2)
+                if abs(c1 - c2) < 1e-3 or not fits(j1, c2) or not fits(j2, c1):
+                    continue
+                trial = theta.copy()
+                for j, c in ((j1, c2), (j2, c1)):
+                    trial[model.i_free[0][1] if j == oh else model.i_c[j]] = c
+                trial = model.linear_solve(trial, active)
+                for j in (j1, j2):
+                    if j != oh:
+                        trial[model.i_c[j]] = _search_shift(model, trial, j, free_amplitude=False, window_ppm=0.03)
+                trial = model.linear_solve(trial, active)
+                c = cost(trial)
+                if c < best:
+                    best, theta, improved = c, trial, True
+        if not improved:
+            break
+    return theta
+
+
+def _search_oh(model: _Model, theta: np.ndarray, q: int) -> np.ndarray:
+    """Place the free exchangeable line where the residual has a broad positive hump."""
+    from scipy.signal import correlate
+
+    x, used = model.x_all, model.used
+    h = x[1] - x[0]
+    theta = theta.copy()
+    theta[model.i_free[q][0]] = 0.0
+    r = np.where(used, model.y_all - model.evaluate(theta, x, model.leg_all), 0.0)
+    m = used.astype(float)
+    lo, hi = max(OH_RANGE_PPM[0], x[0]), min(OH_RANGE_PPM[1], x[-1])
+    best = (0.0, 0.5 * (lo + hi), 10.0)
+    best_gain = 0.0
+    for wd in (5.0, 15.0, 40.0):
+        hw = wd / model.f / 2.0
+        half_pts = int(np.ceil(30 * hw / h))
+        tx = np.arange(-half_pts, half_pts + 1) * h
+        t = _profile(tx, 0.0, np.zeros(1), np.ones(1), hw)
+        rp, mp = np.pad(r, half_pts), np.pad(m, half_pts)
+        corr = correlate(rp, t, mode="valid")
+        norm = correlate(mp, t * t, mode="valid")
+        ok = (x >= lo) & (x <= hi) & (corr > 0) & (norm > 0)
+        if not ok.any():
+            continue
+        gain = np.where(ok, corr * corr / np.where(norm > 0, norm, 1.0), 0.0)
+        i = int(np.argmax(gain))
+        if gain[i] > best_gain:
+            best_gain = gain[i]
+            best = (corr[i] / norm[i], x[i], wd)
+    theta[model.i_free[q]] = best
+    return theta
+
+
+def fit_spectrum(
+    ppm: np.ndarray,
+    intensity: np.ndarray,
+    components: Sequence[Sequence[ProtonGroup]],
+    *,
+    frequency_mhz: float,
+    masks_ppm: Sequence[tuple[float, float]] = (),
+    extra_lines_ppm: Sequence[tuple[str, float]] = (),
+    sweeps: int = 3,
+) -> SpectrumFit:
+    """Fit a 1H spectrum as a non-negative combination of candidate spectra.
+
+    Parameters
+    ----------
+    ppm, intensity : ndarray
+        The measured spectrum (either order; any uniform spacing).
+    components : sequence of sequences of ProtonGroup
+        Per candidate its predicted proton groups (``shift``, ``sigma``, ``count``,
+        ``couplings``; exchangeable groups are modelled by one shared free line).
+    frequency_mhz : float
+        Spectrometer 1H frequency.
+    masks_ppm : sequence of (lo, hi)
+        Ranges left out of the fit (solvent, water, TMS, impurities).
+    extra_lines_ppm : sequence of (name, shift_ppm)
+        Known non-compound lines (solvent, water, TMS) near the fitted range: each
+        gets a free Lorentzian (height, position within +-0.03 ppm, width) so that
+        its tails outside the mask do not leak into a candidate.
+    sweeps : int
+        Rounds of per-group shift search before the non-linear polish.
+
+    Returns
+    -------
+    SpectrumFit
+    """
+    f = float(frequency_mhz)
+    groups = group_models(components)
+    K = len(components)
+    has_oh = any(g.exchangeable for comp in components for g in comp)
+    spans = [(g.shift0 - g.bound - g.half_span_hz() / f, g.shift0 + g.bound + g.half_span_hz() / f)
+             for g in groups]
+    lo = min(s[0] for s in spans) - 0.15
+    hi = max(s[1] for s in spans) + 0.15
+    x, y, noise = prepare_axis(ppm, intensity, f, lo, hi)
+    # points far from any place a group can reach only anchor the baseline: keep 1 in 8
+    near = np.zeros(len(x), bool)
+    for a, b in spans:
+        near |= (x >= a - 0.03) & (x <= b + 0.03)
+    used = near | (np.arange(len(x)) % 8 == 0)
+    for a, b in masks_ppm:
+        used &= ~((x >= min(a, b)) & (x <= max(a, b)))
+    with_oh = has_oh and (x[0] < OH_RANGE_PPM[1]) and (x[-1] > OH_RANGE_PPM[0])
+    # free lines: (name, start centre, centre bounds, width bounds Hz, start width Hz)
+    free = []
+    if with_oh:
+        free.append(("OH", 2.0, OH_RANGE_PPM, OH_WIDTH_BOUNDS_HZ, 15.0))
+    for name, c in extra_lines_ppm:
+        if x[0] - 0.05 <= c <= x[-1] + 0.05:
+            free.append((name, float(c), (c - 0.03, c + 0.03), (0.3, 12.0), 2.0))
+    model = _Model(x, y, used, groups, K, f, noise, free)
+
+    theta = np.zeros(model.n)
+    theta[model.i_c] = [g.shift0 for g in groups]
+    for j, g in enumerate(groups):
+        theta[model.i_j[j]] = g.j0_hz
+    theta[model.i_wd] = estimate_width_hz(x, y, used, f)
+    for q, (_, c, _, _, wd) in enumerate(free):
+        theta[model.i_free[q]] = (0.0, c, wd)
+    lb = np.full(model.n, -np.inf)
+    ub = np.full(model.n, np.inf)
+    for j, g in enumerate(groups):
+        lb[j], ub[j] = g.shift0 - g.bound, g.shift0 + g.bound
+        lb[model.i_j[j]] = np.maximum(0.3, g.j0_hz - J_BOUND_HZ)
+        ub[model.i_j[j]] = g.j0_hz + J_BOUND_HZ
+    lb[model.i_wd], ub[model.i_wd] = WIDTH_BOUNDS_HZ
+    lb[model.i_w] = 0.0
+    for q, (_, _, (clo, chi), (wlo, whi), _) in enumerate(free):
+        lb[model.i_free[q]] = (0.0, clo, wlo)
+        ub[model.i_free[q]] = (np.inf, chi, whi)
+
+    theta, best_cost = _fit_starts(model, theta, lb, ub, list(range(K)), sweeps, with_oh)
+    theta, undetected = _detection_test(model, theta, best_cost, lb, ub, sweeps, with_oh)
+
+    fit = _assemble(model, theta, undetected, groups, free, with_oh)
+    # the fitted shares of overlapped regions can sit in a local minimum while the
+    # resolved signals say otherwise: restart from the amounts the resolved signals
+    # integrate to, keep whichever fit is better
+    amounts = {}
+    for r in fit.regions:
+        if r.purity >= PURITY_MIN and r.amount is not None and r.component not in undetected:
+            if r.component not in amounts or r.protons > amounts[r.component][1]:
+                amounts[r.component] = (max(r.amount, 0.0), r.protons)
+    present = [k for k in range(K) if fit.weights[k] > 0.01 * fit.weights.sum()]
+    if present and all(k in amounts for k in present):
+        trial = theta.copy()
+        for k in present:
+            trial[model.i_w[k]] = amounts[k][0]
+        f_int = trial[model.i_w] / trial[model.i_w].sum()
+        if np.max(np.abs(f_int - fit.fractions)) > RESTART_FRACTION:
+            # place every candidate's groups afresh at the heights the resolved signals give
+            comps = [k for k in range(K) if k not in undetected]
+            trial, c_trial = _fit_starts(model, theta, lb, ub, comps, sweeps, with_oh, w_init=trial[model.i_w])
+            if c_trial < model.cost(theta):
+                fit = _assemble(model, trial, undetected, groups, free, with_oh)
+    return fit
+
+
+def _assemble(model: _Model, theta: np.ndarray, undetected: dict[int, float], groups, free, with_oh
+              ) -> SpectrumFit:
+    """Covariance, per-component models and signal regions at a solution."""
+    x, y, used, noise = model.x_all, model.y_all, model.used, model.noise
+    # covariance over the parameters that are not pinned (weights at zero stay in:
+    # their sd is what says "absent within the uncertainty")
+    Jm = model.jacobian(theta)
+    r = model.residuals(theta)
+    N = len(model.xu)
+    rd = r[:N]
+    comp = model.component_matrix(theta)
+    shape_total = theta[model.i_w] @ comp
+    signal = shape_total > 3.0 * noise
+    dof = max(1, int(signal.sum()) - model.n) if signal.any() else max(1, N - model.n)
+    chi2_sig = float(np.sum(rd[signal] ** 2) / dof) if signal.any() else float(np.mean(rd**2))
+    tau = _autocorr_time(rd, signal)
+    inflation = max(1.0, chi2_sig) * tau
+    JTJ = _gram(Jm)
+    keep = np.where(np.abs(np.diag(JTJ)) > 1e-12 * max(1.0, float(np.max(np.diag(JTJ)))))[0]
+    cov = np.zeros((model.n, model.n))
+    cov[np.ix_(keep, keep)] = np.linalg.pinv(JTJ[np.ix_(keep, keep)]) * inflation
+    wcov = cov[np.ix_(model.i_w, model.i_w)]
+
+    full_comp = model.component_matrix(theta, x)
+    w = theta[model.i_w]
+    fit = SpectrumFit(
+        groups=groups,
+        weights=w.copy(),
+        weights_cov=wcov,
+        shifts_ppm=theta[model.i_c].copy(),
+        j_hz=[theta[ij].copy() for ij in model.i_j],
+        width_hz=float(theta[model.i_wd]),
+        baseline=theta[model.i_b].copy(),
+        oh=tuple(float(v) for v in theta[model.i_free[0]]) if with_oh else None,
+        extra_lines={name: tuple(float(v) for v in theta[model.i_free[q]]) for q, (name, *_) in enumerate(free)},
+        x=x, y=y, used=used,
+        model=model.evaluate(theta, x, model.leg_all),
+        component_models=w[:, None] * full_comp,
+        baseline_curve=model.leg_all @ theta[model.i_b],
+        noise_sd=noise,
+        chi2_red=chi2_sig,
+        inflation=float(inflation),
+        undetected=undetected,
+    )
+    fit.regions = signal_regions(fit, model, theta)
+    return fit
+
+
+def _search_phase(model: _Model, theta: np.ndarray, comp_order: Sequence[int], sweeps: int,
+                  with_oh: bool, big_first: bool = True, w_init: np.ndarray | None = None) -> np.ndarray:
+    """Grid searches of the group shifts, adding candidates one at a time in ``comp_order``.
+
+    Groups are placed largest first (``big_first``) or smallest first: with equal
+    couplings the lines of different groups coincide (a 3H doublet matches the two
+    central lines of a 4H methylene envelope), and which order untangles that
+    depends on the molecule; the caller tries both.
+    """
+    groups = model.groups
+    active = np.zeros(model.K, bool)
+    h = model.x_all[1] - model.x_all[0]
+    theta[model.i_w] = 0.0
+    for k in comp_order:
+        # first guess of the newcomer's amount: the unexplained area over its proton count.
+        # Its groups are then placed at that fixed height, so a 3H doublet goes where
+        # 3H of doublet are, not onto the biggest multiplet around
+        resid = (model.yu - model.evaluate(theta))
+        area = float(np.sum(resid[resid > 3.0 * model.noise]) * h)
+        protons = sum(g.count for g in groups if g.component == k)
+        active[k] = True
+        theta[model.i_w[k]] = max(area / max(protons, 1), 0.0) if w_init is None else w_init[k]
+        # most protons first: big groups find their place most reliably
+        order = sorted((j for j, g in enumerate(groups) if active[g.component]),
+                       key=lambda j: (-groups[j].count if big_first else groups[j].count))
+        for sweep in range(sweeps):
+            if with_oh:  # one strong broad line: place it before the groups take its place
+                theta = _search_oh(model, theta, 0)
+            for j in order:
+                if sweep == 0 and groups[j].component != k:
+                    continue
+                theta[model.i_c[j]] = _search_shift(model, theta, j, free_amplitude=False)
+            if with_oh:
+                theta = _search_oh(model, theta, 0)
+            theta = model.linear_solve(theta, active)
+    theta = _swap_moves(model, theta, with_oh, active)
+    for j in sorted(range(len(groups)), key=lambda j: -groups[j].count):
+        if active[groups[j].component]:
+            theta[model.i_c[j]] = _search_shift(model, theta, j, free_amplitude=False)
+            theta = _search_j_scale(model, theta, j)
+    return model.linear_solve(theta, active)
+
+
+def _search_j_scale(model: _Model, theta: np.ndarray, j: int) -> np.ndarray:
+    """Stretch or shrink group j's couplings together (a few per cent) if that fits better.
+
+    The outer lines of a septet with J 0.4 Hz off sit 1.2 Hz away: with 1 Hz lines
+    the gradient cannot see them, a coarse scan can.
+    """
+    if not len(model.i_j[j]):
+        return theta
+    g = model.groups[j]
+    best, best_cost = theta, model.cost(theta)
+    for scale in (0.88, 0.92, 0.96, 1.04, 1.08, 1.12):
+        trial = theta.copy()
+        trial[model.i_j[j]] = np.clip(theta[model.i_j[j]] * scale, np.maximum(0.3, g.j0_hz - J_BOUND_HZ),
+                                      g.j0_hz + J_BOUND_HZ)
+        trial[model.i_c[j]] = _search_shift(model, trial, j, free_amplitude=False, window_ppm=0.01)
+        c = model.cost(trial)
+        if c < best_cost:
+            best, best_cost = trial, c
+    return best
+
+
+def _levenberg_marquardt(fun, jac, theta, lb, ub, *, max_iter: int = 40, tol: float = 1e-8) -> np.ndarray:
+    """Bounded Levenberg-Marquardt on the normal equations.
+
+    The Jacobian is tall and thin (spectrum points x a few dozen parameters), so
+    the n x n normal equations are far cheaper than factorising it. Parameters at
+    a bound whose gradient pushes outward are held for that step (active set);
+    steps are projected onto the bounds.
+    """
+    r = fun(theta)
+    cost = float(r @ r)
+    lam = 1e-3
+    for _ in range(max_iter):
+        J = jac(theta)
+        g = np.einsum("ij,i->j", J, r)
+        H = _gram(J)
+        with np.errstate(invalid="ignore"):
+            at_lo = np.isfinite(lb) & (theta <= lb + 1e-12 * (1 + np.abs(lb))) & (g > 0)
+            at_hi = np.isfinite(ub) & (theta >= ub - 1e-12 * (1 + np.abs(ub))) & (g < 0)
+        free = ~(at_lo | at_hi)
+        d = np.diag(H).copy()
+        d[d <= 0] = 1.0
+        improved = False
+        for _ in range(12):
+            A = H[np.ix_(free, free)] + lam * np.diag(d[free])
+            try:
+                step_free = -np.linalg.solve(A, g[free])
+            except np.linalg.LinAlgError:
+                lam *= 10.0
+                continue
+            step = np.zeros_like(theta)
+            step[free] = step_free
+            trial = np.clip(theta + step, lb, ub)
+            r_t = fun(trial)
+            c_t = float(r_t @ r_t)
+            if c_t < cost:
+                rel = (cost - c_t) / max(cost, 1e-300)
+                theta, r, cost = trial, r_t, c_t
+                lam = max(lam / 3.0, 1e-9)
+                improved = True
+                break
+            lam *= 4.0
+        if not improved or rel < tol:
+            break
+    return theta
+
+
+def _fit_starts(model: _Model, theta0: np.ndarray, lb: np.ndarray, ub: np.ndarray, comps: Sequence[int],
+                sweeps: int, with_oh: bool, w_init: np.ndarray | None = None,
+                rotations: bool = True) -> tuple[np.ndarray, float]:
+    """Staged searches + polish from several starts; the lowest cost wins.
+
+    One start per choice of the candidate placed first (it explains what it can, the
+    next ones the residual), each with big-groups-first and small-groups-first
+    placement (with more than two candidates: small-first for the given order only).
+    ``rotations=False``: the given order only. Candidates not in ``comps`` are held
+    at zero weight.
+    """
+    comps = list(comps)
+    lb, ub = lb.copy(), ub.copy()
+    for k in range(model.K):
+        if k not in comps:
+            lb[model.i_w[k]] = ub[model.i_w[k]] = 0.0
+    n = len(comps)
+    orders = [comps[r:] + comps[:r] for r in range(n)] if (rotations and n <= 4) else [comps]
+    starts = [(o, True) for o in orders] + [(orders[0], False)]
+    if n <= 2:
+        starts += [(o, False) for o in orders[1:]]
+    best = None
+    for comp_order, big in starts:
+        t = _search_phase(model, theta0.copy(), comp_order, sweeps, with_oh, big_first=big, w_init=w_init)
+        t = _levenberg_marquardt(model.residuals, model.jacobian, np.clip(t, lb, ub), lb, ub)
+        c = model.cost(t)
+        if best is None or c < best[1]:
+            best = (t, c)
+    return best
+
+
+def _detection_test(model: _Model, theta: np.ndarray, cost: float, lb: np.ndarray, ub: np.ndarray,
+                    sweeps: int, with_oh: bool) -> tuple[np.ndarray, dict[int, float]]:
+    """Refit without each minor candidate; keep it only if the data need it.
+
+    With free shifts a candidate that is not in the sample still finds noise, line
+    tails, the broad OH line or the misfit of another candidate's multiplet to
+    explain, which biases its fraction upwards. A minor candidate (below
+    ``DETECT_MAX_FRACTION``) counts as detected only if the best fit without it
+    (searched afresh) is worse by more than ``DETECT_DCHI2 +
+    DETECT_DCHI2_PER_GROUP`` x its groups in chi-square (a look-elsewhere allowance
+    for the free shifts). Otherwise the refit is kept, with the candidate's groups at
+    the predicted shifts and J and its weight re-solved there (that gives the
+    "absent" candidate its uncertainty). Returns the solution and, per candidate
+    found not needed, the fraction it had before (an upper limit for the report).
+    """
+    undetected: dict[int, float] = {}
+    theta0 = theta.copy()
+    for k in range(model.K):
+        w = theta[model.i_w]
+        tot = w.sum()
+        if model.K < 2 or tot <= 0 or w[k] / tot >= DETECT_MAX_FRACTION:
+            continue
+        # the others, biggest first, searched afresh
+        others = sorted((q for q in range(model.K) if q != k and q not in undetected), key=lambda q: -w[q])
+        start = theta0.copy()
+        for j, g in enumerate(model.groups):
+            if g.component == k:
+                start[model.i_c[j]] = g.shift0
+                start[model.i_j[j]] = g.j0_hz
+        trial, c0 = _fit_starts(model, start, lb, ub, others, sweeps, with_oh, rotations=len(others) <= 2)
+        n_groups = sum(1 for g in model.groups if g.component == k)
+        if c0 - cost > DETECT_DCHI2 + DETECT_DCHI2_PER_GROUP * n_groups:
+            continue
+        undetected[k] = float(w[k] / tot)
+        active = np.ones(model.K, bool)
+        active[list(undetected)] = False
+        active[k] = True
+        theta = model.linear_solve(trial, active)
+        cost = model.cost(theta)
+    return theta, undetected
+
+
+def _autocorr_time(r: np.ndarray, mask: np.ndarray) -> float:
+    """Integrated autocorrelation of the residuals over the signal points (>= 1).
+
+    Smooth misfit (wrong J, second-order effects) makes neighbouring residuals
+    correlated; the effective number of independent points shrinks by this factor.
+    """
+    if mask.sum() < 20:
+        return 1.0
+    rr = np.where(mask, r, 0.0)
+    rr = rr - rr[mask].mean() * mask
+    v = float(np.sum(rr * rr))
+    if v <= 0:
+        return 1.0
+    tau = 1.0
+    for lag in range(1, 200):
+        rho = float(np.sum(rr[:-lag] * rr[lag:])) / v
+        if rho < 0.05:
+            break
+        tau += 2.0 * rho
+    return tau
+
+
+def signal_regions(fit: SpectrumFit, model: _Model, theta: np.ndarray) -> list[SignalRegion]:
+    """Stretches of the spectrum where one component makes >= PURITY_MIN of the fitted lines.
+
+    For every component, each of its groups defines a window (the multiplet's extent
+    plus 3 line widths on both sides); overlapping windows of the same component merge.
+    Absent components (weight ~0) are judged as if present at the mean weight of the
+    others, so that "nothing there" is a measurement.
+    """
+    x = fit.x
+    f = model.f
+    hw_ppm = fit.width_hz / f / 2.0
+    w = fit.weights
+    w_ref = np.where(w > 0.02 * max(w.max(), 1e-300), w, max(float(w[w > 0].mean()) if (w > 0).any() else 1.0, 1e-300))
+    own_unit = {}
+    unit = theta.copy()
+    for j, g in enumerate(fit.groups):
+        own_unit[j] = model.group_profile(j, unit, x)
+    comp_unit = np.zeros((model.K, len(x)))
+    for j, g in enumerate(fit.groups):
+        comp_unit[g.component] += own_unit[j]
+    oh_line = model.free_total(theta, x)
+    regions: list[SignalRegion] = []
+    h = x[1] - x[0]
+    for k in range(model.K):
+        wins = []
+        for j, g in enumerate(fit.groups):
+            if g.component != k:
+                continue
+            c = fit.shifts_ppm[j]
+            off = model.offsets(j, theta)
+            wins.append([c + off.min() - 6 * hw_ppm, c + off.max() + 6 * hw_ppm, [j]])
+        wins.sort()
+        merged: list[list] = []
+        for a, b, js in wins:
+            if merged and a <= merged[-1][1]:
+                merged[-1][1] = max(merged[-1][1], b)
+                merged[-1][2] += js
+            else:
+                merged.append([a, b, js])
+        for a, b, js in merged:
+            sel = (x >= a) & (x <= b)
+            if sel.sum() < 3:
+                continue
+            own = w_ref[k] * comp_unit[k][sel].sum()
+            others = sum(w[q] * comp_unit[q][sel].sum() for q in range(model.K) if q != k) + oh_line[sel].sum()
+            purity = own / (own + others) if own + others > 0 else 0.0
+            masked_share = 1.0 - fit.used[sel].mean()
+            protons = sum(fit.groups[j].count for j in js)
+            reg = SignalRegion(k, tuple(js), float(a), float(b), protons, float(purity))
+            if masked_share < 0.02:
+                # measured integral over the window, baseline removed, corrected for
+                # the Lorentzian tails outside the window (using the fitted shape)
+                data = float(np.sum(fit.y[sel] - fit.baseline_curve[sel]) * h)
+                # unit-amount area of this component's groups inside the window
+                inside = float(sum(own_unit[j][sel].sum() * h for j in js))
+                # the other components' (small) share in the window is subtracted
+                other_area = float(sum(w[q] * comp_unit[q][sel].sum() for q in range(model.K) if q != k) * h
+                                   + oh_line[sel].sum() * h)
+                reg.integral = data
+                reg.amount = (data - other_area) / inside
+                reg.amount_sd = float(fit.noise_sd * np.sqrt(sel.sum()) * h / inside)
+            regions.append(reg)
+    return regions

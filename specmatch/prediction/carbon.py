@@ -1,16 +1,191 @@
-"""13C prediction (placeholder until the increment tables land)."""
+"""13C shifts from additive increment tables.
+
+Every carbon's shift is the sum of the increments that
+:func:`specmatch.prediction.c13_environment.carbon_environments` names for it
+(Grant-Paul alkane terms, substituent, ring and interaction corrections for sp3
+carbons; 123.3 ppm plus alpha/beta/gamma increments for alkene carbons; 128.5 ppm
+plus ipso/ortho/meta/para increments for benzene carbons; class values and
+substituent increments for alkyne, nitrile and carbonyl carbons).
+
+The numbers live in ``tables/c13_increments.csv`` (one row per increment, with its
+handbook value, the number of carbons it was refined on and its source) and
+``tables/c13_sigma.csv`` (expected error per environment class and coverage). Both
+are read once, at import.
+"""
 
 from __future__ import annotations
 
+import csv
+import math
+from pathlib import Path
+
+from rdkit.Chem import BondType
+
 from ..structures import Structure
+from .c13_environment import carbon_environments, is_correction, nearest_term
 from .model import CarbonShift
 
-TABLES_VERSION = "placeholder"
+_DOUBLE = BondType.DOUBLE
+_TABLES = Path(__file__).with_name("tables")
+TABLES_VERSION = "c13-increments-2026-12-01"
+
+#: Sigma added (in quadrature) for every term the tables have no row for, ppm.
+MISSING_TERM_SIGMA_PPM = 8.0
+#: Sigma added for every interaction correction never seen in the fitting data, ppm.
+UNSEEN_CORRECTION_SIGMA_PPM = 2.0
+#: Sigma of a carbon whose class has no table at all (nearest class used), ppm.
+NO_CLASS_SIGMA_PPM = 20.0
+#: Coverage buckets: a carbon's rarest term seen on >= 100 / >= 10 / fewer carbons.
+WELL_COVERED, THIN = 100, 10
+
+
+def _read_tables() -> tuple[dict[str, float], dict[str, int], dict[str, float]]:
+    value: dict[str, float] = {}
+    support: dict[str, int] = {}
+    with open(_TABLES / "c13_increments.csv", newline="", encoding="utf-8") as fh:
+        rows = csv.reader(fh)
+        head = next(rows)
+        k_term, k_val, k_n = head.index("term"), head.index("shift_ppm"), head.index("n_carbons")
+        for row in rows:
+            value[row[k_term]] = float(row[k_val])
+            support[row[k_term]] = int(row[k_n])
+    sigma: dict[str, float] = {}
+    with open(_TABLES / "c13_sigma.csv", newline="", encoding="utf-8") as fh:
+        for row in csv.DictReader(fh):
+            sigma[row["class"]] = float(row["sigma_ppm"])
+    return value, support, sigma
+
+
+_VALUE, _SUPPORT, _SIGMA = _read_tables()
+_DIASTEREOTOPIC_SPLIT_PPM = _VALUE.get("split:diastereotopic", 0.0)
+
+
+def _coverage(min_support: int) -> str:
+    return "well" if min_support >= WELL_COVERED else ("thin" if min_support >= THIN else "rare")
+
+
+def _class_sigma(kind: str, hydrogens: int, coverage: str) -> float:
+    for key in (f"{kind}:H{hydrogens}:{coverage}", f"{kind}:*:{coverage}", f"*:*:{coverage}"):
+        if key in _SIGMA:
+            return _SIGMA[key]
+    return NO_CLASS_SIGMA_PPM
+
+
+def shift_of_terms(terms: tuple[str, ...]) -> tuple[float, int, list[str], int]:
+    """Sum of the increments.
+
+    Returns
+    -------
+    shift_ppm, min_support, missing, n_unseen_corrections
+        The smallest number of fitting carbons behind any main term; main terms
+        without a row (after trying the nearest atom type); the number of
+        interaction corrections never seen (counted as 0, widening sigma).
+    """
+    total = 0.0
+    min_support = 1 << 30
+    missing = []
+    unseen = 0
+    for t in terms:
+        v = _VALUE.get(t)
+        if v is None:
+            if is_correction(t):
+                unseen += 1
+                continue
+            alt = nearest_term(t)
+            v = _VALUE.get(alt) if alt else None
+            missing.append(t)
+            min_support = 0
+            if v is not None:
+                total += v
+            continue
+        total += v
+        if not is_correction(t):
+            s = _SUPPORT[t]
+            if s < min_support:
+                min_support = s
+    return total, min_support, missing, unseen
+
+
+def _split_diastereotopic(structure: Structure, atoms: tuple[int, ...]) -> list[tuple[int, ...]]:
+    """Split a set of equivalent carbons into the two halves of diastereotopic pairs."""
+    first, second = [], []
+    for a, b in structure.diastereotopic_pairs:
+        if a in atoms and b in atoms and a not in second and b not in first:
+            first.append(a)
+            second.append(b)
+    if not first:
+        return [atoms]
+    rest = [x for x in atoms if x not in first and x not in second]
+    return [tuple(sorted(first + rest)), tuple(sorted(second))]
+
+
+def _on_alkene(mol, atom: int) -> bool:
+    """True if the atom is bonded to a non-aromatic carbon that carries a C=C."""
+    for nb in mol.GetAtomWithIdx(atom).GetNeighbors():
+        if nb.GetSymbol() == "C" and not nb.GetIsAromatic():
+            for b in nb.GetBonds():
+                if b.GetBondType() == _DOUBLE and b.GetOtherAtom(nb).GetSymbol() == "C":
+                    return True
+    return False
 
 
 def predict_carbons(structure: Structure) -> tuple[list[CarbonShift], list[str]]:
-    out = []
-    for atoms in structure.equivalence_sets("C"):
-        a = structure.mol.GetAtomWithIdx(atoms[0])
-        out.append(CarbonShift(atoms, 30.0, 20.0, a.GetTotalNumHs(), "placeholder", True))
-    return out, ["placeholder 13C predictor"]
+    """One :class:`CarbonShift` per set of equivalent carbons.
+
+    Diastereotopic twin groups (the two methyls of an isopropyl next to a
+    stereocentre) come out as two entries, split by a small fitted amount, since
+    real spectra usually show two lines.
+
+    Returns
+    -------
+    carbons, warnings
+        The predicted shifts, and warning texts for environments the tables do
+        not cover (those carbons get the nearest class and a large sigma).
+    """
+    mol = structure.mol
+    sets = structure.equivalence_sets("C")
+    wanted = []
+    split_sets = []
+    for atoms in sets:
+        wanted.append(atoms[0])
+        if len(atoms) > 1 and _on_alkene(mol, atoms[0]):
+            # twin groups on one alkene carbon are cis and trans to the far side:
+            # separate lines in real spectra, so perceive each member
+            wanted.extend(atoms[1:])
+            split_sets.append(atoms)
+    envs = {e.atom: e for e in carbon_environments(mol, sorted(wanted))}
+    if split_sets:
+        sets = [s for s in sets if s not in split_sets]
+        for atoms in split_sets:
+            by_terms: dict[tuple[str, ...], list[int]] = {}
+            for a in atoms:
+                by_terms.setdefault(tuple(sorted(envs[a].terms)), []).append(a)
+            sets.extend(tuple(v) for v in by_terms.values())
+        sets.sort()
+    out: list[CarbonShift] = []
+    warnings: list[str] = []
+    for atoms in sets:
+        env = envs[atoms[0]]
+        shift, min_support, missing, unseen = shift_of_terms(env.terms)
+        fallback = bool(missing) or env.kind == "other"
+        if env.kind == "other":
+            sigma = NO_CLASS_SIGMA_PPM
+            warnings.append(f"13C: no increment table for the {env.atom_type} carbon at atom {atoms[0]}; "
+                            f"a rough class value is used (sigma {sigma:.0f} ppm)")
+        else:
+            sigma = _class_sigma(env.kind, env.hydrogens, _coverage(min_support))
+            if unseen:
+                sigma = math.sqrt(sigma ** 2 + unseen * UNSEEN_CORRECTION_SIGMA_PPM ** 2)
+            if missing:
+                sigma = math.sqrt(sigma ** 2 + len(missing) * MISSING_TERM_SIGMA_PPM ** 2)
+                warnings.append(f"13C: environment of atom {atoms[0]} not covered by the tables "
+                                f"({', '.join(sorted(set(missing)))}); nearest class used, sigma {sigma:.0f} ppm")
+        parts = _split_diastereotopic(structure, atoms) if structure.diastereotopic_pairs else [atoms]
+        if len(parts) == 2 and _DIASTEREOTOPIC_SPLIT_PPM:
+            half = _DIASTEREOTOPIC_SPLIT_PPM / 2
+            for sub, sign in zip(parts, (1.0, -1.0)):
+                out.append(CarbonShift(sub, shift + sign * half, sigma, env.hydrogens,
+                                       env.label + ", diastereotopic", fallback))
+        else:
+            out.append(CarbonShift(atoms, shift, sigma, env.hydrogens, env.label, fallback))
+    return out, warnings

@@ -144,12 +144,20 @@ def cmd_identify(args: argparse.Namespace) -> int:
         from .reports.html import write_report
 
         write_report(result, args.report)
+    saved_id = None
+    if args.save:
+        from .store import save_run
+
+        saved_id = save_run(result, {"c13": args.c13, "h1": args.h1, "dept135": args.dept135},
+                            store=args.store, sample_id=args.sample_id, user=args.user)
     if args.json:
         _print_json(result.to_dict())
     else:
         print(result_text(result))
         if args.report:
             print(f"\nreport written to {args.report}")
+        if saved_id:
+            print(f"saved as analysis {saved_id} (see 'specmatch history show {saved_id[:12]}')")
     return 0
 
 
@@ -240,6 +248,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--mixture", action="store_true", help="also estimate the product ratio from 1H")
     p.add_argument("--no-prior", action="store_true", help="verdict from the spectra alone")
     p.add_argument("--report", metavar="OUT.html", help="write a self-contained HTML report")
+    p.add_argument("--save", action="store_true", help="save the analysis (inputs, files, verdict) in the store")
+    p.add_argument("--store", metavar="URL", help="with --save: database URL (default $SPECMATCH_STORE)")
+    p.add_argument("--sample-id", metavar="ID", help="with --save: the sample's id")
+    p.add_argument("--user", metavar="NAME", help="with --save: who ran it (default: the OS user)")
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_identify)
 

@@ -144,3 +144,10 @@ def test_any_small_chain_parses_or_fails_cleanly(parts):
         return
     assert len(s.symmetry_classes) == s.mol.GetNumAtoms()
     assert all(0 <= i < s.mol.GetNumAtoms() for i in s.diastereotopic_ch2)
+
+
+@pytest.mark.parametrize("smiles", ["O", "Br", "C", "[2H]C", "ClCl"])
+def test_one_or_two_atom_molecules(smiles):
+    # molecules without an sp3 centre carrying neighbours must perceive without error
+    s = parse_structure(smiles)
+    assert s.diastereotopic_ch2 == frozenset() and s.diastereotopic_pairs == ()

@@ -216,7 +216,7 @@ def _may_be_prochiral(atom: Chem.Atom, classes: tuple[int, ...]) -> bool:
     counts: dict[int, int] = {}
     for nb in atom.GetNeighbors():
         counts[classes[nb.GetIdx()]] = counts.get(classes[nb.GetIdx()], 0) + 1
-    return sorted(counts.values(), reverse=True)[0] == 2
+    return max(counts.values(), default=0) == 2
 
 
 def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: list[tuple[str, int]]

@@ -1,0 +1,87 @@
+#!/usr/bin/env python
+"""Identification figures on the shared development tasks, measured with specbench.
+
+Builds the tasks with ../shared/tools/specbench.py (isomer sets from the
+nmrshiftdb2 development part: nmrshiftdb2, Kuhn & Schlörer, Magn. Reson. Chem.
+2015, 53, 582), runs ``specmatch rank --batch`` on each set through specbench and
+prints its figures: top-1 accuracy, mean probability on the true structure,
+calibration error of the top-1 probability (10 bins) and throughput (whole
+command, start-up included). Then the held-back half (by the hash used in
+fit_error_model.py) is scored in-process, since the error model was fitted on
+the other half.
+
+Targets (issue 6): top-1 regio >= 0.97, formula >= 0.90, regio_wide >= 0.85;
+calibration error <= 0.08 on each set; >= 50 tasks/s on regio_wide.
+
+usage: python benchmarks/bench_rank.py [--tasks DIR] [--sets regio,formula,...] [--limit N]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+import tempfile
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+SHARED = ROOT.parent / "shared"
+TARGETS = {"regio": 0.97, "formula": 0.90, "regio_wide": 0.85, "regio_h1": None}
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    ap.add_argument("--tasks", default=os.path.join(tempfile.gettempdir(), "specmatch_bench_tasks"))
+    ap.add_argument("--dev", default=str(SHARED / "reference" / "nmrshiftdb2_dev.jsonl"))
+    ap.add_argument("--sets", default="regio,formula,regio_wide,regio_h1")
+    ap.add_argument("--limit", type=int, default=0)
+    a = ap.parse_args()
+    bench = SHARED / "tools" / "specbench.py"
+    tdir = Path(a.tasks)
+    if not (tdir / "regio_wide.jsonl").exists():
+        subprocess.run([sys.executable, str(bench), "tasks", a.dev, str(tdir)], check=True)
+    env = dict(os.environ)
+    exe = Path(sys.executable).with_name("specmatch")
+    if exe.exists():
+        env.setdefault("SPECMATCH", str(exe))
+    print(f"inputs: {a.dev}; tasks in {tdir}; specmatch = {env.get('SPECMATCH', 'python -m specmatch')}")
+    from specmatch.identification.errormodel import load_error_model
+
+    from specmatch.identification.errormodel import tables_digest
+
+    m = load_error_model()
+    same = m.tables_sha256 == tables_digest()
+    print(f"error model {m.version} ({m.fitted_on}); tables {m.tables_version}; "
+          f"fitted with the installed tables: {'yes' if same else 'NO - refit with benchmarks/fit_error_model.py'}")
+    for name in a.sets.split(","):
+        path = tdir / f"{name}.jsonl"
+        cmd = [sys.executable, str(bench), "rank", str(path)] + (["--limit", str(a.limit)] if a.limit else [])
+        p = subprocess.run(cmd, capture_output=True, text=True, env=env)
+        if p.returncode:
+            print(p.stderr[-2000:])
+            continue
+        out = p.stdout.strip().splitlines()
+        print(f"== {name} (target top-1 {TARGETS.get(name)})")
+        for line in out:
+            print("   " + line)
+    # held-back half, in-process
+    sys.path.insert(0, str(ROOT / "benchmarks"))
+    from fit_error_model import Scorer, held_back
+
+    print("held-back half (not used by the fit), in-process:")
+    for name in a.sets.split(","):
+        tasks = [json.loads(l) for l in open(tdir / f"{name}.jsonl")]
+        from rdkit import Chem
+
+        for t in tasks:
+            t["truth"] = Chem.MolToSmiles(Chem.MolFromSmiles(t["truth"]), isomericSmiles=False)
+        sc = Scorer([t for t in tasks if held_back(t["id"])])
+        f = Scorer.figures(sc.raw(m), m)
+        print(f"   {name:10s} n={f['n']:4d} top1={f['top1']:.3f} ece={f['ece']:.3f} "
+              f"mean log p(true)={f['mean_log_p_true']:.3f}")
+
+
+if __name__ == "__main__":
+    main()

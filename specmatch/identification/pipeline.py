@@ -1,0 +1,268 @@
+"""``identify``: the whole job from a reaction and spectrum files to a verdict.
+
+Stages: enumerate the products (reactions), read the spectra (spectra), predict
+each candidate (prediction, cached), rank (:func:`.ranking.rank`), and, on
+request, estimate the product ratio (the mixture module's hook).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+from importlib import import_module
+from typing import Any, Sequence
+
+from .. import __version__
+from ..errors import SpecmatchError
+from .errormodel import ErrorModel, load_error_model
+from .ranking import rank
+from .result import Result
+
+__all__ = ["identify", "merge_dept", "sha256_file"]
+
+#: a 13C line and a DEPT-135 line closer than this are the same carbon
+DEPT_MATCH_PPM = 0.25
+
+
+def sha256_file(path: str | os.PathLike) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def _is_path(x: Any) -> bool:
+    return isinstance(x, (str, os.PathLike))
+
+
+def _read(x: Any, nucleus: str, solvent: str | None, dept: bool = False) -> tuple[Any, Any]:
+    """(Spectrum or None, PeakList or data) for a path; data passes through."""
+    if x is None or not _is_path(x):
+        return None, x
+    if not os.path.exists(x):
+        raise SpecmatchError(f"cannot read '{x}': no such file")
+    from ..spectra import PeakList, process_spectrum, read_spectrum
+
+    got = read_spectrum(os.fspath(x), nucleus=nucleus)
+    if isinstance(got, PeakList):
+        from ..spectra import peaks_from_file
+
+        return None, peaks_from_file(os.fspath(x), nucleus=nucleus, solvent=solvent, dept135=dept)
+    return got, process_spectrum(got, solvent=solvent, dept135=dept)
+
+
+#: at most this many candidates enter the mixture fit
+MIXTURE_MAX_COMPONENTS = 6
+
+
+def _mixture_candidates(ranking) -> list[str]:
+    """Candidates worth a place in the mixture fit: anything the spectra or the
+    mechanism do not rule out (p >= 0.001 or an expected major/minor product)."""
+    keep = [c.smiles for c in ranking.candidates
+            if c.probability >= 1e-3 or c.role in ("major", "minor")]
+    for c in ranking.candidates:
+        if len(keep) >= 2:
+            break
+        if c.smiles not in keep:
+            keep.append(c.smiles)
+    return keep[:MIXTURE_MAX_COMPONENTS]
+
+
+def _lines(x: Any) -> list[Any]:
+    if x is None:
+        return []
+    if hasattr(x, "compound_peaks"):
+        return list(x.compound_peaks())
+    return list(x)
+
+
+def merge_dept(c13: Any, dept: Any, tol_ppm: float = DEPT_MATCH_PPM) -> list[dict[str, Any]]:
+    """13C lines with what DEPT-135 says about them.
+
+    A DEPT-135 line within `tol_ppm` gives the phase (+1: CH or CH3, -1: CH2); a
+    13C line without a DEPT counterpart is a quaternary carbon (hydrogens = 0).
+    Without a 13C list, the DEPT lines themselves are used (quaternary carbons are
+    then simply absent, which the scoring treats leniently).
+    """
+    d_lines = []
+    for p in _lines(dept):
+        sign = getattr(p, "sign", None) if not isinstance(p, dict) else p.get("sign")
+        if sign is None:
+            inten = getattr(p, "intensity", None) if not isinstance(p, dict) else p.get("intensity")
+            sign = 0 if inten is None else (1 if inten > 0 else -1)
+        shift = p["shift"] if isinstance(p, dict) else p.shift
+        d_lines.append((float(shift), int(sign)))
+    c_lines = _lines(c13)
+    if not c_lines:
+        return [{"shift": s, "sign": g, "hydrogens": 2 if g < 0 else None} for s, g in d_lines]
+    out = []
+    for p in c_lines:
+        shift = float(p["shift"] if isinstance(p, dict) else getattr(p, "shift", p))
+        known_h = p.get("hydrogens") if isinstance(p, dict) else getattr(p, "hydrogens", None)
+        inten = p.get("intensity") if isinstance(p, dict) else getattr(p, "intensity", None)
+        near = sorted((abs(s - shift), g) for s, g in d_lines if abs(s - shift) <= tol_ppm)
+        if known_h is not None:
+            row = {"shift": shift, "hydrogens": known_h}
+        elif not near:
+            row = {"shift": shift, "hydrogens": 0}
+        else:
+            g = near[0][1]
+            row = {"shift": shift, "sign": g, "hydrogens": 2 if g < 0 else None}
+        if inten is not None:
+            row["intensity"] = inten
+        out.append(row)
+    return out
+
+
+def _h1_peaklist(h1: Any):
+    """A 1H PeakList for the mixture module, from a PeakList or a list of multiplet dicts."""
+    from ..spectra import Multiplet, PeakList
+
+    if h1 is None or isinstance(h1, PeakList):
+        return h1
+    mults = []
+    for m in h1:
+        if isinstance(m, Multiplet):
+            mults.append(m)
+            continue
+        d = m if isinstance(m, dict) else {"shift": m}
+        sh = float(d["shift"])
+        mults.append(Multiplet(shift=sh, range=(sh + 0.02, sh - 0.02), integral=d.get("integral"),
+                               multiplicity=d.get("multiplicity") or "m", j_hz=tuple(d.get("j_hz") or ())))
+    return PeakList(nucleus="1H", peaks=(), multiplets=tuple(mults), source="peak list given to identify")
+
+
+def _candidate_smiles(text: str) -> str:
+    from ..structures import parse_structure
+
+    return parse_structure(text).canonical_smiles
+
+
+def identify(substrate: str | None = None, reagent: str | None = None, *, alcohol: str | None = None,
+             c13: Any = None, h1: Any = None, dept135: Any = None, solvent: str | None = None,
+             candidates: Sequence[str] = (), mixture: bool = False, use_prior: bool = True,
+             max_shifts: int = 2, model: ErrorModel | None = None) -> Result:
+    """Which isomer was made? Enumerate, read, predict, rank.
+
+    Parameters
+    ----------
+    substrate, reagent : str
+        The alkene (SMILES) and the reagent as a chemist writes it ("HBr",
+        "H2O/H2SO4", "MeOH/H+"). Both may be omitted if `candidates` are given.
+    alcohol : str, optional
+        SMILES of the alcohol for acid-catalysed ether formation.
+    c13, h1, dept135 : path or data, optional
+        Spectrum files (JCAMP-DX, instrument folder, CSV peak list), or already
+        read PeakLists, or plain lists (13C ppm values; 1H dicts with shift and
+        integral).
+    solvent : str, optional
+        Solvent name, used to flag its lines.
+    candidates : sequence of str
+        The chemist's own candidate SMILES, added to the enumerated ones.
+    mixture : bool
+        Also estimate the product ratio from the 1H spectrum (hook: needs
+        ``specmatch.identification.mixture``).
+    use_prior : bool
+        Base the verdict on the with-prior probability (default) or the spectra alone.
+
+    Returns
+    -------
+    Result
+    """
+    model = model or load_error_model()
+    files: dict[str, dict[str, str]] = {}
+    for role, x in (("c13", c13), ("h1", h1), ("dept135", dept135)):
+        if _is_path(x):
+            if not os.path.exists(x):
+                raise SpecmatchError(f"cannot read '{x}' ({role}): no such file")
+            files[role] = {"path": os.fspath(x), "name": os.path.basename(os.fspath(x)),
+                           "sha256": sha256_file(x)}
+    enumeration = None
+    safety: tuple[str, ...] = ()
+    cautions: list[str] = []
+    items: list[Any] = []
+    if substrate is not None or reagent is not None:
+        if not substrate or not reagent:
+            raise SpecmatchError("give both --substrate and --reagent (or only --candidates)")
+        reactions = import_module("specmatch.reactions")
+        enumeration = reactions.enumerate_products(substrate, reagent, alcohol=alcohol, max_shifts=max_shifts)
+        safety = tuple(getattr(enumeration, "safety", ()) or getattr(enumeration.reagent, "safety", ()))
+        cautions += list(enumeration.warnings)
+        items = list(enumeration.candidates)
+    seen = {_candidate_smiles(c.smiles) for c in items}
+    for smi in candidates:
+        key = _candidate_smiles(smi)
+        if key in seen:
+            continue
+        seen.add(key)
+        items.append({"smiles": smi, "label": "your candidate", "pathway": "given by the user",
+                      "role": "user", "prior": None})
+    if not items:
+        raise SpecmatchError("no candidates: give a substrate and reagent, or candidate SMILES")
+
+    c13_spec, c13_pl = _read(c13, "13C", solvent)
+    h1_spec, h1_pl = _read(h1, "1H", solvent)
+    _, dept_pl = _read(dept135, "13C", solvent, dept=True)
+    for pl in (c13_pl, h1_pl, dept_pl):
+        cautions += list(getattr(pl, "warnings", ()) or ())
+    if h1_pl is not None and getattr(h1_pl, "nucleus", "1H") != "1H":
+        raise SpecmatchError(f"the --h1 file holds a {h1_pl.nucleus} spectrum; give it as --c13")
+    if c13_pl is not None and getattr(c13_pl, "nucleus", "13C") != "13C":
+        raise SpecmatchError(f"the --c13 file holds a {c13_pl.nucleus} spectrum; give it as --h1")
+    c13_lines: Any = c13_pl
+    if dept_pl is not None:
+        c13_lines = merge_dept(c13_pl, dept_pl)
+        cautions.append("DEPT-135: 13C lines without a DEPT counterpart are taken as quaternary carbons")
+    ranking = rank(items, c13=c13_lines, h1=h1_pl, use_prior=use_prior, model=model)
+    from .errormodel import tables_digest
+
+    if model.tables_sha256 and model.tables_sha256 != tables_digest():
+        cautions.append("the error model was fitted with other prediction tables than the ones "
+                        "installed: the probabilities may be less well calibrated (rerun "
+                        "benchmarks/fit_error_model.py)")
+
+    mix = None
+    if mixture:
+        # HOOK: the product-ratio estimate lives in specmatch.identification.mixture
+        # (written separately); it is called when that module is installed.
+        try:
+            mixmod = import_module("specmatch.identification.mixture")
+        except ImportError:
+            mixmod = None
+            cautions.append("the mixture estimate is not available in this installation")
+        if mixmod is not None:
+            if h1_pl is None:
+                cautions.append("the mixture estimate needs a 1H spectrum (--h1)")
+            elif len(ranking.candidates) < 2:
+                cautions.append("the mixture estimate needs at least two candidates")
+            else:
+                names = _mixture_candidates(ranking)
+                mix = mixmod.estimate_mixture(
+                    names, spectrum=h1_spec, peaklist=_h1_peaklist(h1_pl), solvent=solvent,
+                    names=[next((c.label or c.smiles) for c in ranking.candidates if c.smiles == n)
+                           for n in names])
+
+    pred_versions = sorted({c.tables_version for c in ranking.candidates if c.tables_version})
+    import numpy, rdkit, scipy
+
+    versions = {
+        "specmatch": __version__,
+        "prediction_tables": "; ".join(pred_versions),
+        "error_model": model.version,
+        "error_model_fitted_on": model.fitted_on,
+        "prediction_tables_sha256": tables_digest(),
+        "reaction_model": getattr(enumeration, "model", "") if enumeration is not None else "",
+        "rdkit": rdkit.__version__, "numpy": numpy.__version__, "scipy": scipy.__version__,
+    }
+    inputs = {
+        "substrate": substrate, "reagent": reagent,
+        "reagent_name": enumeration.reagent.name if enumeration is not None else None,
+        "alcohol": alcohol, "solvent": solvent,
+        "user_candidates": list(candidates),
+        "options": {"mixture": mixture, "use_prior": use_prior, "max_shifts": max_shifts},
+        "files": files,
+    }
+    return Result(ranking=ranking, inputs=inputs, versions=versions, safety_notes=safety,
+                  cautions=tuple(dict.fromkeys(cautions)), mixture=mix, c13=c13_pl, h1=h1_pl,
+                  dept135=dept_pl, enumeration=enumeration, c13_spectrum=c13_spec, h1_spectrum=h1_spec)

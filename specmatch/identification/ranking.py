@@ -1,0 +1,478 @@
+"""Rank candidates: DP4-style probabilities, the verdict and the discriminating signals.
+
+For candidate i with log-likelihoods L_C(i) and L_H(i) (see :mod:`.scoring`), the
+spectra-only probability is the softmax of ``L_C/T_C + L_H/T_H`` over the candidate
+set (uniform prior, as in DP4, Smith & Goodman, J. Am. Chem. Soc. 2010, 132,
+12946); the with-prior probability multiplies in the mechanism prior from the
+enumeration stage. T_C and T_H are calibration temperatures fitted on the
+development tasks (``data/error_model.toml``).
+
+Verdict words and their thresholds (on the probability the verdict uses, p1 for
+the top candidate, p2 for the runner-up):
+
+=====================  ==========================================
+"decisive"             p1 >= 0.95
+"likely"               0.80 <= p1 < 0.95
+"tentative"            p1 < 0.80 and p1 >= 3 * p2 (odds 3:1 or better)
+"cannot tell apart"    otherwise (odds below 3:1 between the top two)
+=====================  ==========================================
+
+The thresholds are conventions of this tool (the probabilities are calibrated,
+so "likely" means right about 8 to 9 times in 10 on the development tasks).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field, replace
+from typing import Any, Mapping, Sequence
+
+import numpy as np
+
+from ..errors import SpecmatchError
+from .errormodel import ErrorModel, load_error_model
+from .scoring import (
+    ObservedC13, ObservedH1, PreparedCandidate, SignalRow, c13_table, h1_table,
+    observed_c13, observed_h1, prepare, score_c13, score_h1,
+)
+
+__all__ = [
+    "CandidateScore", "DiscriminatingSignal", "Ranking", "Verdict",
+    "THRESHOLDS", "rank", "log_likelihoods", "softmax",
+]
+
+#: verdict thresholds (see the module docstring)
+THRESHOLDS = {"decisive": 0.95, "likely": 0.80, "tentative_odds": 3.0}
+
+#: a top candidate whose own fit is this poor gets a "none may fit" caution
+POOR_FIT_SIGMA = 4.0
+
+
+@dataclass(frozen=True)
+class CandidateScore:
+    """One candidate's evidence and probabilities."""
+
+    smiles: str
+    canonical_smiles: str
+    probability: float
+    probability_spectra: float
+    probability_with_prior: float | None
+    log_likelihood_c13: float
+    log_likelihood_h1: float
+    score: float  # tempered, combined log-likelihood
+    prior: float | None = None
+    label: str = ""
+    pathway: str = ""
+    role: str = ""
+    c13_table: tuple[SignalRow, ...] = ()
+    h1_table: tuple[SignalRow, ...] = ()
+    warnings: tuple[str, ...] = ()
+    tables_version: str = ""
+
+    @property
+    def unexplained(self) -> int:
+        return sum(r.status == "unexplained" for r in self.c13_table + self.h1_table)
+
+    @property
+    def worst_deviation_sigma(self) -> float:
+        d = [abs(r.deviation_sigma) for r in self.c13_table + self.h1_table if r.deviation_sigma is not None]
+        return max(d) if d else 0.0
+
+    def to_dict(self, tables: bool = True) -> dict[str, Any]:
+        d: dict[str, Any] = {
+            "smiles": self.smiles, "canonical_smiles": self.canonical_smiles,
+            "probability": round(self.probability, 6),
+            "probability_spectra": round(self.probability_spectra, 6),
+            "probability_with_prior": None if self.probability_with_prior is None
+            else round(self.probability_with_prior, 6),
+            "prior": self.prior, "label": self.label, "pathway": self.pathway, "role": self.role,
+            "log_likelihood_c13": round(self.log_likelihood_c13, 4),
+            "log_likelihood_h1": round(self.log_likelihood_h1, 4),
+            "score": round(self.score, 4),
+        }
+        if tables:
+            d["c13_table"] = [r.to_dict() for r in self.c13_table]
+            d["h1_table"] = [r.to_dict() for r in self.h1_table]
+            d["warnings"] = list(self.warnings)
+        return d
+
+
+@dataclass(frozen=True)
+class DiscriminatingSignal:
+    """An observed signal that weighs between the top two candidates."""
+
+    nucleus: str
+    observed_ppm: float | None
+    top_predicted_ppm: float | None
+    top_deviation_sigma: float | None
+    second_predicted_ppm: float | None
+    second_deviation_sigma: float | None
+    weight: float  # tempered log-likelihood difference, nats, > 0 favours the top candidate
+    text: str
+
+    def to_dict(self) -> dict[str, Any]:
+        r = lambda x, n: None if x is None else round(float(x), n)
+        return {"nucleus": self.nucleus, "observed_ppm": r(self.observed_ppm, 3),
+                "top_predicted_ppm": r(self.top_predicted_ppm, 2),
+                "top_deviation_sigma": r(self.top_deviation_sigma, 2),
+                "second_predicted_ppm": r(self.second_predicted_ppm, 2),
+                "second_deviation_sigma": r(self.second_deviation_sigma, 2),
+                "weight": round(self.weight, 3), "text": self.text}
+
+
+@dataclass(frozen=True)
+class Verdict:
+    """The verdict in words and what it rests on."""
+
+    word: str
+    text: str
+    basis: str  # "spectra only" or "spectra and mechanism prior"
+    top: str | None
+    runner_up: str | None
+    p_top: float
+    p_second: float
+    advice: str = ""
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"word": self.word, "text": self.text, "basis": self.basis, "top": self.top,
+                "runner_up": self.runner_up, "p_top": round(self.p_top, 6),
+                "p_second": round(self.p_second, 6), "advice": self.advice,
+                "thresholds": dict(THRESHOLDS)}
+
+
+@dataclass(frozen=True)
+class Ranking:
+    """All candidates ranked against the observed spectra."""
+
+    candidates: tuple[CandidateScore, ...]
+    verdict: Verdict
+    discriminating: tuple[DiscriminatingSignal, ...]
+    nuclei: tuple[str, ...]
+    has_dept: bool
+    error_model_version: str
+    cautions: tuple[str, ...] = ()
+    extra: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
+
+    @property
+    def best(self) -> CandidateScore:
+        return self.candidates[0]
+
+    def to_dict(self, tables: bool = True) -> dict[str, Any]:
+        return {
+            "nuclei": list(self.nuclei), "dept": self.has_dept,
+            "verdict": self.verdict.to_dict(),
+            "candidates": [c.to_dict(tables) for c in self.candidates],
+            "discriminating_signals": [d.to_dict() for d in self.discriminating],
+            "cautions": list(self.cautions),
+            "error_model": self.error_model_version,
+        }
+
+    def to_frame(self):
+        """The candidate table as a pandas DataFrame (one row per candidate)."""
+        import pandas as pd
+
+        rows = []
+        for i, c in enumerate(self.candidates, 1):
+            rows.append({
+                "rank": i, "smiles": c.smiles, "label": c.label, "pathway": c.pathway,
+                "prior": c.prior, "probability": c.probability,
+                "probability_spectra": c.probability_spectra,
+                "probability_with_prior": c.probability_with_prior,
+                "log_likelihood_c13": c.log_likelihood_c13, "log_likelihood_h1": c.log_likelihood_h1,
+                "unexplained_signals": c.unexplained,
+                "worst_deviation_sigma": round(c.worst_deviation_sigma, 2),
+            })
+        return pd.DataFrame(rows).set_index("rank")
+
+
+# ------------------------------------------------------------------ fast numbers
+def softmax(x: np.ndarray) -> np.ndarray:
+    x = np.asarray(x, float)
+    e = np.exp(x - x.max())
+    return e / e.sum()
+
+
+def log_likelihoods(prepared: Sequence[PreparedCandidate], c13: ObservedC13, h1: ObservedH1,
+                    model: ErrorModel) -> tuple[np.ndarray, np.ndarray]:
+    """Raw 13C and 1H log-likelihoods per candidate (nats)."""
+    lc = np.array([score_c13(p, c13, model.c13) for p in prepared]) if c13.n else np.zeros(len(prepared))
+    lh = np.array([score_h1(p, h1, model.h1) for p in prepared]) if h1.n else np.zeros(len(prepared))
+    return lc, lh
+
+
+def combined_score(lc: np.ndarray, lh: np.ndarray, model: ErrorModel) -> np.ndarray:
+    return lc / model.c13.temperature + lh / model.h1.temperature
+
+
+# --------------------------------------------------------------------- rank
+def _candidate_fields(item: Any) -> tuple[str, dict[str, Any]]:
+    if isinstance(item, str):
+        return item, {}
+    if isinstance(item, Mapping):
+        if not isinstance(item.get("smiles"), str):
+            raise SpecmatchError("a candidate given as a dict needs a 'smiles' string")
+        f = {k: item.get(k) for k in ("label", "pathway", "role", "prior")}
+    else:
+        f = {k: getattr(item, k, None) for k in ("label", "pathway", "role", "prior")}
+        item = {"smiles": item.smiles}
+    if isinstance(f.get("pathway"), (list, tuple)):
+        f["pathway"] = " -> ".join(str(x) for x in f["pathway"])
+    return str(item["smiles"]), f
+
+
+def _normalise_priors(priors: Any, smiles: list[str], from_items: list[float | None]) -> np.ndarray | None:
+    if priors is None:
+        if all(p is None for p in from_items):
+            return None
+        vals = list(from_items)
+    elif isinstance(priors, Mapping):
+        vals = [priors.get(s) for s in smiles]
+    else:
+        if isinstance(priors, (str, bytes)) or not hasattr(priors, "__len__"):
+            raise SpecmatchError("priors must be a list with one number per candidate")
+        vals = list(priors)
+        if len(vals) != len(smiles):
+            raise SpecmatchError(f"{len(vals)} priors for {len(smiles)} candidates; give one per candidate")
+    try:
+        known = [float(v) for v in vals if v is not None]
+    except (TypeError, ValueError):
+        raise SpecmatchError("priors must be numbers (one per candidate)") from None
+    if any(v < 0 or not math.isfinite(v) for v in known):
+        raise SpecmatchError("priors must be non-negative numbers")
+    # candidates without a mechanism prior (e.g. added by the user) get the mean of the others
+    fill = float(np.mean(known)) if known and sum(known) > 0 else 1.0
+    arr = np.array([fill if v is None else float(v) for v in vals], float)
+    if arr.sum() <= 0:
+        return None
+    # a zero prior would make the spectra powerless; floor it at 1e-4 of the largest
+    arr = np.maximum(arr, 1e-4 * arr.max())
+    return arr / arr.sum()
+
+
+def _dept_pattern(p: PreparedCandidate) -> tuple[int, ...]:
+    return tuple(sorted(int(h) for h in p.c_h[~p.c_optional]))
+
+
+def _same_prediction(a: PreparedCandidate, b: PreparedCandidate) -> bool:
+    ca = sorted(zip(np.round(a.c_shift, 3), a.c_h)); cb = sorted(zip(np.round(b.c_shift, 3), b.c_h))
+    ha = sorted(zip(np.round(a.h_shift, 3), a.h_count)); hb = sorted(zip(np.round(b.h_shift, 3), b.h_count))
+    return ca == cb and ha == hb
+
+
+def _advice(nuclei: tuple[str, ...], has_dept: bool, a: PreparedCandidate, b: PreparedCandidate) -> str:
+    """What to record next when the top two cannot be told apart."""
+    if _same_prediction(a, b):
+        return ("these candidates have the same predicted spectra (stereoisomers, or the same "
+                "constitution written twice): 1H/13C shifts of this kind cannot tell them apart")
+    dept_differs = _dept_pattern(a) != _dept_pattern(b)
+    if nuclei == ("13C",) and not has_dept:
+        return "cannot tell these apart with 13C alone: record a 1H or DEPT-135 spectrum" + (
+            " (their carbons carry different numbers of H, which DEPT-135 shows)" if dept_differs else "")
+    if nuclei == ("13C",):
+        return "cannot tell these apart with 13C and DEPT: record a 1H spectrum"
+    if nuclei == ("1H",):
+        return "cannot tell these apart with 1H alone: record a 13C spectrum" + (
+            " with DEPT-135" if dept_differs else "")
+    if not has_dept and dept_differs:
+        return "cannot tell these apart with the spectra given: record a DEPT-135 spectrum"
+    return ("cannot tell these apart with the spectra given: record 2D correlation spectra "
+            "(HSQC/HMBC) or compare with an authentic sample")
+
+
+def _verdict(scores: list[CandidateScore], prepared: list[PreparedCandidate], basis: str,
+             nuclei: tuple[str, ...], has_dept: bool) -> Verdict:
+    if not nuclei:
+        return Verdict("no data", "no spectra given: the ranking is the mechanism prior alone"
+                       if basis != "spectra only" else "no spectra given: nothing to decide on",
+                       basis, scores[0].smiles, scores[1].smiles if len(scores) > 1 else None,
+                       scores[0].probability, scores[1].probability if len(scores) > 1 else 0.0)
+    top = scores[0]
+    if len(scores) == 1:
+        return Verdict("only candidate", f"{_name(top)} is the only candidate; its fit is shown below",
+                       basis, top.smiles, None, 1.0, 0.0)
+    sec = scores[1]
+    p1, p2 = top.probability, sec.probability
+    advice = ""
+    if p1 >= THRESHOLDS["decisive"]:
+        word = "decisive"
+        text = f"decisive: {_name(top)} (p = {p1:.3f}, {basis})"
+    elif p1 >= THRESHOLDS["likely"]:
+        word = "likely"
+        text = f"likely {_name(top)} (p = {p1:.2f}, {basis}); next {_name(sec)} (p = {p2:.2f})"
+    elif p2 <= 0 or p1 / p2 >= THRESHOLDS["tentative_odds"]:
+        word = "tentative"
+        text = (f"tentative: {_name(top)} (p = {p1:.2f}, {basis}) ahead of {_name(sec)} "
+                f"(p = {p2:.2f}); more data advisable")
+    else:
+        word = "cannot tell apart"
+        advice = _advice(nuclei, has_dept, prepared[0], prepared[1])
+        text = f"{_name(top)} (p = {p1:.2f}) and {_name(sec)} (p = {p2:.2f}): {advice}"
+    return Verdict(word, text, basis, top.smiles, sec.smiles, p1, p2, advice)
+
+
+def _name(c: CandidateScore) -> str:
+    return f"{c.label} ({c.smiles})" if c.label else c.smiles
+
+
+def _per_line(table: tuple[SignalRow, ...]) -> dict[int, tuple[float, SignalRow | None]]:
+    """Observed index -> (log-likelihood share, the main predicted row)."""
+    out: dict[int, tuple[float, SignalRow | None]] = {}
+    for r in table:
+        if r.observed_index is None:
+            continue
+        ll, main = out.get(r.observed_index, (0.0, None))
+        if r.status == "unexplained":
+            out[r.observed_index] = (ll + r.log_likelihood, main)
+        else:
+            out[r.observed_index] = (ll + r.log_likelihood, main if main is not None else r)
+    return out
+
+
+def _discriminating(a: CandidateScore, b: CandidateScore, model: ErrorModel,
+                    limit: int = 6) -> tuple[DiscriminatingSignal, ...]:
+    out: list[DiscriminatingSignal] = []
+    for nucleus, ta, tb, temp in (("13C", a.c13_table, b.c13_table, model.c13.temperature),
+                                  ("1H", a.h1_table, b.h1_table, model.h1.temperature)):
+        la, lb = _per_line(ta), _per_line(tb)
+        for j in sorted(set(la) | set(lb)):
+            lla, ra = la.get(j, (0.0, None))
+            llb, rb = lb.get(j, (0.0, None))
+            w = (lla - llb) / temp
+            if abs(w) < 0.5:
+                continue
+            obs = (ra or rb).observed_ppm if (ra or rb) else None
+            if obs is None:
+                obs = next((r.observed_ppm for r in ta + tb if r.observed_index == j), None)
+            fmt = lambda smi, r: (f"{smi} leaves it unexplained" if r is None else
+                                  f"{smi} predicts {r.predicted_ppm:.1f} ppm ({r.deviation_sigma:+.1f} sigma)"
+                                  if nucleus == "13C" else
+                                  f"{smi} predicts {r.predicted_ppm:.2f} ppm ({r.deviation_sigma:+.1f} sigma)")
+            unit = "%.1f" if nucleus == "13C" else "%.2f"
+            text = (f"{nucleus} {unit % obs} ppm: {fmt(a.smiles, ra)}, {fmt(b.smiles, rb)}; "
+                    f"favours {a.smiles if w > 0 else b.smiles} by {abs(w):.1f} nats")
+            out.append(DiscriminatingSignal(
+                nucleus, obs, ra.predicted_ppm if ra else None, ra.deviation_sigma if ra else None,
+                rb.predicted_ppm if rb else None, rb.deviation_sigma if rb else None, w, text))
+        # predicted signals with no line at all weigh too
+        for cand, other, sgn in ((a, b, 1.0), (b, a, -1.0)):
+            table = cand.c13_table if nucleus == "13C" else cand.h1_table
+            for r in table:
+                if r.status == "not observed":
+                    w = sgn * r.log_likelihood / temp
+                    if abs(w) >= 0.5:
+                        out.append(DiscriminatingSignal(
+                            nucleus, None, r.predicted_ppm if sgn > 0 else None, None,
+                            r.predicted_ppm if sgn < 0 else None, None, w,
+                            f"{nucleus}: {cand.smiles} predicts a signal at {r.predicted_ppm:.1f} ppm "
+                            f"that is not observed; favours {other.smiles} by {abs(w):.1f} nats"))
+    out.sort(key=lambda d: -abs(d.weight))
+    return tuple(out[:limit])
+
+
+def _mixture_hint(ranked: list[CandidateScore]) -> str | None:
+    """If lines the best candidate leaves unexplained fit another candidate well, say so."""
+    top = ranked[0]
+    left = {r.observed_index: r.observed_ppm for r in top.c13_table if r.status == "unexplained"}
+    if len(left) < 2:
+        return None
+    for other in ranked[1:6]:
+        fits = sorted({r.observed_index for r in other.c13_table
+                       if r.observed_index in left and r.status == "assigned"
+                       and r.deviation_sigma is not None and abs(r.deviation_sigma) <= 2.0})
+        if len(fits) >= 2 and 2 * len(fits) >= len(left):
+            ppm = ", ".join(f"{left[j]:.1f}" for j in sorted(fits, key=lambda j: -left[j]))
+            name = f"{other.label} ({other.smiles})" if other.label else other.smiles
+            return (f"{len(fits)} of the {len(left)} 13C lines the best candidate leaves unexplained "
+                    f"({ppm} ppm) fit {name}: the sample may be a mixture of the two; estimate the "
+                    "ratio from the 1H spectrum (--mixture)")
+    return None
+
+
+def _cautions(top: CandidateScore, nuclei: tuple[str, ...]) -> list[str]:
+    out = []
+    if top.unexplained:
+        out.append(f"the best candidate leaves {top.unexplained} observed signal(s) unexplained: an "
+                   "impurity, a second product, or a product that is not among the candidates")
+    if top.worst_deviation_sigma > POOR_FIT_SIGMA:
+        out.append(f"the best candidate has a signal {top.worst_deviation_sigma:.1f} sigma from its "
+                   "prediction: check the assignment table; the product may be none of the candidates")
+    if any("fallback" in w or "not covered" in w for w in top.warnings):
+        out.append("some environments of the best candidate are outside the increment tables; "
+                   "their predictions are wide")
+    if nuclei == ("1H",):
+        out.append("1H only: shifts of alkyl protons overlap heavily; a 13C spectrum is much more telling")
+    return out
+
+
+def rank(candidates: Sequence[Any], c13: Any = None, h1: Any = None, priors: Any = None, *,
+         use_prior: bool = True, model: ErrorModel | None = None, details: bool = True) -> Ranking:
+    """Rank candidate structures against observed spectra.
+
+    Parameters
+    ----------
+    candidates : sequence
+        SMILES strings, dicts with ``smiles`` (and optional ``label``, ``pathway``,
+        ``role``, ``prior``) or enumeration ``Candidate`` objects.
+    c13 : sequence or PeakList, optional
+        Observed 13C lines: ppm numbers, ``{"shift": ppm, "hydrogens": n}`` dicts
+        (hydrogens from DEPT) or peaks.
+    h1 : sequence or PeakList, optional
+        Observed 1H multiplets: ``{"shift", "integral", "multiplicity", "j_hz"}``.
+    priors : sequence or mapping, optional
+        Mechanism prior per candidate (normalised here); taken from the candidate
+        objects when not given.
+    use_prior : bool
+        Base the verdict on the with-prior probability (when priors exist).
+    model : ErrorModel, optional
+        Defaults to the fitted model shipped with specmatch.
+    details : bool
+        Build per-signal tables and discriminating signals (False for speed).
+
+    Returns
+    -------
+    Ranking
+    """
+    items = list(candidates)
+    if not items:
+        raise SpecmatchError("no candidate structures to rank; give at least one SMILES")
+    model = model or load_error_model()
+    parsed = [_candidate_fields(x) for x in items]
+    smiles = [s for s, _ in parsed]
+    prepared = [prepare(s) for s in smiles]
+    oc, oh = observed_c13(c13), observed_h1(h1)
+    nuclei = tuple(n for n, o in (("13C", oc), ("1H", oh)) if o.n)
+    lc, lh = log_likelihoods(prepared, oc, oh, model)
+    score = combined_score(lc, lh, model)
+    p_spec = softmax(score)
+    pri = _normalise_priors(priors, smiles, [f.get("prior") for _, f in parsed])
+    p_prior = softmax(score + np.log(pri)) if pri is not None else None
+    with_prior = use_prior and p_prior is not None
+    p_use = p_prior if with_prior else p_spec
+    basis = "spectra and mechanism prior" if with_prior else "spectra only"
+    rows = []
+    for i, (s, f) in enumerate(parsed):
+        pr = prepared[i]
+        rows.append(CandidateScore(
+            smiles=s, canonical_smiles=pr.prediction.canonical_smiles,
+            probability=float(p_use[i]), probability_spectra=float(p_spec[i]),
+            probability_with_prior=None if p_prior is None else float(p_prior[i]),
+            log_likelihood_c13=float(lc[i]), log_likelihood_h1=float(lh[i]), score=float(score[i]),
+            prior=None if pri is None else float(pri[i]),
+            label=f.get("label") or "", pathway=f.get("pathway") or "", role=f.get("role") or "",
+            c13_table=tuple(c13_table(pr, oc, model.c13)) if details else (),
+            h1_table=tuple(h1_table(pr, oh, model.h1)) if details else (),
+            warnings=pr.prediction.warnings, tables_version=pr.prediction.tables_version,
+        ))
+    order = sorted(range(len(rows)), key=lambda i: (-rows[i].probability, -rows[i].score, i))
+    ranked = [rows[i] for i in order]
+    prep_sorted = [prepared[i] for i in order]
+    verdict = _verdict(ranked, prep_sorted, basis, nuclei, oc.has_dept)
+    disc = _discriminating(ranked[0], ranked[1], model) if details and len(ranked) > 1 and nuclei else ()
+    cautions: tuple[str, ...] = ()
+    if details and nuclei:
+        hint = _mixture_hint(ranked) if "13C" in nuclei else None
+        cautions = tuple(_cautions(ranked[0], nuclei) + ([hint] if hint else []))
+        if hint and verdict.word in ("decisive", "likely", "tentative"):
+            verdict = replace(verdict, text=verdict.text + "; as the main component of what looks "
+                              "like a mixture (see cautions)")
+    return Ranking(tuple(ranked), verdict, disc, nuclei, oc.has_dept, model.version, cautions)

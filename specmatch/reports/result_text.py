@@ -1,0 +1,85 @@
+"""Readable text of an identification (``specmatch identify`` without ``--json``)."""
+
+from __future__ import annotations
+
+from typing import Any
+
+__all__ = ["result_text", "signal_table_text"]
+
+
+def _f(x: float | None, fmt: str) -> str:
+    return "-" if x is None else format(x, fmt)
+
+
+def signal_table_text(rows, nucleus: str) -> str:
+    """A per-signal table: observed, predicted, deviation in sigma units, status."""
+    if not rows:
+        return ""
+    ppm = ".1f" if nucleus == "13C" else ".2f"
+    head = f"  {'observed':>9} {'predicted':>9} {'sigma':>6} {'dev/sigma':>9}  {'H' if nucleus == '13C' else 'nH':>2}  status        environment"
+    out = [head]
+    for r in rows:
+        h = r.hydrogens if nucleus == "13C" else r.protons
+        out.append(f"  {_f(r.observed_ppm, ppm):>9} {_f(r.predicted_ppm, ppm):>9} {_f(r.sigma_ppm, '.2f'):>6} "
+                   f"{_f(r.deviation_sigma, '+.1f'):>9}  {'-' if h is None else h:>2}  {r.status:<13} {r.environment}")
+    return "\n".join(out)
+
+
+def result_text(result: Any) -> str:
+    """The verdict, the candidate table, the evidence and the cautions as plain text.
+
+    Accepts a :class:`~specmatch.identification.result.Result` or a ``Ranking``.
+    """
+    ranking = getattr(result, "ranking", result)
+    v = ranking.verdict
+    lines = [f"Verdict: {v.text}"]
+    lines.append(f"  (verdict uses the {v.basis} probability; thresholds: decisive >= 0.95, "
+                 "likely >= 0.80, tentative at odds >= 3:1, otherwise cannot tell apart)")
+    inputs = getattr(result, "inputs", {}) or {}
+    if inputs.get("substrate"):
+        lines.append(f"Reaction: {inputs['substrate']} + {inputs.get('reagent_name') or inputs.get('reagent')}"
+                     + (f" (alcohol {inputs['alcohol']})" if inputs.get("alcohol") else ""))
+    lines.append(f"Data: {', '.join(ranking.nuclei) or 'none'}{' + DEPT' if ranking.has_dept else ''}")
+    lines.append("")
+    lines.append(f"{'#':>2} {'p':>7} {'p spectra':>9} {'p w/prior':>9} {'prior':>6}  candidate")
+    for i, c in enumerate(ranking.candidates, 1):
+        pw = "-" if c.probability_with_prior is None else f"{c.probability_with_prior:.3f}"
+        pr = "-" if c.prior is None else f"{c.prior:.3f}"
+        label = f"{c.label}: " if c.label else ""
+        lines.append(f"{i:>2} {c.probability:>7.3f} {c.probability_spectra:>9.3f} {pw:>9} {pr:>6}  "
+                     f"{label}{c.smiles}")
+    if ranking.discriminating:
+        lines += ["", "Signals that tell the top two apart:"]
+        lines += [f"  - {d.text}" for d in ranking.discriminating]
+    best = ranking.candidates[0]
+    for nucleus, rows in (("13C", best.c13_table), ("1H", best.h1_table)):
+        if rows:
+            lines += ["", f"{nucleus} assignment for the top candidate {best.smiles}:",
+                      signal_table_text(rows, nucleus)]
+    mix = getattr(result, "mixture", None)
+    if mix is not None:
+        lines += ["", "Mixture estimate:"]
+        try:
+            from .mixture_text import mixture_text
+
+            lines.append(mixture_text(mix))
+        except ImportError:
+            lines.append(str(mix))
+    cautions = list(ranking.cautions) + (list(getattr(result, "cautions", ()) or ()) if result is not ranking else [])
+    if cautions:
+        lines += ["", "Cautions:"] + [f"  - {c}" for c in cautions]
+    safety = getattr(result, "safety_notes", ()) or ()
+    if safety:
+        lines += ["", "Safety (reagent):"] + [f"  - {s}" for s in safety]
+    adv = getattr(result, "caution", None)
+    if adv:
+        lines += ["", adv]
+    files = inputs.get("files") or {}
+    if files:
+        lines += ["", "Input files (SHA-256):"]
+        lines += [f"  {k}: {f['name']}  {f['sha256']}" for k, f in files.items()]
+    vers = getattr(result, "versions", None)
+    if vers:
+        lines.append("Versions: " + "; ".join(f"{k} {v}" for k, v in vers.items()
+                                              if v and k not in ("error_model_fitted_on", "prediction_tables_sha256")))
+    return "\n".join(lines)

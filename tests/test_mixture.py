@@ -245,3 +245,18 @@ def test_peak_list_of_a_pure_sample():
     assert est.fractions[0] > 0.97
     assert est.interval_95[1][0] == 0.0
     assert est.selectivity == "completely regioselective"
+
+
+def test_observed_multiplicity_partner_counts():
+    # first-order n+1 rule (common practice): a dq with equal J collapses to a quintet,
+    # so both mean four equivalent-ish partners; 'm' and broad lines are not patterns
+    from specmatch.identification.mixture import _observed_partners
+
+    assert _observed_partners("t") == 2
+    assert _observed_partners("quint") == 4
+    assert _observed_partners("dq") == 4
+    assert _observed_partners("ddd") == 3
+    assert _observed_partners("sept") == 6
+    assert _observed_partners("s") == 0
+    assert _observed_partners("m") is None
+    assert _observed_partners("br s") is None

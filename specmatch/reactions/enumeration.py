@@ -450,6 +450,18 @@ def _alcohol_addition(ctx: Context) -> list[Outcome]:
     return _cationic_addition(ctx, [nu], ctx.par["elimination"]["alcohol_addition"], nu.name)
 
 
+def _ionisations(ctx: Context, sites):
+    """For each alcohol site (C, O): the cation after loss of water, as
+    (c, o, cation carbon index in the new molecule, intermediate, step text)."""
+    for c, o in sites:
+        cation = ionise(ctx.sub, c, o)
+        if cation is None:
+            continue
+        cc = c - 1 if c > o else c  # indices after the removed O shift down by one
+        what = f"protonation of O{ctx.sub.GetAtomWithIdx(o).GetIntProp('n')}, loss of water from {lab(ctx.sub, c)}"
+        yield c, o, cc, make_intermediate(cation, cc), what
+
+
 def _substitution(ctx: Context) -> list[Outcome]:
     """Alcohol + HX: SN1 via the cation (2/3/allylic/benzylic), SN2 for primary (and partly secondary)."""
     par = ctx.par["substitution"]
@@ -457,13 +469,7 @@ def _substitution(ctx: Context) -> list[Outcome]:
     net = _network(ctx)
     direct: list[Outcome] = []
     sites = _alcohol_sites(ctx.sub)
-    for c, o in sites:
-        cation = ionise(ctx.sub, c, o)
-        if cation is None:
-            continue
-        # indices after the removed O shift down by one
-        cc = c - 1 if c > o else c
-        inter = make_intermediate(cation, cc)
+    for c, o, cc, inter, what in _ionisations(ctx, sites):
         stabilised = len(inter.forms) > 1 or "benzylic" in inter.cls or inter.substitution == "tertiary"
         next_to_quaternary = any(n.GetAtomicNum() == 6 and n.GetTotalNumHs() == 0 and n.GetDegree() == 4
                                  for n in ctx.sub.GetAtomWithIdx(c).GetNeighbors())
@@ -481,7 +487,6 @@ def _substitution(ctx: Context) -> list[Outcome]:
             w_ion, w_sn2 = par["ionisation_primary"], par["sn2_primary"]
         tot = (w_ion + w_sn2) * len(sites)
         word = "SN1 product" if inter.substitution != "primary" else "substitution product"
-        what = f"protonation of O{ctx.sub.GetAtomWithIdx(o).GetIntProp('n')}, loss of water from {lab(ctx.sub, c)}"
         if neopentyl:
             what += " (assisted by the 1,2-shift: no free primary cation)"
         net.add_entry(inter, w_ion / tot, what, kind="ionisation", start=cc, word=word, group=f"site{c}")
@@ -512,13 +517,7 @@ def _substitution(ctx: Context) -> list[Outcome]:
 def _dehydration(ctx: Context) -> list[Outcome]:
     net = _network(ctx)
     sites = _alcohol_sites(ctx.sub)
-    for c, o in sites:
-        cation = ionise(ctx.sub, c, o)
-        if cation is None:
-            continue
-        cc = c - 1 if c > o else c
-        inter = make_intermediate(cation, cc)
-        what = f"protonation of O{ctx.sub.GetAtomWithIdx(o).GetIntProp('n')}, loss of water from {lab(ctx.sub, c)}"
+    for c, _o, cc, inter, what in _ionisations(ctx, sites):
         net.add_entry(inter, 1.0 / len(sites), what, kind="ionisation", start=cc, word="alcohol",
                       group=f"site{c}")
     out = _run_network(ctx, net, [_water(ctx.par["nucleophiles"]["water_in_dehydration"])],

@@ -85,6 +85,17 @@ def is_affn_block(lines: list[str]) -> bool:
     return True
 
 
+def _ordinates_per_line(line_of: np.ndarray, pairs, source: str | None) -> np.ndarray:
+    """Ordinates counted per data line; a line with none is an error that names it."""
+    counts = np.bincount(line_of, minlength=len(pairs))
+    if (counts == 0).any():
+        text, line_no = pairs[int(np.argmax(counts == 0))]
+        raise SpecmatchError(
+            f"{_where(source, line_no)}: expected an abscissa followed by at least one "
+            f"ordinate, found {text.strip()[:40]!r}")
+    return counts
+
+
 def decode_xy_lines(lines: list[str], line_numbers: list[int], *, source: str = "") -> DecodedLines:
     """Decode the data lines of an ``(X++(Y..Y))`` table in any ordinate form.
 
@@ -125,12 +136,7 @@ def decode_xy_lines(lines: list[str], line_numbers: list[int], *, source: str = 
         fast = _tokenise_asdf(pairs, source)  # integers / PAC: the vectorised path
         if fast is not None:
             vals, _, line_of, xs = fast
-            counts_a = np.bincount(line_of, minlength=len(pairs))
-            if (counts_a == 0).any():
-                text, line_no = pairs[int(np.argmax(counts_a == 0))]
-                raise SpecmatchError(
-                    f"{_where(source, line_no)}: expected an abscissa followed by at least one "
-                    f"ordinate, found {text.strip()[:40]!r}")
+            counts_a = _ordinates_per_line(line_of, pairs, source)
             starts = np.concatenate(([0], np.cumsum(counts_a)[:-1]))
             return DecodedLines(vals, _parse_x(xs, pairs, source), starts, nums, "AFFN",
                                 int(np.isnan(vals).sum()), _decimals(xs))
@@ -146,12 +152,7 @@ def decode_xy_lines(lines: list[str], line_numbers: list[int], *, source: str = 
     fast = _tokenise_asdf(pairs, source)
     if fast is not None:
         vals, kind, line_of, xs = fast
-        counts_a = np.bincount(line_of, minlength=len(pairs))
-        if (counts_a == 0).any():
-            text, line_no = pairs[int(np.argmax(counts_a == 0))]
-            raise SpecmatchError(
-                f"{_where(source, line_no)}: expected an abscissa followed by at least one "
-                f"ordinate, found {text.strip()[:40]!r}")
+        counts_a = _ordinates_per_line(line_of, pairs, source)
     else:  # decimal points in compressed ordinates: token by token
         for text, line_no in pairs:
             m = _BAD_CHAR.search(text)

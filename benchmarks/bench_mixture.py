@@ -74,7 +74,7 @@ def main() -> None:
     args = ap.parse_args()
 
     from specmatch.identification.mixture import estimate_mixture
-    from specmatch.identification.mixture_synth import experimental_groups, synthetic_spectrum
+    from specmatch.identification.mixture.synth import experimental_groups, synthetic_spectrum
     from specmatch.prediction import predict
     from specmatch.spectra.model import PeakList
 

@@ -23,7 +23,7 @@ from specmatch.identification.mixture import (
     ratio_text,
     selectivity_words,
 )
-from specmatch.identification.mixture_synth import experimental_groups, synthetic_spectrum
+from specmatch.identification.mixture.synth import experimental_groups, synthetic_spectrum
 from specmatch.prediction.model import Prediction
 from specmatch.reports.mixture_text import mixture_text
 from specmatch.spectra.model import Multiplet, Peak, PeakList, Spectrum
@@ -250,7 +250,7 @@ def test_peak_list_of_a_pure_sample():
 def test_observed_multiplicity_partner_counts():
     # first-order n+1 rule (common practice): a dq with equal J collapses to a quintet,
     # so both mean four equivalent-ish partners; 'm' and broad lines are not patterns
-    from specmatch.identification.mixture import _observed_partners
+    from specmatch.identification.mixture.estimate import _observed_partners
 
     assert _observed_partners("t") == 2
     assert _observed_partners("quint") == 4

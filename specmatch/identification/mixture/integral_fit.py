@@ -25,9 +25,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..prediction.model import ProtonGroup
-from ..spectra.model import Multiplet
-from .mixture_fit import BOUND_SIGMAS, MAX_BOUND_PPM, MIN_BOUND_PPM, OH_RANGE_PPM, SignalRegion
+from ...prediction.model import ProtonGroup
+from ...spectra.model import Multiplet
+from .spectrum_fit import BOUND_SIGMAS, MAX_BOUND_PPM, MIN_BOUND_PPM, OH_RANGE_PPM, SignalRegion
 
 INTEGRAL_REL_SD = 0.02
 INTEGRAL_ABS_SD = 0.005

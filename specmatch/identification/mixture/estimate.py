@@ -2,7 +2,7 @@
 
 Two estimates, compared with each other:
 
-1. **Full-spectrum fit** (:mod:`.mixture_fit`): the measured 1H spectrum is fitted
+1. **Full-spectrum fit** (:mod:`.spectrum_fit`): the measured 1H spectrum is fitted
    as a non-negative combination of the candidates' simulated first-order spectra,
    each proton group moving within its prediction uncertainty (shift and coupling
    constants refined), with a polynomial baseline, solvent/water/TMS/impurity lines
@@ -23,7 +23,7 @@ Two estimates, compared with each other:
    *disagree* when some fraction differs by more than ``DISAGREE_MIN`` (5
    percentage points) and by more than twice their combined uncertainty.
 
-With a peak list with integrals instead of a spectrum (:mod:`.mixture_peaks`),
+With a peak list with integrals instead of a spectrum (:mod:`.integral_fit`),
 multiplet integrals are fitted by an assignment of groups to multiplets; the
 classical ratio then uses the multiplets that belong to one candidate only.
 
@@ -56,7 +56,7 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import SpecmatchError
+from ...errors import SpecmatchError
 
 #: (minimum major fraction, word), checked in order; common practice
 SELECTIVITY_THRESHOLDS: tuple[tuple[float, str], ...] = (
@@ -298,9 +298,9 @@ def _fit_groups(groups: Sequence) -> tuple:
 
 def _prepare_candidates(candidates: Sequence[str], names: Sequence[str] | None,
                         predictions: Sequence | None = None) -> list[_Candidate]:
-    from ..prediction import predict
-    from ..structures import parse_structure
-    from .mixture_synth import with_couplings
+    from ...prediction import predict
+    from ...structures import parse_structure
+    from .synth import with_couplings
 
     cands = [str(c).strip() for c in candidates]
     if len(cands) < 2:
@@ -366,7 +366,7 @@ def _masks(peaklist, solvent: str | None, warnings: list[str], cands: Sequence[_
         names.append(f"{flag} {c:.2f}")
     # the solvent's table lines (specmatch.spectra.solvents) are masked as well: a weak
     # water line is often not flagged
-    from ..spectra.solvents import canonical_solvent, lines_for
+    from ...spectra.solvents import canonical_solvent, lines_for
 
     rows = [r for r in lines_for(canonical_solvent(solvent, strict=False), "1H")
             if r.kind in ("solvent", "water", "TMS")]
@@ -412,7 +412,7 @@ def _interval(f: np.ndarray, sd: np.ndarray) -> tuple[tuple[float, float], ...]:
 
 
 def _alpha_to_heteroatom(cand: _Candidate, group_indices: Sequence[int]) -> bool:
-    from ..structures import parse_structure
+    from ...structures import parse_structure
 
     mol = parse_structure(cand.smiles).mol
     for i in group_indices:
@@ -424,7 +424,7 @@ def _alpha_to_heteroatom(cand: _Candidate, group_indices: Sequence[int]) -> bool
 
 def _integral_ratio(regions, cands, weights, fitted_shift_map) -> tuple[IntegralRatio | None, str]:
     """Best diagnostic region per candidate -> classical ratio; or None and why."""
-    from .mixture_fit import PURITY_MIN
+    from .spectrum_fit import PURITY_MIN
 
     chosen = []
     for k in range(len(cands)):
@@ -591,7 +591,7 @@ def _observed_integral_ratio(cands: Sequence[_Candidate], fit, peaklist, f_mhz: 
 def _finish(cands, weights, wcov, regions, *, method, uncertainty_method, warnings, source,
             fitted, group_keys, details, undetected: dict[int, float] | None = None,
             observed: IntegralRatio | None = None) -> MixtureEstimate:
-    from .mixture_fit import PURITY_MIN, _fraction_sd
+    from .spectrum_fit import PURITY_MIN, _fraction_sd
 
     w = np.asarray(weights, float)
     tot = w.sum()
@@ -760,7 +760,7 @@ def estimate_mixture(
 
 def _try_process(spectrum, solvent, warnings):
     try:
-        from ..spectra import process_spectrum
+        from ...spectra import process_spectrum
     except (ImportError, AttributeError):
         return None
     try:
@@ -771,7 +771,7 @@ def _try_process(spectrum, solvent, warnings):
 
 
 def _from_spectrum(cands, spectrum, peaklist, solvent, f_mhz, warnings, src) -> MixtureEstimate:
-    from .mixture_fit import fit_spectrum
+    from .spectrum_fit import fit_spectrum
 
     ppm = np.asarray(spectrum.ppm, float)
     y = np.asarray(spectrum.intensity, float)
@@ -820,7 +820,7 @@ def _from_spectrum(cands, spectrum, peaklist, solvent, f_mhz, warnings, src) -> 
 
 
 def _from_peaklist(cands, peaklist, warnings, src) -> MixtureEstimate:
-    from .mixture_peaks import fit_integrals
+    from .integral_fit import fit_integrals
 
     mults = []
     for m in peaklist.multiplets:
@@ -844,7 +844,7 @@ def _from_peaklist(cands, peaklist, warnings, src) -> MixtureEstimate:
         warnings.append(f"the integrals are not well explained by the candidates (reduced chi-square "
                         f"{fit.chi2_red:.1f}): an impurity, a missing candidate or a wrong assignment")
     # an absent candidate has no multiplet of its own: its diagnostic signal is "not observed"
-    from .mixture_fit import SignalRegion
+    from .spectrum_fit import SignalRegion
 
     regions = list(fit.regions)
     tot = fit.weights.sum()
@@ -894,7 +894,7 @@ def mixture_from_files(h1_path: str | Path, candidates_path: str | Path, *, solv
     """``specmatch mixture``: read the 1H file (spectrum or CSV peak list) and the candidates."""
     smiles, names = read_candidates(candidates_path)
     try:
-        from ..spectra import read_spectrum
+        from ...spectra import read_spectrum
     except (ImportError, AttributeError):
         raise SpecmatchError("reading spectrum files is not available in this installation") from None
     obj = read_spectrum(str(h1_path))
@@ -903,7 +903,7 @@ def mixture_from_files(h1_path: str | Path, candidates_path: str | Path, *, solv
             f"'{h1_path}' is a {obj.nucleus} file. 13C intensities are not quantitative under routine "
             "conditions (nuclear Overhauser enhancement, unequal relaxation), so specmatch does not "
             "report a ratio from them; give the 1H spectrum")
-    from ..spectra.model import PeakList
+    from ...spectra.model import PeakList
 
     if isinstance(obj, PeakList):
         return estimate_mixture(smiles, peaklist=obj, solvent=solvent, names=names)

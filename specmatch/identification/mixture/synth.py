@@ -19,9 +19,9 @@ from collections.abc import Mapping, Sequence
 
 import numpy as np
 
-from ..prediction.model import ProtonGroup
-from ..spectra.model import Spectrum
-from ..structures import Structure, parse_structure
+from ...prediction.model import ProtonGroup
+from ...spectra.model import Spectrum
+from ...structures import Structure, parse_structure
 
 #: typical vicinal 3J(H,H) in freely rotating alkyl chains, Hz (common practice)
 VICINAL_J_HZ = 7.0
@@ -137,7 +137,7 @@ def synthetic_spectrum(
     snr : float
         Height of the tallest compound line over the noise sd.
     """
-    from ..prediction.simulate import sticks_1h
+    from ...prediction.simulate import sticks_1h
 
     rng = rng or np.random.default_rng(0)
     x = np.linspace(11.0, -0.5, n_points)
@@ -168,4 +168,4 @@ def synthetic_spectrum(
         y += top * (0.002 + 0.001 * t - 0.0015 * t * t)
     y += rng.normal(0.0, top / snr, size=x.shape)
     return Spectrum(nucleus="1H", ppm=x, intensity=y, frequency_mhz=frequency_mhz, solvent="CDCl3",
-                    source="synthetic mixture (specmatch.identification.mixture_synth)")
+                    source="synthetic mixture (specmatch.identification.mixture.synth)")

@@ -43,7 +43,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..prediction.model import ProtonGroup
+from ...prediction.model import ProtonGroup
 
 #: groups may move this many prediction sigmas from the predicted shift
 BOUND_SIGMAS = 3.0

@@ -1,0 +1,70 @@
+"""The ``specmatch`` command: one module per subcommand group, each a thin handler.
+
+Every handler gathers input, calls the library and lays out its result; no
+chemistry lives here. User errors (``SpecmatchError``, unreadable files) print one
+line ``specmatch: <message>`` on stderr and exit 2; ``--debug`` shows tracebacks.
+
+Each handler imports its stage lazily so ``specmatch --help`` stays fast. To add a
+command, write a module with ``register(sub)`` and list it in ``_COMMAND_MODULES``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from importlib import import_module
+from typing import Callable, Sequence
+
+from .. import __version__
+from ..errors import SpecmatchError
+
+EXIT_USER_ERROR = 2
+
+#: modules with a ``register(sub)`` function, in the order ``--help`` lists them
+_COMMAND_MODULES = ("predict", "enumerate", "peaks", "rank", "identify", "history")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    ap = argparse.ArgumentParser(
+        prog="specmatch",
+        description="Which isomer did the carbocation reaction give? Enumerate the products, "
+                    "predict their 1H/13C spectra, match the measured spectra.",
+        epilog="An identification is advisory: confirm it with orthogonal data before use.",
+    )
+    ap.add_argument("--version", action="version", version=f"specmatch {__version__}")
+    ap.add_argument("--debug", action="store_true", help="show tracebacks on errors")
+    sub = ap.add_subparsers(dest="command", metavar="COMMAND")
+    for name in _COMMAND_MODULES:
+        import_module(f"{__name__}.{name}").register(sub)
+    return ap
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "func", None):
+        parser.print_help()
+        return 0
+    func: Callable[[argparse.Namespace], int] = args.func
+    try:
+        return func(args)
+    except SpecmatchError as exc:
+        if args.debug:
+            raise
+        print(f"specmatch: {exc}", file=sys.stderr)
+        return EXIT_USER_ERROR
+    except KeyboardInterrupt:
+        print("specmatch: interrupted", file=sys.stderr)
+        return 130
+    except BrokenPipeError:
+        # output piped into `head` and closed early: not an error of the user's input
+        import os
+
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
+    except Exception as exc:  # last line of defence: one clear line, never a traceback
+        if args.debug:
+            raise
+        print(f"specmatch: internal error ({type(exc).__name__}: {exc}); "
+              "rerun with --debug and report it", file=sys.stderr)
+        return 1

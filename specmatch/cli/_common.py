@@ -1,0 +1,39 @@
+"""Small helpers shared by the command handlers (output, progress, files)."""
+
+from __future__ import annotations
+
+import json
+import sys
+from typing import Any
+
+from ..errors import SpecmatchError
+
+
+def _print_json(obj: Any) -> None:
+    json.dump(obj, sys.stdout, indent=2, ensure_ascii=False, default=str)
+    sys.stdout.write("\n")
+
+
+def _progress(total: int, desc: str):
+    """A progress bar on stderr for long batches (silent for short ones or non-TTY)."""
+    from tqdm import tqdm
+
+    return tqdm(total=total, desc=desc, unit="item", file=sys.stderr,
+                disable=total < 200 or not sys.stderr.isatty(), leave=False)
+
+
+def _read_lines(path: str) -> list[str]:
+    try:
+        with open(path, encoding="utf-8") as fh:
+            return fh.read().splitlines()
+    except OSError as exc:
+        raise SpecmatchError(f"cannot read '{path}': {exc.strerror}") from None
+    except UnicodeDecodeError:
+        raise SpecmatchError(f"cannot read '{path}': it is not UTF-8 text") from None
+
+
+def _open_out(path: str):
+    try:
+        return open(path, "w", encoding="utf-8")
+    except OSError as exc:
+        raise SpecmatchError(f"cannot write '{path}': {exc.strerror}") from None

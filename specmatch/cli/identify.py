@@ -1,0 +1,83 @@
+"""``specmatch identify`` and ``specmatch mixture``: the whole job, and the product ratio alone."""
+
+from __future__ import annotations
+
+import argparse
+
+from ._common import _print_json, _read_lines
+
+
+def cmd_identify(args: argparse.Namespace) -> int:
+    from ..identification import identify
+    from ..reports.result_text import result_text
+
+    extra: list[str] = []
+    if args.candidates:
+        extra = [ln.split()[0] for ln in _read_lines(args.candidates)
+                 if ln.strip() and not ln.lstrip().startswith("#")]
+    result = identify(
+        substrate=args.substrate, reagent=args.reagent, alcohol=args.alcohol,
+        c13=args.c13, h1=args.h1, dept135=args.dept135, solvent=args.solvent,
+        candidates=extra, mixture=args.mixture, use_prior=not args.no_prior,
+    )
+    if args.report:
+        from ..reports.html import write_report
+
+        write_report(result, args.report)
+    saved_id = None
+    if args.save:
+        from ..store import save_run
+
+        saved_id = save_run(result, {"c13": args.c13, "h1": args.h1, "dept135": args.dept135},
+                            store=args.store, sample_id=args.sample_id, user=args.user)
+    if args.json:
+        _print_json(result.to_dict())
+    else:
+        print(result_text(result))
+        if args.report:
+            print(f"\nreport written to {args.report}")
+        if saved_id:
+            print(f"saved as analysis {saved_id} (see 'specmatch history show {saved_id[:12]}')")
+    return 0
+
+
+# -------------------------------------------------------------------------- mixture
+def cmd_mixture(args: argparse.Namespace) -> int:
+    from ..identification.mixture import mixture_from_files
+    from ..reports.mixture_text import mixture_text
+
+    est = mixture_from_files(args.h1, args.candidates, solvent=args.solvent)
+    if args.json:
+        _print_json(est.to_dict())
+    else:
+        print(mixture_text(est))
+    return 0
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    """Add this module's subcommands to the ``specmatch`` parser."""
+    p = sub.add_parser("identify", help="the whole job: reaction + spectra -> verdict")
+    p.add_argument("--substrate", required=True, metavar="SMILES")
+    p.add_argument("--reagent", required=True, metavar="TEXT")
+    p.add_argument("--alcohol", metavar="SMILES")
+    p.add_argument("--c13", metavar="FILE")
+    p.add_argument("--h1", metavar="FILE")
+    p.add_argument("--dept135", metavar="FILE")
+    p.add_argument("--solvent", metavar="NAME")
+    p.add_argument("--candidates", metavar="FILE", help="extra candidate SMILES, one per line")
+    p.add_argument("--mixture", action="store_true", help="also estimate the product ratio from 1H")
+    p.add_argument("--no-prior", action="store_true", help="verdict from the spectra alone")
+    p.add_argument("--report", metavar="OUT.html", help="write a self-contained HTML report")
+    p.add_argument("--save", action="store_true", help="save the analysis (inputs, files, verdict) in the store")
+    p.add_argument("--store", metavar="URL", help="with --save: database URL (default $SPECMATCH_STORE)")
+    p.add_argument("--sample-id", metavar="ID", help="with --save: the sample's id")
+    p.add_argument("--user", metavar="NAME", help="with --save: who ran it (default: the OS user)")
+    p.add_argument("--json", action="store_true")
+    p.set_defaults(func=cmd_identify)
+
+    p = sub.add_parser("mixture", help="product ratio from a crude 1H spectrum")
+    p.add_argument("--h1", required=True, metavar="FILE", help="1H spectrum or CSV peak list with integrals")
+    p.add_argument("--candidates", required=True, metavar="FILE", help="candidate SMILES, one per line")
+    p.add_argument("--solvent", metavar="NAME")
+    p.add_argument("--json", action="store_true")
+    p.set_defaults(func=cmd_mixture)

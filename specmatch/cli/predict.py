@@ -1,0 +1,58 @@
+"""``specmatch predict``: predicted 1H/13C spectra of one structure or a batch."""
+
+from __future__ import annotations
+
+import argparse
+import json
+from typing import Any
+
+from ..errors import SpecmatchError
+from ._common import _open_out, _print_json, _progress, _read_lines
+
+
+def cmd_predict(args: argparse.Namespace) -> int:
+    from ..prediction import predict
+    from ..reports.prediction_text import prediction_table
+
+    if args.batch:
+        if not args.out:
+            raise SpecmatchError("--batch needs --out OUT.jsonl")
+        lines = _read_lines(args.batch)
+        with _open_out(args.out) as out, _progress(len(lines), "predict") as bar:
+            for line in lines:
+                smi = line.strip()
+                if not smi or smi.startswith("#"):
+                    row: dict[str, Any] = {"smiles": line, "ok": False, "error": "empty line"}
+                else:
+                    smi = smi.split()[0]
+                    try:
+                        row = predict(smi).to_dict()
+                        row["smiles"] = smi
+                    except SpecmatchError as exc:
+                        row = {"smiles": smi, "ok": False, "error": str(exc)}
+                    except Exception as exc:  # one bad molecule must not stop a batch
+                        row = {"smiles": smi, "ok": False, "error": f"internal error: {exc}"}
+                out.write(json.dumps(row) + "\n")
+                bar.update()
+        return 0
+    if not args.smiles:
+        raise SpecmatchError("give a SMILES, or --batch FILE --out OUT.jsonl")
+    pred = predict(args.smiles)
+    if args.json:
+        _print_json(pred.to_dict())
+    else:
+        print(prediction_table(pred, frequency_mhz=args.frequency, solvent=args.solvent))
+    return 0
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    """Add this module's subcommands to the ``specmatch`` parser."""
+    p = sub.add_parser("predict", help="predict 1H and 13C spectra of a structure")
+    p.add_argument("smiles", nargs="?", help="SMILES of the structure")
+    p.add_argument("--json", action="store_true", help="print JSON")
+    p.add_argument("--batch", metavar="FILE", help="one SMILES per line")
+    p.add_argument("--out", metavar="OUT.jsonl", help="with --batch: where to write results")
+    p.add_argument("--frequency", type=float, default=400.0, metavar="MHZ",
+                   help="1H frequency for the peak text (default 400)")
+    p.add_argument("--solvent", default="CDCl3", help="solvent named in the peak text")
+    p.set_defaults(func=cmd_predict)

@@ -156,6 +156,12 @@ class AnalysisRecord:
     tables_version: str | None = None
     data_sha256: str | None = None
     files: dict[str, str] = field(default_factory=dict)
+    groups: tuple[str, ...] = ()
+    problems: tuple[str, ...] = ()
+    """What the audit check found wrong with this version when it was read (empty: sound)."""
+    chain_hash: str | None = None
+    chain_origin: str | None = None
+    """"saved" (linked when saved) or "migration" (saved before the chain, linked at upgrade)."""
 
     @property
     def short_id(self) -> str:
@@ -173,6 +179,8 @@ class AnalysisRecord:
             "top_probability": self.top_probability,
             "tool_version": self.tool_version, "tables_version": self.tables_version,
             "input_key": self.input_key, "data_sha256": self.data_sha256,
+            "groups": list(self.groups), "chain_hash": self.chain_hash,
+            "chain_origin": self.chain_origin, "problems": list(self.problems),
             "files": dict(self.files), "data": self.data,
         }
 

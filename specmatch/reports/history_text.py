@@ -1,25 +1,13 @@
-"""``specmatch history``: list, search, show, export, compare and annotate saved analyses.
+"""Saved analyses as text: the list, one analysis with its versions, two side by side,
+and the audit check.
 
-Text for people by default, ``--json`` for scripts. The handlers only call the
-store and lay out what it returns.
+Used by ``specmatch history``; the store returns records, these lay them out.
 """
 
 from __future__ import annotations
 
 import json
-import sys
 from typing import Any, Sequence
-
-from ..errors import SpecmatchError
-
-HELP = ("use: specmatch history list | search [--substrate S] [--reagent R] [--verdict V] "
-        "[--since DATE] [--until DATE] [--sample-id ID] | show ID | export ID [--format html] | "
-        "compare ID_A ID_B | note ID TEXT [--verdict V]")
-
-
-def _dump(obj: Any) -> None:
-    json.dump(obj, sys.stdout, indent=2, ensure_ascii=False, default=str)
-    sys.stdout.write("\n")
 
 
 def _fmt_p(p: float | None) -> str:
@@ -36,18 +24,25 @@ def records_table(records: Sequence[Any]) -> str:
     if not records:
         return "no saved analyses match"
     head = ("id", "when (UTC)", "v", "sample", "substrate", "reagent", "verdict", "top candidate", "p")
-    rows = [(r.short_id, r.created_at.strftime("%Y-%m-%d %H:%M"), str(r.version),
+    rows = [(r.short_id + ("!" if r.problems else ""), r.created_at.strftime("%Y-%m-%d %H:%M"), str(r.version),
              _cut(r.sample_id, 16), _cut(r.substrate, 22), _cut(r.reagent, 12),
              _cut(r.verdict, 18), _cut(r.top_smiles, 24), _fmt_p(r.top_probability))
             for r in records]
     widths = [max(len(h), *(len(row[i]) for row in rows)) for i, h in enumerate(head)]
     line = lambda cells: "  ".join(c.ljust(w) for c, w in zip(cells, widths)).rstrip()  # noqa: E731
-    return "\n".join([line(head), line(["-" * w for w in widths]), *map(line, rows)])
+    lines = [line(head), line(["-" * w for w in widths]), *map(line, rows)]
+    if any(r.problems for r in records):
+        lines.append("! fails its audit check: see 'specmatch history show ID' and "
+                     "'specmatch history verify'")
+    return "\n".join(lines)
 
 
 def record_text(rec: Any, versions: Sequence[Any]) -> str:
     """A saved analysis for reading: what was run, by whom, on which files, and its versions."""
-    out = [
+    broken = [f"v{v.version}: {p}" for v in versions for p in v.problems]
+    out = [f"WARNING: the audit check of this analysis failed ({'; '.join(broken)}); "
+           "run 'specmatch history verify'" ] if broken else []
+    out += [
         f"analysis {rec.id}  (version {rec.version}, {rec.kind})",
         f"  sample        {rec.sample_id or '-'}",
         f"  reaction      {rec.substrate or '-'} + {rec.reagent or '-'}",
@@ -57,16 +52,19 @@ def record_text(rec: Any, versions: Sequence[Any]) -> str:
         f"  run by        {rec.user} at {rec.created_at.isoformat(timespec='seconds')}",
         f"  specmatch     {rec.tool_version}; tables {rec.tables_version or '-'}",
         f"  data SHA-256  {rec.data_sha256}",
+        f"  audit chain   {rec.chain_hash or '-'}"
+        + ("  (linked at upgrade: saved before the chain existed)"
+           if rec.chain_origin == "migration" else ""),
     ]
+    if rec.groups:
+        out.append(f"  shared with   {', '.join(rec.groups)}")
     cands = rec.data.get("candidates") or rec.data.get("ranking") or []
     if cands:
         out.append("  candidates:")
-        from .records import _probability
-
         for i, c in enumerate(cands[:10], 1):
             if isinstance(c, dict):
                 label = c.get("label") or ""
-                out.append(f"    {i:>2}. {_fmt_p(_probability(c)):>6}  {c.get('smiles', '')}"
+                out.append(f"    {i:>2}. {_fmt_p(c.get('probability')):>6}  {c.get('smiles', '')}"
                            + (f"  ({label})" if label else ""))
         if len(cands) > 10:
             out.append(f"    ... {len(cands) - 10} more (see --json)")
@@ -107,62 +105,18 @@ def compare_text(cmp: dict[str, Any]) -> str:
     return "\n".join(out)
 
 
-def run_history(args: Any) -> int:
-    """Entry point of ``specmatch history`` (arguments as built in ``specmatch.cli``)."""
-    from .store import open_store
-
-    action = getattr(args, "action", None)
-    if not action:
-        raise SpecmatchError(HELP)
-    as_json = getattr(args, "json", False)
-    with open_store(getattr(args, "store", None)) as store:
-        if action in ("list", "search"):
-            filters = {}
-            if action == "search":
-                filters = {k: getattr(args, k, None) for k in
-                           ("substrate", "reagent", "verdict", "since", "until", "sample_id")}
-                if not any(filters.values()):
-                    raise SpecmatchError("search needs at least one of --substrate, --reagent, "
-                                         "--verdict, --since, --until, --sample-id (or use 'list')")
-            recs = store.search(**filters, all_versions=args.all_versions, limit=args.limit)
-            if as_json:
-                _dump([{k: v for k, v in r.to_dict().items() if k != "data"} for r in recs])
-            else:
-                print(records_table(recs))
-        elif action == "show":
-            rec = store.get(args.id)
-            versions = store.history(rec.id)
-            if as_json:
-                _dump(store.export_dict(rec.id))
-            else:
-                print(record_text(rec, versions))
-        elif action == "export":
-            text = (store.export_html(args.id) if args.format == "html"
-                    else store.export_json(args.id, include_files=args.include_files))
-            if args.out:
-                try:
-                    with open(args.out, "w", encoding="utf-8") as fh:
-                        fh.write(text)
-                except OSError as exc:
-                    raise SpecmatchError(f"cannot write '{args.out}': {exc.strerror}") from None
-                print(f"written to {args.out}", file=sys.stderr)
-            else:
-                sys.stdout.write(text if text.endswith("\n") else text + "\n")
-        elif action == "compare":
-            cmp = store.compare(args.id_a, args.id_b)
-            _dump(cmp) if as_json else print(compare_text(cmp))
-        elif action == "note":
-            if args.verdict:
-                new = store.correct(args.id, verdict=args.verdict, reason=args.text,
-                                    author=args.author)
-            else:
-                new = store.add_note(args.id, args.text, author=args.author)
-            rec = store.get(new)
-            if as_json:
-                _dump({"id": new, "parent_id": rec.parent_id, "version": rec.version})
-            else:
-                print(f"saved as version {rec.version} ({rec.kind}) {new}; "
-                      f"earlier versions are kept unchanged")
-        else:  # argparse restricts the choices; kept for callers building args by hand
-            raise SpecmatchError(HELP)
-    return 0
+def verify_text(report: Any) -> str:
+    """The outcome of the store's audit check, one line per break."""
+    if report.ok:
+        out = [f"audit trail intact: {report.versions} versions, {report.links} links, "
+               "guard triggers in place"]
+    else:
+        out = [f"AUDIT TRAIL BROKEN: {len(report.problems)} problem"
+               f"{'s' if len(report.problems) != 1 else ''} in {report.versions} versions"]
+        out += [f"  {p}" for p in report.problems]
+    if report.migrated:
+        out.append(f"{report.migrated} versions were saved before the chain existed and were "
+                   "linked when the store was upgraded")
+    out.append(f"head of the chain: {report.head_hash} (note it elsewhere to detect a rewrite "
+               "of the whole tail)")
+    return "\n".join(out)

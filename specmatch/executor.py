@@ -418,16 +418,15 @@ def _drive(pool: Any, fn: Callable, items: Iterable[Any], ordered: bool,
                 results = [(False, f"worker failure ({type(exc).__name__}: {exc})")] * len(idx)
             for i, (ok, value) in zip(idx, results):
                 group_out.append(Outcome(i, ok, value if ok else None, "" if ok else str(value)))
+        if ordered:
+            for o in group_out:
+                buffered[o.index] = o
+            group_out = []
+            while next_out in buffered:
+                group_out.append(buffered.pop(next_out))
+                next_out += 1
+        # after the buffer is flushed: with nothing in flight it is empty, so this
+        # always sends more while items are left
         top_up()
-        if not ordered:
-            if group_out:
-                yield group_out
-            continue
-        for o in group_out:
-            buffered[o.index] = o
-        ready = []
-        while next_out in buffered:
-            ready.append(buffered.pop(next_out))
-            next_out += 1
-        if ready:
-            yield ready
+        if group_out:
+            yield group_out

@@ -142,3 +142,19 @@ def test_run_tasks_keeps_order_and_fails_tasks_alone(plan):
     assert [o.value for o in got if o.ok] == [i * i for i in range(40) if i not in (3, 5)]
     assert got[3].error == "three is refused"
     assert got[5].error == "internal error (KeyError: 'five')"
+
+
+def _slow_head(x: int) -> int:
+    if x == 0:
+        import time as _t
+
+        _t.sleep(1.5)  # the first task holds back the ordered output; the rest pile up
+    return x
+
+
+def test_ordered_output_survives_a_slow_first_task():
+    # this lost the tail of the batch once: the buffer of finished tasks stopped new
+    # submissions and the loop ended with items never sent
+    got = [o.value for group in run_tasks(_slow_head, range(60), Plan("processes", 2), ordered=True)
+           for o in group]
+    assert got == list(range(60))

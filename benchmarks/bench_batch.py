@@ -66,7 +66,7 @@ def rank_sample(row: dict, base_dir: str) -> dict:
     out = ranking.to_dict()
     out["inputs"] = {"substrate": row["substrate"], "reagent": row["reagent"],
                      "solvent": row.get("solvent") or None}
-    out["versions"] = {"specmatch": __version__, "tables": "shipped"}
+    out["versions"] = {"specmatch": __version__, "prediction_tables": "shipped"}
     out["bench_finished_at"] = time.time()  # for the steady-state rate (first to last result)
     return out
 

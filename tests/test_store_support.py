@@ -86,7 +86,7 @@ def result_dict(substrate: str = "C=CC(C)C", reagent: str = "HBr", *,
     return {
         "inputs": {"substrate": substrate, "reagent": reagent, "solvent": "CDCl3",
                    "alcohol": None, "candidates": []},
-        "versions": {"specmatch": __version__, "tables": "13C test-1; 1H test-1",
+        "versions": {"specmatch": __version__, "prediction_tables": "13C test-1; 1H test-1",
                      "error_model": "test"},
         "candidates": [
             {"smiles": top, "canonical_smiles": top, "probability": p_top, "label": "rearranged"},

@@ -58,7 +58,7 @@ def record_text(rec: Any, versions: Sequence[Any]) -> str:
     ]
     if rec.groups:
         out.append(f"  shared with   {', '.join(rec.groups)}")
-    cands = rec.data.get("candidates") or rec.data.get("ranking") or []
+    cands = rec.data.get("candidates") or []
     if cands:
         out.append("  candidates:")
         for i, c in enumerate(cands[:10], 1):

@@ -1099,9 +1099,17 @@ def _check_record(data: Mapping[str, Any], file_hashes: set[str], version: str) 
         raise SpecmatchError(
             f"this is not an analysis result (no {', '.join(missing)}); save what "
             "specmatch.identify() returned (Result.to_dict())")
-    if not isinstance(data["inputs"], Mapping) or not isinstance(data["versions"], Mapping):
-        raise SpecmatchError("this is not an analysis result ('inputs' and 'versions' must be "
-                             "mappings); save Result.to_dict()")
+    verdict, cands = data["verdict"], data["candidates"]
+    if (not isinstance(data["inputs"], Mapping) or not isinstance(data["versions"], Mapping)
+            or not isinstance(verdict, Mapping) or not isinstance(verdict.get("word"), str)
+            or not isinstance(cands, list)
+            or not all(isinstance(c, Mapping) and isinstance(c.get("smiles"), str) for c in cands)):
+        raise SpecmatchError("this is not an analysis result (inputs and versions mappings, a "
+                             "verdict with its word, candidates with their SMILES); save "
+                             "Result.to_dict()")
+    p_top = verdict.get("p_top")
+    if p_top is not None and not isinstance(p_top, (int, float)):
+        raise SpecmatchError("this is not an analysis result: the verdict's p_top is not a number")
     made_by = data["versions"].get("specmatch")
     if made_by != version:
         raise SpecmatchError(
@@ -1121,15 +1129,9 @@ def _check_record(data: Mapping[str, Any], file_hashes: set[str], version: str) 
 
 
 def _candidate_probs(data: Mapping[str, Any]) -> dict[str, float | None]:
-    from .records import _first, _probability
+    from .records import _probability
 
-    out: dict[str, float | None] = {}
-    for c in data.get("candidates") or data.get("ranking") or []:
-        if isinstance(c, Mapping):
-            smi = _first(c, "canonical_smiles", "smiles")
-            if smi:
-                out[str(smi)] = _probability(c)
-    return out
+    return {str(c["smiles"]): _probability(c) for c in data["candidates"]}
 
 
 def _as_utc(value: _dt.datetime | _dt.date | str, *, end: bool) -> _dt.datetime:

@@ -158,3 +158,17 @@ def test_ordered_output_survives_a_slow_first_task():
     got = [o.value for group in run_tasks(_slow_head, range(60), Plan("processes", 2), ordered=True)
            for o in group]
     assert got == list(range(60))
+
+
+def test_predict_and_rank_batches_run_on_the_executor(tmp_path, monkeypatch):
+    """The same lines in the same order, in this process and on two worker processes."""
+    src = tmp_path / "in.smi"
+    src.write_text("CCO\nnot-a-smiles((\n\nCC(C)Br\nC=CC(C)C\n" * 3)
+    outs = []
+    for workers in ("0", "2"):
+        monkeypatch.setenv("SPECMATCH_WORKERS", workers)
+        out = tmp_path / f"out{workers}.jsonl"
+        assert main(["predict", "--batch", str(src), "--out", str(out)]) == 0
+        outs.append(out.read_text().splitlines())
+    assert outs[0] == outs[1] and len(outs[0]) == 15
+    assert '"ok": false' in outs[0][1] and "not a valid SMILES" in outs[0][1]

@@ -138,12 +138,17 @@ def timed(label: str, manifest: Path, folder: Path, runner, **kw) -> tuple[float
     wall = time.perf_counter() - t0
     done, failed = res.count("done"), res.count("failed")
     assert done + failed == len(res.rows)
-    with open_store(f"sqlite:///{store}") as st:
+    with open_store(f"sqlite:///{store}", read_only=True) as st:
         stamps = sorted(r.data["bench_finished_at"] for r in st.search(limit=None))
+        t1 = time.perf_counter()
+        report = st.verify()  # the whole audit trail: every link, file and trigger
+        verify_s = time.perf_counter() - t1
+    assert report.ok, report.problems[:3]
     steady = (len(stamps) - 1) / (stamps[-1] - stamps[0])
     overall = len(res.rows) / wall
     print(f"{label:<28} {len(res.rows):>5} samples  {wall:7.2f} s  {overall:7.1f} samples/s overall"
-          f"  {steady:7.1f} samples/s steady  (done {done}, failed {failed})", flush=True)
+          f"  {steady:7.1f} samples/s steady  (done {done}, failed {failed}); "
+          f"history verify {verify_s:.2f} s for {report.versions} versions", flush=True)
     return overall, steady
 
 

@@ -1331,4 +1331,4 @@ def _read_input(path: Path) -> bytes:
     from .batch import MAX_FILE_BYTES, _read_guarded
 
     return _read_guarded(path, MAX_FILE_BYTES, label=f"'{path}' (to save it with the analysis)",
-                         what="a spectrum")
+                         what="a spectrum file")

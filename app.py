@@ -390,8 +390,15 @@ def spectrum_figure(peaklist: Any, spectrum: Any, full: bool, dept_h: dict[int, 
                         if spectrum.ppm[0] > spectrum.ppm[-1] else float(np.interp(s, spectrum.ppm, spectrum.intensity))
                         for s in compound]
         top = max(comp_heights + [1e-12]) if comp_heights else float(np.max(y[inside])) if inside.any() else 1.0
-        fig.add_trace(go.Scatter(x=x, y=y / top, mode="lines", name="measured spectrum",
-                                 line=dict(color=MEASURED_COLOUR, width=1), hoverinfo="skip"))
+        near = np.zeros_like(x, bool)
+        for p in peaks:  # set-aside lines (solvent, water, reference) drawn pale
+            if p.flag:
+                near |= np.abs(x - p.shift) < (0.05 if nucleus == "1H" else 0.8)
+        for part, colour, label in ((~near, MEASURED_COLOUR, "measured spectrum"),
+                                    (near, FLAGGED_COLOUR, "set-aside lines (solvent, water, reference)")):
+            if part.any():
+                fig.add_trace(go.Scatter(x=x, y=np.where(part, y / top, np.nan), mode="lines", name=label,
+                                         line=dict(color=colour, width=1), hoverinfo="skip"))
     else:
         for flagged in (False, True):
             sel = [p for p in peaks if bool(p.flag) == flagged]
@@ -456,8 +463,15 @@ def overlay_figure(result: Any, nucleus: str, peaklist: Any, spectrum: Any,
         ref = meas[inside & ~flagged_mask]
         scale = float(np.max(ref)) if ref.size and np.max(ref) > 0 else float(np.max(meas)) or 1.0
         x, y = _thin(axis[inside], meas[inside] / scale)
-        fig.add_trace(go.Scatter(x=x, y=np.clip(y, -0.1, 1.1), mode="lines", name="measured spectrum",
-                                 line=dict(color=MEASURED_COLOUR, width=1), hoverinfo="skip"))
+        near = np.zeros_like(x, bool)
+        for p in peaklist.peaks:
+            if p.flag:
+                near |= np.abs(x - p.shift) < (0.05 if nucleus == "1H" else 0.8)
+        for part, colour, label in ((~near, MEASURED_COLOUR, "measured spectrum"),
+                                    (near, FLAGGED_COLOUR, "set-aside lines (solvent, water, reference)")):
+            if part.any():  # NaN breaks the line between the parts
+                fig.add_trace(go.Scatter(x=x, y=np.clip(np.where(part, y, np.nan), -0.1, 1.1), mode="lines",
+                                         name=label, line=dict(color=colour, width=1), hoverinfo="skip"))
     else:
         axis = np.linspace(window[0], window[1], 8000)
         for flagged in (False, True):
@@ -487,7 +501,7 @@ def overlay_figure(result: Any, nucleus: str, peaklist: Any, spectrum: Any,
         fig.add_trace(go.Scatter(x=x, y=y, mode="lines", name=f"predicted: {label}",
                                  line=dict(color=PALETTE[i % len(PALETTE)], width=1.3,
                                            dash=DASHES[i % len(DASHES)])))
-    _layout(fig, nucleus, window, (-1.0, 1.15), height=360)
+    _layout(fig, nucleus, window, (-1.0, 1.15), height=330)
     fig.add_annotation(x=window[1], y=1.1, xanchor="left", text="measured ↑   predicted ↓", showarrow=False,
                        font=dict(size=10, color="#5B616B"))
     return fig
@@ -861,7 +875,7 @@ def verdict_card(result: Any, names: dict) -> None:
         left, right = st.columns([2, 3])
         with left:
             if s.answer:
-                st.image(structure_svg(s.answer, width=420, height=300))
+                st.image(structure_svg(s.answer, width=380, height=240))
                 st.caption(f"SMILES: {s.answer}")
         with right:
             st.markdown(f"### {html.escape(s.headline)}")
@@ -886,12 +900,12 @@ def candidate_cards(result: Any, names: dict) -> None:
     cols = st.columns(4)
     for col, c in zip(cols, show):
         with col, st.container(border=True):
-            st.image(structure_svg(c.smiles, width=220, height=140))
+            st.image(structure_svg(c.smiles, width=200, height=105))
             n = names[c.smiles]
             st.markdown(f"**{n.code}** {html.escape(structure_class(c.smiles))} · **{fmt.percent(c.probability)}**")
             bits = [c.label] if c.label else []
             if c.prior is not None:
-                bits.append(f"expected from the mechanism: {fmt.percent(c.prior)}")
+                bits.append(f"mechanism {fmt.percent(c.prior)}")
             st.caption(" · ".join(bits))
     if len(cands) > 4:
         with st.expander(f"{len(cands) - 4} less likely candidate(s)"):
@@ -924,45 +938,49 @@ def refined_result(result: Any, spectra: dict[str, Any]) -> Any:
 def mixture_panel(result: Any, names: dict, spectra: dict[str, Any]) -> None:
     mix = result.mixture
     h1 = spectra.get("h1")
-    if mix is None and not (h1 and h1.get("spectrum") is not None):
+    can_refine = bool(h1 and h1.get("spectrum") is not None and len(result.ranking.candidates) >= 2)
+    if mix is None and not can_refine:
         return
     st.markdown("#### Product ratio (from 1H)")
     if mix is not None:
+        code = lambda s: names[s].code if s in names else s  # noqa: E731
         pairs = sorted(((f, s, u) for s, f, u in zip(mix.candidates, mix.fractions, mix.uncertainties)
                         if f >= 0.005), reverse=True)
-        code = lambda s: names[s].code if s in names else s  # noqa: E731
+        spread = " · ".join(f"{code(s)} {fmt.percent(f)} ± {fmt.percent(u)}" for f, s, u in pairs)
         if len(pairs) >= 2:
             st.markdown(f"**{':'.join(f'{100 * f:.0f}' for f, _, _ in pairs)}** "
-                        f"({' : '.join(code(s) for _, s, _ in pairs)}) — {mix.selectivity}")
+                        f"({' : '.join(code(s) for _, s, _ in pairs)}) — {mix.selectivity} · {spread}")
         elif pairs:
             st.markdown(f"**{code(pairs[0][1])}** only (no second product above 0.5%) — {mix.selectivity}")
-        st.caption(" · ".join(f"{code(s)} {fmt.percent(f)} ± {fmt.percent(u)}" for f, s, u in pairs))
-        ir = mix.integral_ratio
-        if ir is not None and mix.disagreement:
-            fit = ":".join(f"{100 * f:.0f}" for f in mix.fractions)
-            integ = ":".join(f"{100 * f:.0f}" for f in ir.fractions)
+        if mix.disagreement:  # both values in view: the fit's and the integrals'
+            both = [w for w in mix.warnings if w.startswith("the full fit")]
             order = " : ".join(code(s) for s in mix.candidates)
-            st.warning(f"Two estimates disagree: the fit of the whole spectrum gives {fit}, the integrals "
-                       f"of separated multiplets give {integ} ({order}). Check the assignments; the ratio "
-                       "above is the one the tool trusts more.")
-        with st.expander("How the ratio was obtained"):
+            st.warning((both[0] if both else "the fit and the integrals disagree") + f" (ratios in the order {order}).")
+    left, right = st.columns(2)
+    if mix is not None:
+        with left, st.expander("How the ratio was obtained"):
             st.markdown(f"Method: {mix.method}. Uncertainty: {mix.uncertainty_method}.")
             if mix.selectivity_note:
                 st.markdown(mix.selectivity_note)
             for w in mix.warnings:
                 st.markdown(f"- {w}")
-    if h1 and h1.get("spectrum") is not None and len(result.ranking.candidates) >= 2:
-        cands = [c.smiles for c in result.ranking.candidates]
-        default = [s for s, f in zip(mix.candidates, mix.fractions) if f >= 0.02 and s in cands] if mix else []
-        if len(default) < 2:
-            default = cands[:2]
-        with st.expander("Refine the ratio from the whole 1H trace (a fit of every line; slower)"):
-            kept = [s for s in st.session_state.get("refine_components") or [] if s in cands]
-            if kept:
-                st.session_state["refine_components"] = kept
-            st.multiselect("components to fit", cands, default=None if kept else default[:4],
-                           format_func=lambda s: names[s].full, key="refine_components")
-            st.button("Fit the 1H spectrum", key="refine_btn", on_click=_request_refine)
+    if can_refine:
+        with right:
+            refine_controls(result, names, mix)
+
+
+def refine_controls(result: Any, names: dict, mix: Any) -> None:
+    cands = [c.smiles for c in result.ranking.candidates]
+    default = [s for s, f in zip(mix.candidates, mix.fractions) if f >= 0.02 and s in cands] if mix else []
+    if len(default) < 2:
+        default = cands[:2]
+    with st.expander("Refine the ratio from the whole 1H trace (a fit of every line; slower)"):
+        kept = [s for s in st.session_state.get("refine_components") or [] if s in cands]
+        if kept:
+            st.session_state["refine_components"] = kept
+        st.multiselect("components to fit", cands, default=None if kept else default[:4],
+                       format_func=lambda s: names[s].full, key="refine_components")
+        st.button("Fit the 1H spectrum", key="refine_btn", on_click=_request_refine)
 
 
 def overlays(result: Any, names: dict, spectra: dict[str, Any]) -> None:
@@ -1005,12 +1023,11 @@ def signal_rows(cand: Any, nucleus: str) -> list[dict[str, str]]:
     for r in (cand.c13_table if nucleus == "13C" else cand.h1_table):
         diff = "" if r.observed_ppm is None or r.predicted_ppm is None else fmt.ppm(
             r.observed_ppm - r.predicted_ppm, nucleus)
-        row = {"measured (ppm)": fmt.ppm(r.observed_ppm, nucleus),
-               "predicted (ppm)": fmt.ppm(r.predicted_ppm, nucleus),
-               "measured − predicted (ppm)": diff,
+        row = {"measured": fmt.ppm(r.observed_ppm, nucleus),
+               "predicted": fmt.ppm(r.predicted_ppm, nucleus),
+               "difference": diff,
                "agreement": "" if r.deviation_sigma is None else (
-                   "within the expected error" if abs(r.deviation_sigma) <= 1 else
-                   "fits" if abs(r.deviation_sigma) <= 2 else "poor"),
+                   "good" if abs(r.deviation_sigma) <= 1 else "fair" if abs(r.deviation_sigma) <= 2 else "poor"),
                }
         if nucleus == "13C":
             row["H attached"] = "" if r.hydrogens is None else str(r.hydrogens)
@@ -1037,8 +1054,9 @@ def signal_table(result: Any, names: dict) -> None:
         rows = signal_rows(cand, nucleus)
         if rows:
             with col:
-                st.markdown(f"*{nucleus}* (atoms numbered as in the drawing's SMILES, from 1)")
-                st.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch")
+                st.markdown(f"*{nucleus}*, shifts in ppm; agreement: good = within the prediction's "
+                            "expected error, fair = within twice, poor = beyond")
+                st.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch", height=250)
     with st.expander("Statistics behind the probabilities"):
         stats = [{"candidate": names[c.smiles].code, "probability": fmt.percent(c.probability),
                   "from the spectra alone": fmt.percent(c.probability_spectra),

@@ -52,5 +52,7 @@ def sigma(x: float | None) -> str:
 
 
 def integral(x: float | None) -> str:
-    """A 1H integral in protons, one decimal."""
-    return "" if _missing(x) else f"{float(x):.1f}"
+    """A 1H integral in protons: one decimal, two below 1 H (small impurity multiplets)."""
+    if _missing(x):
+        return ""
+    return f"{float(x):.2f}" if abs(float(x)) < 1 else f"{float(x):.1f}"

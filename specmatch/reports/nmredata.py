@@ -28,6 +28,7 @@ from typing import Any
 
 from .. import __version__
 from ..errors import SpecmatchError
+from ..spectra.model import PeakList
 
 __all__ = ["nmredata_sdf", "write_nmredata", "NMREDATA_VERSION"]
 
@@ -86,24 +87,30 @@ def nmredata_sdf(result: Any, smiles: str | None = None) -> str:
         seen_c[key] = label
         assignment.append(f"{label}, {r.observed_ppm:.2f}, " + ", ".join(str(a + 1) for a in r.atoms))
         c13.append(f"{r.observed_ppm:.2f}, L={label}")
+    h1_pl = result.h1 if isinstance(result.h1, PeakList) else None  # plain lists carry no multiplets
+    c13_pl = result.c13 if isinstance(result.c13, PeakList) else None
     mult_of = {}
-    for m in (result.h1.multiplets if result.h1 is not None else ()):
+    for m in (h1_pl.multiplets if h1_pl is not None else ()):
         mult_of[round(m.shift, 3)] = m
-    n_h = 0
+    signals: dict[Any, dict[str, Any]] = {}  # one 1H signal per observed multiplet
     for r in cand.h1_table:
         if r.observed_ppm is None or r.status not in ("assigned", "overlap") or not r.atoms:
             continue
         hs = [h for a in r.atoms for h in h_on.get(a, [])]
         if not hs:
             continue
-        if r.protons is not None and len(hs) != r.protons:
-            ambiguous = True  # e.g. one of two diastereotopic H of a CH2
-        n_h += 1
-        label = f"H{n_h}"
-        assignment.append(f"{label}, {r.observed_ppm:.3f}, " + ", ".join(str(h + 1) for h in hs))
-        obs = mult_of.get(round(r.observed_ppm, 3))
-        mult = (obs.multiplicity if obs is not None else r.multiplicity) or "m"
-        parts = [f"{r.observed_ppm:.3f}", f"S={mult}", f"N={r.protons or len(hs)}", f"L={label}"]
+        key = r.observed_index if r.observed_index is not None else ("row", len(signals))
+        sig = signals.setdefault(key, {"ppm": r.observed_ppm, "hs": [], "n": 0, "mult": r.multiplicity})
+        sig["hs"] += [h for h in hs if h not in sig["hs"]]
+        sig["n"] += r.protons if r.protons is not None else len(hs)
+    for i, sig in enumerate(signals.values(), 1):
+        if len(sig["hs"]) != sig["n"]:
+            ambiguous = True  # e.g. one of two diastereotopic H of a CH2 on its own line
+        label = f"H{i}"
+        assignment.append(f"{label}, {sig['ppm']:.3f}, " + ", ".join(str(h + 1) for h in sig["hs"]))
+        obs = mult_of.get(round(sig["ppm"], 3))
+        mult = (obs.multiplicity if obs is not None else sig["mult"]) or "m"
+        parts = [f"{sig['ppm']:.3f}", f"S={mult}", f"N={sig['n']}", f"L={label}"]
         if obs is not None and obs.j_hz:
             parts.append("J=" + ",".join(f"{j:.1f}" for j in obs.j_hz))
         h1.append(", ".join(parts))
@@ -111,7 +118,7 @@ def nmredata_sdf(result: Any, smiles: str | None = None) -> str:
         raise SpecmatchError("no measured signal is assigned to this candidate; nothing to export "
                              "(load a 13C or 1H spectrum and score first)")
 
-    mol.SetProp("_Name", cand.label or cand.smiles)
+    mol.SetProp("_Name", cand.canonical_smiles)
     block = Chem.MolToMolBlock(mol)
     solvent = (result.inputs or {}).get("solvent") or ""
     items = [("NMREDATA_VERSION", NMREDATA_VERSION), ("NMREDATA_LEVEL", "1" if ambiguous else "0")]
@@ -123,10 +130,10 @@ def nmredata_sdf(result: Any, smiles: str | None = None) -> str:
     items.append(("NMREDATA_SMILES", cand.canonical_smiles))
     items.append(("NMREDATA_ASSIGNMENT", _lines(assignment)))
     if c13:
-        freq = result.c13.frequency_mhz if result.c13 is not None and result.c13.frequency_mhz else None
+        freq = c13_pl.frequency_mhz if c13_pl is not None and c13_pl.frequency_mhz else None
         items.append(("NMREDATA_1D_13C", _lines(([f"Larmor={freq:.2f}"] if freq else []) + c13)))
     if h1:
-        freq = result.h1.frequency_mhz if result.h1 is not None and result.h1.frequency_mhz else None
+        freq = h1_pl.frequency_mhz if h1_pl is not None and h1_pl.frequency_mhz else None
         items.append(("NMREDATA_1D_1H", _lines(([f"Larmor={freq:.2f}"] if freq else []) + h1)))
     out = [block.rstrip("\n")]
     for name, value in items:

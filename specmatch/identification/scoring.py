@@ -262,7 +262,7 @@ def prepare(smiles: str) -> PreparedCandidate:
 def prepare_c13(smiles: str) -> PreparedCandidate:
     """Like :func:`prepare` but 13C only (no 1H prediction): for batches without 1H,
     where the 1H prediction would be a third of the work for nothing."""
-    from ..prediction.carbon import TABLES_VERSION, predict_carbons
+    from ..prediction.c13.predictor import TABLES_VERSION, predict_carbons
 
     st = parse_structure(smiles)
     carbons, warn = predict_carbons(st)
@@ -461,10 +461,6 @@ def c13_table(cand: PreparedCandidate, obs: ObservedC13, m: NucleusModel) -> lis
 
 
 # ----------------------------------------------------------------------- 1H score
-_MULT_N = {"s": (0,), "d": (1,), "t": (2,), "q": (3,), "quint": (4,), "p": (4,), "sext": (5,),
-           "sept": (6,), "hept": (6,)}
-
-
 def _mult_compatible(obs: str, pred: str) -> bool:
     if not obs or not pred or obs.startswith("m") or pred.startswith("m") or "br" in obs or "br" in pred:
         return True

@@ -57,6 +57,7 @@ from typing import Any
 import numpy as np
 
 from ...errors import SpecmatchError
+from ...prediction.multiplicity import partners_of
 
 #: (minimum major fraction, word), checked in order; common practice
 SELECTIVITY_THRESHOLDS: tuple[tuple[float, str], ...] = (
@@ -452,8 +453,6 @@ def _integral_ratio(regions, cands, weights, fitted_shift_map) -> tuple[Integral
 
 
 # ------------------------------------------------------- observed-multiplet ratio
-#: first-order letters -> number of equivalent partners (n + 1 lines)
-_LETTER_PARTNERS = (("quint", 4), ("sext", 5), ("sept", 6), ("hept", 6), ("d", 1), ("t", 2), ("q", 3), ("s", 0))
 #: couplings below this (Hz) are not resolved at routine line widths (common practice)
 _RESOLVED_J_HZ = 2.5
 #: a multiplet is integrated this far (ppm) beyond its outer lines when the neighbours allow
@@ -469,19 +468,7 @@ MULTIPLET_Z_MAX = 2.0
 
 def _observed_partners(multiplicity: str) -> int | None:
     """Equivalent-partner count of an observed first-order multiplicity ('dq' -> 4); None for m/br."""
-    m = (multiplicity or "").strip().lower()
-    if not m or "m" in m or "br" in m:
-        return None
-    n = 0
-    while m:
-        for letters, partners in _LETTER_PARTNERS:
-            if m.startswith(letters):
-                n += partners
-                m = m[len(letters):]
-                break
-        else:
-            return None
-    return n
+    return partners_of(multiplicity)
 
 
 def _predicted_partners(group) -> int:

@@ -435,7 +435,10 @@ def spectrum_figure(peaklist: Any, spectrum: Any, full: bool, dept_h: dict[int, 
         fig.add_vrect(x0=lo, x1=hi, fillcolor=colour, opacity=0.08 if m.flag else 0.12, line_width=0)
         fig.add_annotation(x=x, y=1.12 + 0.1 * row, text=html.escape(text), showarrow=False,
                            font=dict(size=10, color="#8A9096" if m.flag else PALETTE[0]))
-    _layout(fig, nucleus, window, (-0.05, 1.2 + 0.1 * (max(rows) + 1 if rows else 0)))
+    low = -0.05
+    if spectrum is not None and float(np.min(spectrum.intensity)) < -0.1 * top:  # DEPT-135: CH2 point down
+        low = -1.1
+    _layout(fig, nucleus, window, (low, 1.2 + 0.1 * (max(rows) + 1 if rows else 0)))
     return fig
 
 
@@ -501,7 +504,7 @@ def overlay_figure(result: Any, nucleus: str, peaklist: Any, spectrum: Any,
         fig.add_trace(go.Scatter(x=x, y=y, mode="lines", name=f"predicted: {label}",
                                  line=dict(color=PALETTE[i % len(PALETTE)], width=1.3,
                                            dash=DASHES[i % len(DASHES)])))
-    _layout(fig, nucleus, window, (-1.0, 1.15), height=330)
+    _layout(fig, nucleus, window, (-1.0, 1.15), height=310)
     fig.add_annotation(x=window[1], y=1.1, xanchor="left", text="measured ↑   predicted ↓", showarrow=False,
                        font=dict(size=10, color="#5B616B"))
     return fig
@@ -875,7 +878,7 @@ def verdict_card(result: Any, names: dict) -> None:
         left, right = st.columns([2, 3])
         with left:
             if s.answer:
-                st.image(structure_svg(s.answer, width=380, height=240))
+                st.image(structure_svg(s.answer, width=340, height=210))
                 st.caption(f"SMILES: {s.answer}")
         with right:
             st.markdown(f"### {html.escape(s.headline)}")
@@ -991,7 +994,11 @@ def overlays(result: Any, names: dict, spectra: dict[str, Any]) -> None:
     cands = [c.smiles for c in result.ranking.candidates]
     c1, c2, c3 = st.columns([4, 2, 2])
     with c1:
-        picked = st.multiselect("candidates to overlay", cands, default=cands[:2],
+        mix = result.mixture  # a mixture: overlay its components first
+        first = [s for f, s in sorted(zip(mix.fractions, mix.candidates), reverse=True) if f >= 0.02 and s in cands] \
+            if mix is not None else []
+        default = (first + [s for s in cands if s not in first])[:2]
+        picked = st.multiselect("candidates to overlay", cands, default=default,
                                 format_func=lambda s: names[s].full, key=f"overlay_pick_{_set_key(cands)}")
     with c2:
         if st.session_state.get("overlay_nucleus") not in nuclei:

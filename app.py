@@ -887,7 +887,7 @@ def verdict_card(result: Any, names: dict) -> None:
             if s.mixture:
                 st.markdown(f"**Mixture:** {html.escape(s.mixture)}")
             if s.deciding:
-                st.markdown("**What decided it**\n" + "\n".join(f"- {html.escape(d)}" for d in s.deciding))
+                st.markdown(f"**{s.deciding_title}**\n" + "\n".join(f"- {html.escape(d)}" for d in s.deciding))
             if s.advice:
                 st.markdown(f"**Next:** {html.escape(s.advice)}")
             if not s.strong:
@@ -897,7 +897,8 @@ def verdict_card(result: Any, names: dict) -> None:
 def candidate_cards(result: Any, names: dict) -> None:
     import pandas as pd
 
-    cands = list(result.ranking.candidates)
+    # what is in the sample first (a mixture's minor component before the unlikely pure ones)
+    cands = sorted(result.ranking.candidates, key=lambda c: (-round(c.p_present, 3), -c.probability))
     show = cands[:4]
     st.markdown("#### Candidates")
     cols = st.columns(4)
@@ -905,8 +906,10 @@ def candidate_cards(result: Any, names: dict) -> None:
         with col, st.container(border=True):
             st.image(structure_svg(c.smiles, width=200, height=105))
             n = names[c.smiles]
-            st.markdown(f"**{n.code}** {html.escape(structure_class(c.smiles))} · **{fmt.percent(c.probability)}**")
+            st.markdown(f"**{n.code}** {html.escape(structure_class(c.smiles))} · in the sample "
+                        f"**{fmt.percent(c.p_present)}**")
             bits = [c.label] if c.label else []
+            bits.append(f"if pure {fmt.percent(c.probability)}")
             if c.prior is not None:
                 bits.append(f"mechanism {fmt.percent(c.prior)}")
             st.caption(" · ".join(bits))
@@ -914,7 +917,8 @@ def candidate_cards(result: Any, names: dict) -> None:
         with st.expander(f"{len(cands) - 4} less likely candidate(s)"):
             st.dataframe(pd.DataFrame([{"code": names[c.smiles].code, "product": structure_class(c.smiles),
                                         "pathway": c.label, "SMILES": c.smiles,
-                                        "probability": fmt.percent(c.probability),
+                                        "in the sample": fmt.percent(c.p_present),
+                                        "if pure": fmt.percent(c.probability),
                                         "expected from the mechanism": fmt.percent(c.prior)} for c in cands[4:]]),
                          hide_index=True, width="stretch")
 
@@ -1065,7 +1069,8 @@ def signal_table(result: Any, names: dict) -> None:
                             "expected error, fair = within twice, poor = beyond")
                 st.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch", height=250)
     with st.expander("Statistics behind the probabilities"):
-        stats = [{"candidate": names[c.smiles].code, "probability": fmt.percent(c.probability),
+        stats = [{"candidate": names[c.smiles].code, "in the sample": fmt.percent(c.p_present),
+                  "if pure": fmt.percent(c.probability),
                   "from the spectra alone": fmt.percent(c.probability_spectra),
                   "with the mechanism prior": fmt.percent(c.probability_with_prior),
                   "13C log-likelihood": f"{c.log_likelihood_c13:.1f}",

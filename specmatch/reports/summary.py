@@ -44,6 +44,8 @@ class Summary:
         The product ratio line when the sample is a mixture, else "".
     deciding : tuple of str
         The two or three signals that decided it, in words.
+    deciding_title : str
+        The heading for ``deciding``.
     advice : str
         What to record next, when the verdict is weak.
     strong : bool
@@ -58,6 +60,7 @@ class Summary:
     meaning: str
     mixture: str
     deciding: tuple[str, ...]
+    deciding_title: str
     advice: str
     strong: bool
 
@@ -103,37 +106,69 @@ def signal_words(d: Any, top: str, second: str) -> str:
     return f"{nucleus} {fmt.ppm(d.observed_ppm, nucleus)} ppm: {top} {a}; {second} {b}"
 
 
-def _mixture_line(result: Any, names: dict[str, CandidateName]) -> str:
+def _mixture_line(result: Any, names: dict[str, CandidateName], by_canonical: dict[str, str]) -> str:
+    """The ratio in words: from the 1H estimate when there is one, else the verdict's mixture."""
     mix = result.mixture
-    if mix is None:
-        return ""
-    shown = sorted(((f, s) for s, f in zip(mix.candidates, mix.fractions) if f >= 0.005), reverse=True)
+    if mix is not None:
+        shown = sorted(((f, s) for s, f in zip(mix.candidates, mix.fractions) if f >= 0.005), reverse=True)
+        source = f"from the 1H spectrum; {mix.selectivity}"
+    else:
+        v = result.ranking.verdict
+        if v.kind != "mixture":
+            return ""
+        shown = sorted(((f, by_canonical.get(c, c)) for c, f in zip(v.components, v.fractions)), reverse=True)
+        source = "from the fit of the signals"
     if len(shown) < 2:
         return ""
     ratio = ":".join(f"{100 * f:.0f}" for f, _ in shown)
     who = " : ".join(names[s].code if s in names else s for _, s in shown)
-    return f"{ratio} ({who}) from the 1H spectrum; {mix.selectivity}"
+    return f"{ratio} ({who}) {source}"
 
 
 def summarise(result: Any, names: dict[str, CandidateName] | None = None, limit: int = 3) -> Summary:
-    """The chemist-facing summary of ``result`` (see :class:`Summary`)."""
+    """The chemist-facing summary of ``result`` (see :class:`Summary`).
+
+    Built on the verdict's hypothesis: "pure" names one candidate, "mixture" its
+    components with their shares, "undecided" the top two candidates.
+    """
     names = names if names is not None else names_for_result(result)
     v = result.ranking.verdict
     cands = result.ranking.candidates
-    answer = v.top or ""
-    name = names[answer].full if answer in names else answer
-    strong = v.word in ("decisive", "likely")
-    headline = f"{v.word.capitalize()}: {name}" if answer else v.text
+    by_canonical = {c.canonical_smiles: c.smiles for c in cands}
+    parts = [by_canonical.get(c, c) for c in v.components]
+    full = lambda s: names[s].full if s in names else s  # noqa: E731
+    code = lambda s: names[s].code if s in names else s  # noqa: E731
     n = len(cands)
     basis = "these spectra and the reaction mechanism" if "prior" in v.basis else "these spectra alone"
-    meaning = (f"the chance, judged from {basis}, that {names[answer].code if answer in names else 'it'} "
-               f"is the product, if the product is one of the {n} candidates") if answer and n > 1 else ""
+    word = v.word.capitalize()
+    if v.kind == "mixture" and len(parts) >= 2:
+        answer = parts[0]
+        shares = " and ".join(f"{full(s)} (about {100 * f:.0f}%)" for s, f in zip(parts, v.fractions))
+        headline = f"{word}: a mixture of {shares}"
+        meaning = (f"the chance, judged from {basis}, that the sample is this mixture rather than one "
+                   f"pure product or another mix of the {n} candidates")
+        p = v.p_hypothesis
+    elif v.kind == "pure" and parts:
+        answer = parts[0]
+        headline = f"{word}: {full(answer)}"
+        meaning = (f"the chance, judged from {basis}, that the sample is {code(answer)} alone, "
+                   f"if the product is among the {n} candidates and their mixtures")
+        p = v.p_hypothesis
+    else:
+        answer = v.top or ""
+        second = f" or {full(v.runner_up)}" if v.runner_up else ""
+        headline = f"{word}: {full(answer)}{second}" if answer else v.text
+        meaning = (f"the chance, judged from {basis}, that {code(answer)} is the product if the sample "
+                   f"is one pure candidate of the {n}") if answer and n > 1 else ""
+        p = v.p_top
     deciding: tuple[str, ...] = ()
-    if v.runner_up and answer:
-        top_code = names[answer].code if answer in names else answer
-        sec_code = names[v.runner_up].code if v.runner_up in names else v.runner_up
-        deciding = tuple(signal_words(d, top_code, sec_code) for d in result.ranking.discriminating[:limit])
-    return Summary(answer=answer, answer_name=name, word=v.word, headline=headline,
-                   probability=fmt.percent(v.p_top) if answer else "", meaning=meaning,
-                   mixture=_mixture_line(result, names), deciding=deciding, advice=v.advice or "",
-                   strong=strong)
+    title = "What decided it"
+    if v.top and v.runner_up:
+        title = (f"Signals that tell {code(v.top)} from {code(v.runner_up)}" if v.kind == "mixture"
+                 else "What decided it")
+        deciding = tuple(signal_words(d, code(v.top), code(v.runner_up))
+                         for d in result.ranking.discriminating[:limit])
+    return Summary(answer=answer, answer_name=full(answer) if answer else "", word=v.word, headline=headline,
+                   probability=fmt.percent(p) if answer and n > 1 else "", meaning=meaning,
+                   mixture=_mixture_line(result, names, by_canonical), deciding=deciding, deciding_title=title,
+                   advice=v.advice or "", strong=v.word in ("decisive", "likely"))

@@ -881,7 +881,7 @@ def verdict_card(result: Any, names: dict) -> None:
                 st.image(structure_svg(s.answer, width=340, height=210))
                 st.caption(f"SMILES: {s.answer}")
         with right:
-            st.markdown(f"### {html.escape(s.headline)}")
+            st.markdown(f"#### {html.escape(s.headline)}")
             if s.probability:
                 st.markdown(f"**{s.probability}** — {s.meaning}.")
             if s.mixture:
@@ -1065,9 +1065,10 @@ def signal_table(result: Any, names: dict) -> None:
         rows = signal_rows(cand, nucleus)
         if rows:
             with col:
-                st.markdown(f"*{nucleus}*, shifts in ppm; agreement: good = within the prediction's "
-                            "expected error, fair = within twice, poor = beyond")
+                st.markdown(f"*{nucleus}* (shifts in ppm)")
                 st.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch", height=250)
+    st.caption("agreement: good = within the prediction's expected error, fair = within twice that, "
+               "poor = beyond; atoms numbered from 1 in SMILES order")
     with st.expander("Statistics behind the probabilities"):
         stats = [{"candidate": names[c.smiles].code, "in the sample": fmt.percent(c.p_present),
                   "if pure": fmt.percent(c.probability),

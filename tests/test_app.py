@@ -52,7 +52,7 @@ def _answer(at: AppTest) -> str:
 
 
 def _headline(at: AppTest) -> str:
-    hits = [m for m in _values(at.markdown) if m.startswith("### ")]
+    hits = [m for m in _values(at.markdown) if m.startswith("#### ") and ":" in m]
     return hits[0] if hits else ""
 
 

@@ -138,7 +138,7 @@ def test_demo_in_headless_chromium(server, tmp_path):
         try:
             page = browser.new_page(viewport={"width": 1400, "height": 1000})
             answer = _load_demo(page, server)
-            headline = page.locator("h3").filter(has_text=re.compile(r"^(Decisive|Likely|Tentative|Cannot)")).first
+            headline = page.locator("h4").filter(has_text=re.compile(r"^(Decisive|Likely|Tentative|Cannot)")).first
             headline.wait_for(timeout=30_000)
             ratio_text = page.locator("[data-testid='stMarkdownContainer'] strong").filter(
                 has_text=re.compile(r"^\d{1,3}:\d{1,3}$")).first.inner_text(timeout=30_000)

@@ -75,3 +75,21 @@ def test_another_candidate_and_errors(result, tmp_path):
     assert Chem.MolToSmiles(Chem.RemoveHs(mol)) == "CCCCBr"
     with pytest.raises(SpecmatchError, match="not one of the ranked candidates"):
         nmredata_sdf(result, "CCO")
+
+
+def test_identify_writes_nmredata_from_the_command_line(tmp_path):
+    import subprocess
+    import sys
+
+    c13 = tmp_path / "c13.csv"
+    c13.write_text("# nmrshiftdb2 10007822 (2-bromobutane)\nshift_ppm,intensity\n"
+                   + "".join(f"{s},1.0\n" for s in C13), encoding="utf-8")
+    cands = tmp_path / "cands.smi"
+    cands.write_text("CCCCBr\nCCC(C)Br\n", encoding="utf-8")
+    out = tmp_path / "top.sdf"
+    p = subprocess.run([sys.executable, "-m", "specmatch", "identify", "--candidates", str(cands),
+                        "--c13", str(c13), "--nmredata", str(out)], capture_output=True, text=True, timeout=300)
+    assert p.returncode == 0, p.stderr
+    mol = next(iter(Chem.SDMolSupplier(str(out), removeHs=False)))
+    assert Chem.MolToSmiles(Chem.RemoveHs(mol)) == Chem.CanonSmiles("CCC(C)Br")
+    assert mol.HasProp("NMREDATA_ASSIGNMENT") and mol.HasProp("NMREDATA_1D_13C")

@@ -143,7 +143,8 @@ def summarise(result: Any, names: dict[str, CandidateName] | None = None, limit:
     word = v.word.capitalize()
     if v.kind == "mixture" and len(parts) >= 2:
         answer = parts[0]
-        shares = " and ".join(f"{full(s)} (about {100 * f:.0f}%)" for s, f in zip(parts, v.fractions))
+        short = lambda s: names[s].short if s in names else s  # noqa: E731
+        shares = " and ".join(f"{short(s)} (about {100 * f:.0f}%)" for s, f in zip(parts, v.fractions))
         headline = f"{word}: a mixture of {shares}"
         meaning = (f"the chance, judged from {basis}, that the sample is this mixture rather than one "
                    f"pure product or another mix of the {n} candidates")

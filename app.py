@@ -33,7 +33,7 @@ from specmatch.reports.exports import assignments_csv, result_json
 from specmatch.reports.html import report_html, structure_svg as draw_structure
 from specmatch.reports.naming import structure_class
 from specmatch.reports.nmredata import nmredata_sdf
-from specmatch.reports.peaktext import measured_peak_text
+from specmatch.reports.journal_text import measured_peak_text
 from specmatch.reports.summary import fit_words, names_for_result, summarise
 from specmatch.spectra import peaks_from_file, process_spectrum, read_spectrum
 from specmatch.spectra.solvents import SOLVENTS

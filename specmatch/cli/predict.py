@@ -12,7 +12,7 @@ from ._common import _open_out, _print_json, _progress, _read_lines
 
 def cmd_predict(args: argparse.Namespace) -> int:
     from ..prediction import predict
-    from ..reports.prediction_text import prediction_table
+    from ..reports.tables_text import prediction_table
 
     if args.batch:
         if not args.out:

@@ -202,6 +202,9 @@ def load_demo() -> None:
     except SpecmatchError:
         choice = case.reagent
     previous = {role: f for role, f in st.session_state["files"].items()}
+    st.session_state["before_demo"] = {  # one click brings the user's own inputs back
+        **{k: st.session_state.get(k) for k in REACTION_KEYS}, "files": dict(st.session_state["files"]),
+        "edits": dict(st.session_state["edits"])}
     st.session_state.update({
         "substrate": case.substrate, "alcohol": case.alcohol or "", "solvent": case.solvent,
         "reagent_choice": choice if choice in names else None,
@@ -210,6 +213,19 @@ def load_demo() -> None:
         "seen_uploads": {}, "analyse": True, "demo_key": case.key, "saved_id": None,
         "demo_error": None, "refine": False, "save_sample": case.sample_id, "view": "Results",
     })
+
+
+REACTION_KEYS = ("substrate", "reagent_choice", "reagent_text", "alcohol", "own_candidates", "solvent")
+
+
+def undo_demo() -> None:
+    """Put back every input as it was before "Load the demo"."""
+    before = st.session_state.pop("before_demo", None)
+    if before is None:
+        return
+    st.session_state["previous"] = dict(st.session_state["files"])
+    st.session_state.update({**{k: before[k] for k in REACTION_KEYS}, "files": before["files"],
+                             "edits": before["edits"], "demo_key": None, "refused": {}, "removed": {}})
 
 
 def _upload_id(up: Any) -> str:
@@ -637,6 +653,8 @@ def sidebar() -> None:
         st.button("Load the demo", type="primary", on_click=load_demo, key="load_demo", width="stretch")
         if st.session_state.get("demo_error"):
             st.error(st.session_state["demo_error"])
+        if st.session_state.get("before_demo") is not None:
+            st.button("Undo: my inputs as before the demo", on_click=undo_demo, key="undo_demo", width="stretch")
         if st.session_state.get("demo_key"):
             try:
                 st.caption(demo_case(st.session_state["demo_key"]).description)

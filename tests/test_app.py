@@ -326,3 +326,14 @@ def test_alcohol_box_appears_for_a_reagent_that_needs_one(app):
     assert not app.exception, app.exception
     products = [e.value for e in app.dataframe if "SMILES" in e.value.columns and "prior" in e.value.columns]
     assert products and any("OCC" in s or "CCO" in s for s in products[0]["SMILES"]), products
+
+
+def test_undo_the_demo_restores_the_users_own_inputs(app):
+    _go(app, "Reaction")
+    app.text_input(key="substrate").set_value("C=CC(C)(C)C").run()
+    _load_demo(app)
+    assert app.session_state["substrate"] == demo_case("a").substrate
+    app.button(key="undo_demo").click().run()
+    assert not app.exception, app.exception
+    assert app.session_state["substrate"] == "C=CC(C)(C)C"
+    assert app.session_state["files"] == {}

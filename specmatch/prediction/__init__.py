@@ -10,6 +10,7 @@ from functools import lru_cache
 
 from ..structures import Structure, parse_structure
 from .model import CarbonShift, Prediction, ProtonGroup
+from .stereo import needs_stereo_layer
 
 __all__ = ["CarbonShift", "Prediction", "ProtonGroup", "predict", "predict_structure"]
 
@@ -21,7 +22,7 @@ def predict_structure(structure: Structure) -> Prediction:
 
     carbons, c_warn = predict_carbons(structure)
     protons, h_warn = predict_protons(structure)
-    return Prediction(
+    prediction = Prediction(
         smiles=structure.smiles,
         canonical_smiles=structure.canonical_smiles,
         carbons=tuple(carbons),
@@ -29,6 +30,12 @@ def predict_structure(structure: Structure) -> Prediction:
         warnings=tuple(dict.fromkeys([*c_warn, *h_warn])),
         tables_version=f"13C {C_VERSION}; 1H {H_VERSION}",
     )
+    if needs_stereo_layer(structure):
+        # relative configuration specified and relevant: 3D ensemble layer (prediction/stereo.py)
+        from .stereo import apply_stereo_layer
+
+        prediction = apply_stereo_layer(structure, prediction)
+    return prediction
 
 
 @lru_cache(maxsize=8192)

@@ -3,7 +3,7 @@
 The n+1 rule with equal-J merging: partner sets whose coupling constants agree
 within a tolerance are merged (their proton counts add), then each remaining
 coupling contributes one letter. Patterns outside the usual vocabulary (s, d, t,
-q, quint, sext, sept, dd, dt, td, ddd) are reported as "m".
+q, quint, sext, sept, dd, dt, td, tt, dq, qd, tq, qt, ddd) are reported as "m".
 """
 
 from __future__ import annotations
@@ -18,7 +18,8 @@ MERGE_TOLERANCE_HZ = 1.5
 MIN_RESOLVED_J_HZ = 0.8
 
 _SIMPLE = {0: "s", 1: "d", 2: "t", 3: "q", 4: "quint", 5: "sext", 6: "sept"}
-_TWO = {(1, 1): "dd", (1, 2): "dt", (2, 1): "td"}
+_TWO = {(1, 1): "dd", (1, 2): "dt", (2, 1): "td", (2, 2): "tt", (1, 3): "dq", (3, 1): "qd",
+        (2, 3): "tq", (3, 2): "qt"}
 
 
 def merge_couplings(

@@ -586,6 +586,41 @@ def _cation_energy_at(ctx: Context, a: int, b: int, electrophile: str = "H") -> 
     return make_intermediate(m, b).energy if m is not None else math.inf
 
 
+_ONIUM = {"Br": "bromonium", "Cl": "chloronium", "I": "iodonium", "Hg": "mercurinium"}
+
+
+def _new_neighbour(product: Chem.Mol, atom: int, n_sub: int) -> int | None:
+    """The atom the addition bonded to `atom` (indices >= n_sub are new), or None for H."""
+    return next((n.GetIdx() for n in product.GetAtomWithIdx(atom).GetNeighbors() if n.GetIdx() >= n_sub), None)
+
+
+def _stereospecific(ctx: Context, product: Chem.Mol, a: int, b: int, *, syn: bool
+                    ) -> list[tuple[Chem.Mol, float, list[str]]]:
+    """Products of a syn or anti addition across a=b with their configuration set.
+
+    One product when the alkene geometry is fixed (E/Z given, or a ring); both diastereomers,
+    half each, when the alkene is stereogenic but its configuration was not given.
+    """
+    from .stereo import add_faces, alkene_is_stereogenic, cis_pairs
+
+    n_sub = ctx.sub.GetNumAtoms()
+    na, nb = _new_neighbour(product, a, n_sub), _new_neighbour(product, b, n_sub)
+    cis = cis_pairs(ctx.sub, a, b)
+    if cis is not None:
+        return [(add_faces(product, ctx.sub, a, b, na, nb, syn=syn, cis=cis), 1.0, [])]
+    if not alkene_is_stereogenic(ctx.sub, a, b):
+        return [(product, 1.0, [])]
+    sa = [n.GetIdx() for n in ctx.sub.GetAtomWithIdx(a).GetNeighbors() if n.GetIdx() != b]
+    sb = [n.GetIdx() for n in ctx.sub.GetAtomWithIdx(b).GetNeighbors() if n.GetIdx() != a]
+    where = f"{lab(ctx.sub, a)}={lab(ctx.sub, b)}"
+    out = []
+    for geo, pairs in (("Z", [(sa[0], sb[0])]), ("E", [])):
+        note = (f"the configuration of {where} is not given: this is the product of the {geo}-alkene "
+                "(write it in the SMILES, e.g. C/C=C/C for E, to keep one)")
+        out.append((add_faces(product, ctx.sub, a, b, na, nb, syn=syn, cis=pairs), 0.5, [note]))
+    return out
+
+
 def _hydroboration(ctx: Context) -> list[Outcome]:
     par = ctx.par["hydroboration"]
     out = []
@@ -605,11 +640,15 @@ def _hydroboration(ctx: Context) -> list[Outcome]:
             label = ("hydroboration alcohol" if equal else
                      "anti-Markovnikov alcohol (no rearrangement)" if anti else "Markovnikov alcohol (minor regioisomer)")
             flags = set() if equal or not anti else {"anti-Markovnikov"}
-            steps = [f"syn addition of H-BH2 across {lab(ctx.sub, a)}={lab(ctx.sub, b)}: B to {lab(ctx.sub, x)} "
-                     f"(less hindered carbon{'' if anti else ': minor orientation'}), H to {lab(ctx.sub, y)}",
+            where = ("" if equal else " (the less hindered carbon)" if anti
+                     else " (the more hindered carbon: minor orientation)")
+            steps = [f"syn addition of H-BH2 across {lab(ctx.sub, a)}={lab(ctx.sub, b)}: B to {lab(ctx.sub, x)}"
+                     f"{where}, H to {lab(ctx.sub, y)}",
                      f"H2O2/NaOH: C-B to C-OH with retention at {lab(ctx.sub, x)}"]
-            out.append(Outcome(m, sw / st * w / (wa + wb), label, steps, flags,
-                               ["syn addition of H and OH (same face); no carbocation, no rearrangement"]))
+            for mol, frac, extra in _stereospecific(ctx, m, x, y, syn=True):
+                out.append(Outcome(mol, sw / st * w / (wa + wb) * frac, label, list(steps), set(flags),
+                                   ["syn addition of H and OH (same face); no carbocation, no rearrangement",
+                                    *extra]))
     return out
 
 
@@ -624,7 +663,8 @@ def _oxymercuration(ctx: Context) -> list[Outcome]:
 
 
 def _opening(ctx: Context, electrophile: str, nu_group: str, alpha: float, word: str, step1: str,
-             step2: str | None, note: str, share: float = 1.0, halide_share: float = 0.0) -> list[Outcome]:
+             step2: str | None, note: str, share: float = 1.0, halide_share: float = 0.0,
+             anti: bool = False) -> list[Outcome]:
     """Bridged-ion additions (mercurinium, halonium): regiochemistry from the cation scale, anti, no shifts."""
     out: list[Outcome] = []
     bonds = alkene_bonds(ctx.sub)
@@ -649,7 +689,10 @@ def _opening(ctx: Context, electrophile: str, nu_group: str, alpha: float, word:
                  f"(cation there would be {_kcal(e)})"]
         if step2:
             steps.append(step2)
-        out.append(Outcome(m, share * w / tot, label, steps, set() if markov else {"anti-Markovnikov"}, [note]))
+        made = _stereospecific(ctx, m, x, y, syn=False) if anti else [(m, 1.0, [])]
+        for mol, frac, extra in made:
+            out.append(Outcome(mol, share * w / tot * frac, label, list(steps),
+                               set() if markov else {"anti-Markovnikov"}, [note, *extra]))
     return out
 
 
@@ -685,8 +728,8 @@ def _halogen_addition(ctx: Context, in_water: bool) -> list[Outcome]:
     out = []
     if in_water:
         out += _opening(ctx, x, "OH", par["alpha_halonium"], "halohydrin",
-                        f"{x}onium ion (bridged); water opens it at the carbon that best carries + charge",
-                        None, "anti addition of X and OH; no rearrangement", share=1.0 - hal_share)
+                        f"bridged {_ONIUM[x]} ion; water opens it at the carbon that best carries + charge",
+                        None, "anti addition of X and OH; no rearrangement", share=1.0 - hal_share, anti=True)
         for o in out:
             o.label = o.label.replace("Markovnikov halohydrin", "halohydrin, OH on the more substituted carbon") \
                 if "anti-" not in o.label else "halohydrin, OH on the less substituted carbon (minor)"
@@ -699,19 +742,19 @@ def _halogen_addition(ctx: Context, in_water: bool) -> list[Outcome]:
         if m is None:
             continue
         label = f"vicinal di{'chloride' if x == 'Cl' else 'bromide' if x == 'Br' else 'iodide'} (anti addition)"
-        notes = ["anti addition (bridged halonium ion); no rearrangement"]
+        notes = [f"anti addition (bridged {_ONIUM[x]} ion); no rearrangement"]
         stereo = ctx.sub.GetBondBetweenAtoms(a, b).GetStereo()
         if stereo in (Chem.BondStereo.STEREOZ, Chem.BondStereo.STEREOCIS):
-            notes.append("anti addition to the Z-alkene: the racemic threo pair (cis-but-2-ene gives "
+            notes.append("anti addition to the Z-alkene gives the racemic pair (cis-but-2-ene gives "
                          "(2R,3R)/(2S,3S)-2,3-dibromobutane)")
         elif stereo in (Chem.BondStereo.STEREOE, Chem.BondStereo.STEREOTRANS):
-            notes.append("anti addition to the E-alkene: the erythro isomer (meso when both ends are alike: "
-                         "trans-but-2-ene gives meso-2,3-dibromobutane)")
+            notes.append("anti addition to the E-alkene (trans-but-2-ene gives meso-2,3-dibromobutane)")
         if in_water:
             label += ": halide competes with water"
-        out.append(Outcome(m, hal_share * w / sum(ws), label,
-                           [f"{x}+ adds to {lab(ctx.sub, a)}={lab(ctx.sub, b)}: bridged {x}onium ion",
-                            f"{_HALIDE_NAME[x]} opens it anti"], set(), notes))
+        for mol, frac, extra in _stereospecific(ctx, m, a, b, syn=False):
+            out.append(Outcome(mol, hal_share * w / sum(ws) * frac, label,
+                               [f"{x}+ adds to {lab(ctx.sub, a)}={lab(ctx.sub, b)}: bridged {_ONIUM[x]} ion",
+                                f"{_HALIDE_NAME[x]} opens it anti"], set(), notes + extra))
     return out
 
 
@@ -756,21 +799,30 @@ _STEREO_CLASS_NOTES = {
 
 
 def _stereo_notes(product: Chem.Mol, sub_counts: tuple[int, int], sub_chiral: bool, cls: str,
-                  flags: set[str]) -> list[str]:
-    tet, dbl = _stereo_count(product)
+                  flags: set[str], conf) -> list[str]:
+    """Stereochemical notes that agree with the candidate's own configuration."""
+    from .stereo import relation_matters, stereo_info
+
+    spec, unspec, dbl = stereo_info(product)
+    tet = len(spec) + len(unspec)
     notes = []
     new = tet - sub_counts[0]
-    if new > 0:
-        if sub_chiral:
-            notes.append(f"{new} new stereocentre(s) next to an existing one: diastereomers, usually unequal")
-        elif new == 1 and tet == 1:
-            notes.append("new stereocentre: formed racemic (both enantiomers equally)")
-        elif new == 1:
-            notes.append("new stereocentre: racemic; diastereomers possible with the other stereo element(s)")
-        else:
-            notes.append(f"{new} new stereocentres: racemic, diastereomers possible")
-    elif tet >= 2:
-        notes.append("diastereomers possible")
+    if conf is not None and conf.meso:
+        notes.append("meso compound (achiral): one stereoisomer")
+    elif conf is not None and conf.racemic and not unspec and "either face" in flags:
+        notes.append(f"formed {conf.words} (both enantiomers equally)")
+    elif conf is not None and conf.racemic and not unspec:
+        notes.append(f"relative configuration fixed by the mechanism; formed {conf.words} "
+                     "(both enantiomers equally)")
+    elif new > 0 and sub_chiral:
+        notes.append(f"{new} new stereocentre(s) next to an existing one: diastereomers, usually unequal")
+    elif tet == 1 and new == 1:
+        notes.append("new stereocentre: formed racemic (both enantiomers equally)")
+    elif tet >= 2 and unspec and not relation_matters(product):
+        notes.append("diastereomers possible; their predicted spectra coincide, so they are not listed "
+                     "separately")
+    elif tet >= 2 and unspec:
+        notes.append("diastereomers possible (configuration not fixed here)")
     if dbl > 0:
         notes.append("E/Z isomers possible (E usually favoured for open-chain alkenes)")
     if cls in _STEREO_CLASS_NOTES and tet >= 2 and "E1 by-product" not in flags:
@@ -778,25 +830,86 @@ def _stereo_notes(product: Chem.Mol, sub_counts: tuple[int, int], sub_chiral: bo
     return notes
 
 
+def _expand_faces(ctx: Context, outcomes: list[Outcome], sub_chiral: bool) -> list[Outcome]:
+    """Split products with unassigned stereocentres into diastereomers where it matters.
+
+    A planar cation (or the NaBH4 step of oxymercuration) sets a centre from either face, so
+    each diastereomer gets its statistical share (common practice: no directing group).
+    """
+    from .stereo import enumerate_unassigned, relation_matters
+
+    out = []
+    for o in outcomes:
+        if "unreacted substrate" in o.flags or not relation_matters(o.mol):
+            out.append(o)
+            continue
+        split = enumerate_unassigned(o.mol, substrate_chiral=sub_chiral)
+        if split is None:
+            out.append(o)
+            continue
+        for mol, frac in split:
+            note = f"one of {len(split)} diastereomers formed on either face ({frac:.0%} of this constitution)"
+            out.append(Outcome(mol, o.weight * frac, o.label, list(o.pathway), set(o.flags) | {"either face"},
+                               [*o.notes, note]))
+    return out
+
+
+def _key(mol: Chem.Mol, sub_chiral: bool):
+    """Merge key: canonical isomeric SMILES when a configuration is set, else the constitution."""
+    from .stereo import describe, stereo_info
+
+    spec, _unspec, _ = stereo_info(mol)
+    if not spec:
+        return csmiles(mol), None
+    conf = describe(mol, substrate_chiral=sub_chiral)
+    return conf.smiles, conf
+
+
+def _substrate_stereo(sub: Chem.Mol) -> tuple[str, ...]:
+    """E/Z of each specified C=C and R/S of each specified centre, in substrate numbering."""
+    from rdkit.Chem import rdCIPLabeler
+
+    m = Chem.Mol(sub)
+    try:
+        rdCIPLabeler.AssignCIPLabels(m)
+    except Exception:  # descriptors are a courtesy in the header; never fail on them
+        return ()
+    out = []
+    for b in m.GetBonds():
+        if b.HasProp("_CIPCode"):
+            out.append(f"{lab(m, b.GetBeginAtomIdx())}={lab(m, b.GetEndAtomIdx())} {b.GetProp('_CIPCode')}")
+    for a in m.GetAtoms():
+        if a.HasProp("_CIPCode"):
+            out.append(f"{lab(m, a.GetIdx())} {a.GetProp('_CIPCode')}")
+    return tuple(out)
+
+
 def _finalise(ctx: Context, outcomes: list[Outcome], substrate_input: str, alcohol: str | None) -> Enumeration:
     cand = ctx.par["candidates"]
-    sub_key = csmiles(ctx.sub)
+    sub_chiral = any(a.GetChiralTag() != Chem.ChiralType.CHI_UNSPECIFIED for a in ctx.sub.GetAtoms())
+    sub_key = Chem.MolToSmiles(ctx.sub)
     total = sum(o.weight for o in outcomes)
     if total <= 0:
         raise SpecmatchError("no product could be formed from this substrate with this reagent")
     w_unreacted = cand["unreacted_substrate"]
+    outcomes = _expand_faces(ctx, outcomes, sub_chiral)
     merged: dict[str, list[Outcome]] = {}
+    confs: dict[str, object] = {}
     for o in outcomes:
         o.weight = o.weight / total * (1.0 - w_unreacted)
-        merged.setdefault(csmiles(o.mol), []).append(o)
+        key, conf = _key(o.mol, sub_chiral)
+        if csmiles(o.mol) == csmiles(ctx.sub) and conf is None:
+            key = sub_key
+        merged.setdefault(key, []).append(o)
+        confs[key] = conf
     merged.setdefault(sub_key, []).append(
         Outcome(ctx.sub, w_unreacted, "unreacted substrate", ["no reaction (incomplete conversion)"],
                 {"unreacted substrate"}))
+    confs.setdefault(sub_key, None)
     if len(merged) > cand["max_candidates"]:
         raise SpecmatchError(f"the enumeration gives {len(merged)} candidates, more than the cap of "
                              f"{cand['max_candidates']}; use a smaller --max-shifts")
     sub_counts = _stereo_count(ctx.sub)
-    sub_chiral = any(a.GetChiralTag() != Chem.ChiralType.CHI_UNSPECIFIED for a in ctx.sub.GetAtoms())
     rows = []
     for key, lst in merged.items():
         lst.sort(key=lambda o: -o.weight)
@@ -817,15 +930,18 @@ def _finalise(ctx: Context, outcomes: list[Outcome], substrate_input: str, alcoh
             # a product is only 'rearranged'/'other conditions' if its main route is
             if any("other conditions" not in o.flags for o in lst):
                 flags.discard("other conditions")
-            if key != sub_key:
-                notes += _stereo_notes(best.mol, sub_counts, sub_chiral, ctx.cls, flags)
-        smiles = Chem.MolToSmiles(Chem.MolFromSmiles(key), isomericSmiles=False)
-        rows.append([smiles, best.label, tuple(best.pathway), w, flags, tuple(dict.fromkeys(notes))])
+            notes += _stereo_notes(best.mol, sub_counts, sub_chiral, ctx.cls, flags, confs[key])
+        conf = confs[key]
+        smiles = key if conf is not None else Chem.MolToSmiles(Chem.MolFromSmiles(key), isomericSmiles=False)
+        if key == sub_key:
+            smiles = sub_key
+        rows.append([smiles, best.label, tuple(best.pathway), w, flags, tuple(dict.fromkeys(notes)),
+                     csmiles(best.mol), conf])
     floor = cand["floor"]
     tot = sum(max(r[3], floor) for r in rows)
     top = max(max(r[3], floor) / tot for r in rows)
     cands = []
-    for smiles, label, path, w, flags, notes in rows:
+    for smiles, label, path, w, flags, notes, constitution, conf in rows:
         prior = max(w, floor) / tot
         if w < cand["not_expected_below"]:
             role = "not expected under these conditions"
@@ -835,7 +951,9 @@ def _finalise(ctx: Context, outcomes: list[Outcome], substrate_input: str, alcoh
             role = "minor"
         else:
             role = "trace"
-        cands.append(Candidate(smiles, label, path, prior, role, tuple(sorted(flags)), notes, w))
+        cands.append(Candidate(smiles, label, path, prior, role, tuple(sorted(flags)), notes, w,
+                               constitution=constitution, racemic=bool(conf is not None and conf.racemic),
+                               configuration=conf.words if conf is not None else ""))
     cands.sort(key=lambda c: (-c.prior, c.smiles))
     model = "empirical cation scale (specmatch/reactions/data)"
     if ctx.cls in {"hydroboration", "oxymercuration", "halogenation", "halohydrin", "hx_radical"}:
@@ -843,7 +961,8 @@ def _finalise(ctx: Context, outcomes: list[Outcome], substrate_input: str, alcoh
     if ctx.use_xtb:
         model += (f" + GFN2-xTB (tblite) for {ctx.xtb_used[0]} close cation(s)" if ctx.xtb_used[0]
                   else "; GFN2-xTB requested but no close cation pair needed it")
-    return Enumeration(substrate=Chem.MolToSmiles(Chem.MolFromSmiles(sub_key), isomericSmiles=False),
+    return Enumeration(substrate=Chem.MolToSmiles(Chem.MolFromSmiles(sub_key)),
+                       substrate_stereo=_substrate_stereo(ctx.sub),
                        reagent=ctx.reagent, candidates=tuple(cands), warnings=tuple(dict.fromkeys(ctx.warnings)),
                        model=model, alcohol=alcohol, reaction_class=ctx.cls, substrate_input=substrate_input,
                        safety=ctx.reagent.safety)

@@ -819,8 +819,8 @@ def _stereo_notes(product: Chem.Mol, sub_counts: tuple[int, int], sub_chiral: bo
     elif tet == 1 and new == 1:
         notes.append("new stereocentre: formed racemic (both enantiomers equally)")
     elif tet >= 2 and unspec and not relation_matters(product):
-        notes.append("diastereomers possible; their predicted spectra coincide, so they are not listed "
-                     "separately")
+        notes.append("open-chain diastereomers (erythro/threo) both form from the planar cation; listed "
+                     "together as one candidate")
     elif tet >= 2 and unspec:
         notes.append("diastereomers possible (configuration not fixed here)")
     if dbl > 0:

@@ -33,6 +33,7 @@ MAX_ENUMERATED_CENTRES = 4
 def _fresh(mol: Chem.Mol) -> Chem.Mol:
     m = Chem.Mol(mol)
     m.ClearComputedProps()  # RDKit caches stereo perception; recompute after tag edits
+    Chem.GetSSSR(m)
     return m
 
 
@@ -209,12 +210,20 @@ def enumerate_unassigned(mol: Chem.Mol, *, substrate_chiral: bool) -> list[tuple
 
 
 def relation_matters(mol: Chem.Mol) -> bool:
-    """The same gate as the prediction's 3D layer: two stereocentres with one on a ring, or
-    two bonded to each other. Elsewhere diastereomers would get identical predictions."""
+    """True when diastereomers from capture on either face are listed separately: two or more
+    stereocentres, at least one on a ring (cis/trans isomers, whose spectra differ clearly).
+
+    Open-chain diastereomer pairs from a free cation (erythro/threo) stay one candidate with a
+    note: their spectra differ little and a planar cation gives both. Stereospecific additions
+    (anti/syn) still define open-chain configurations such as meso/dl.
+    """
     spec, unspec, _ = stereo_info(mol)
     centres = spec + unspec
-    if len(centres) < 2:
+    mol = Chem.Mol(mol)
+    Chem.GetSSSR(mol)  # ring perception may have been cleared with the cached stereo
+    ri = mol.GetRingInfo()
+    if any(ri.NumAtomRings(i) > 1 for i in centres):
+        # bridged/fused centres: most tag combinations are impossible rings (an inverted
+        # bridgehead); exo/endo preferences need geometry, so leave the constitution
         return False
-    if any(mol.GetAtomWithIdx(i).IsInRing() for i in centres):
-        return True
-    return any(mol.GetBondBetweenAtoms(x, y) is not None for x, y in itertools.combinations(centres, 2))
+    return len(centres) >= 2 and any(mol.GetAtomWithIdx(i).IsInRing() for i in centres)

@@ -76,7 +76,9 @@ CASES = [
     ("CC(C)(C)CO", "HBr", None, "CCC(C)(C)Br", [], "neopentyl alcohol rearranges (Whitmore, J. Am. Chem. Soc. 1932)"),
     ("CC(C)(C)O", "HCl", None, "CC(C)(C)Cl", ["C=C(C)C"], "tertiary alcohol SN1 (common practice)"),
     ("CC(O)c1ccccc1", "HCl", None, "CC(Cl)c1ccccc1", [], "benzylic SN1 (common practice)"),
-    ("C=CC(O)C", "HBr", None, "C=CC(C)Br", ["CC=CCBr"], "allylic cation: direct and transposed bromide (common practice)"),
+    ("C=CC(O)C", "HBr", None, "CC=CCBr", ["C=CC(C)Br"],
+     "allylic cation, the bromides equilibrate: about 85:15 crotyl bromide : 3-bromobut-1-ene "
+     "(Winstein & Young, J. Am. Chem. Soc. 1936, 58, 104; from memory)"),
     ("CC1CCCCC1O", "H2SO4, heat", None, "CC1=CCCCC1", ["CC1C=CCCC1", "C=C1CCCCC1"],
      "E1 dehydration, Zaitsev product major (common practice)"),
     ("CC(O)CC", "H2SO4, heat", None, "CC=CC", ["C=CCC"], "Zaitsev's rule (common practice)"),

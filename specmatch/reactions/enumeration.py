@@ -32,8 +32,10 @@ from .network import (
     lab,
     make_intermediate,
     prepare,
+    shift,
     terminus_shares,
 )
+from .scales import alkene_dh
 from .reagents import ADDITION_CLASSES, Reagent, parse_reagent
 from .scales import model_params
 
@@ -63,6 +65,8 @@ class Context:
     warnings: list[str]
     par: dict
     xtb_used: list[int] = field(default_factory=lambda: [0])
+    control: str = "auto"
+    assisted: set[str] = field(default_factory=set)  # cations whose shift is concerted with ionisation
 
     @property
     def rt(self) -> float:
@@ -113,7 +117,8 @@ def _activated_oh(sub: Chem.Mol) -> bool:
         if m is None:
             continue
         inter = make_intermediate(m, c - 1 if c > o else c)
-        if len(inter.forms) > 1 or "benzylic" in inter.cls or inter.substitution == "tertiary":
+        if len(inter.forms) > 1 or "benzylic" in inter.cls or inter.substitution == "tertiary" \
+                or "cyclopropylcarbinyl" in inter.cls:
             return True
     return False
 
@@ -301,9 +306,14 @@ def _run_network(ctx: Context, net: Network, nucleophiles: list[Nucleophile], e1
     def channels_for(node: Intermediate) -> list[Channel]:
         chs: list[Channel] = []
         scale = primary_scale if node.substitution in ("primary", "methyl") and len(node.forms) == 1 else 1.0
+        if node.key in ctx.assisted:
+            scale *= par["elimination"]["assisted_secondary_scale"]
         if node.radical:
             scale = 1.0
-        for (m, c), f in zip(node.forms, terminus_shares(node)):
+        if len(node.forms) == 1 and not node.radical and "cyclopropylcarbinyl" in node.cls:
+            return _manifold_channels(ctx, node, nucleophiles)
+        shares = terminus_shares(node) if _control(ctx) == "kinetic" else _thermo_shares(ctx, node)
+        for (m, c), f in zip(node.forms, shares):
             oh = next((n.GetIdx() for n in m.GetAtomWithIdx(c).GetNeighbors()
                        if n.GetAtomicNum() == 8 and n.GetTotalNumHs() > 0), None)
             if oh is not None and not node.radical:
@@ -325,7 +335,8 @@ def _run_network(ctx: Context, net: Network, nucleophiles: list[Nucleophile], e1
         oxo = any(n.GetAtomicNum() == 8 and n.GetTotalNumHs() > 0
                   for m, c in node.forms for n in m.GetAtomWithIdx(c).GetNeighbors())
         if e1_weight > 0 and node.expand and not node.radical and not oxo:
-            for alk, share, text in e1_alkenes(node, rt_e1):
+            alpha = par["elimination"]["alpha_heat"] if ctx.cls == "dehydration" else None
+            for alk, share, text in e1_alkenes(node, rt_e1, alpha):
                 if csmiles(alk) == sub_key:
                     continue  # back to the substrate: it re-enters the same manifold, not an exit
                 chs.append(Channel(alk, e1_weight * share * scale, "E1", f"E1: {text}", {"centre": -1}))
@@ -355,6 +366,10 @@ def _run_network(ctx: Context, net: Network, nucleophiles: list[Nucleophile], e1
         info = entry.info if entry else {}
         nu = ch.info.get("nu")
         label, flags = _label(ch.kind, info, chain, node, ch.info.get("centre", -1), nu, main_nu)
+        if ch.info.get("manifold"):
+            word = ch.info["manifold"]
+            label = (f"{label}, then " if chain else "") + word
+            flags |= {"rearranged", "ring-expanded" if "cyclobutyl" in word else "ring-opened"}
         steps = []
         if entry is not None:
             steps.append(f"{entry.text} -> {_node_desc(net.nodes[entry.key])}")
@@ -369,8 +384,96 @@ def _run_network(ctx: Context, net: Network, nucleophiles: list[Nucleophile], e1
                          "low prior, kept because real mixtures contain such products")
         if entry is not None and not entry_expanded(net, entry):
             flags.add("other conditions")
+        if len(node.forms) > 1 and ch.kind == "capture" and not node.radical:
+            notes.append(_ALLYLIC_NOTES[_control(ctx)])
         outcomes.append(Outcome(ch.product, w, label, steps, flags, notes))
     return outcomes
+
+
+_ALLYLIC_NOTES = {
+    "kinetic": "allylic cation, kinetic control (low temperature, short times): capture at the terminus "
+               "carrying more charge; warm and equilibrating (about 40 C), the isomer with the more "
+               "substituted C=C dominates (buta-1,3-diene + HBr: about 80:20 1,2 : 1,4 at -80 C, 15:85 "
+               "at 40 C; values from memory); rerun with --control thermodynamic",
+    "thermodynamic": "allylic cation, thermodynamic control (the allylic products equilibrate): the isomer "
+                     "with the more substituted C=C dominates (Winstein & Young, J. Am. Chem. Soc. 1936, 58, "
+                     "104; values from memory); at low temperature and short times capture is kinetic: "
+                     "rerun with --control kinetic",
+}
+
+
+def _control(ctx: Context) -> str:
+    """Kinetic or thermodynamic capture of allylic cations for this run."""
+    if ctx.control != "auto":
+        return ctx.control
+    # HX with allylic alcohols: the allylic halides ionise again and equilibrate (Winstein & Young)
+    return "thermodynamic" if ctx.cls == "substitution" else "kinetic"
+
+
+def _thermo_shares(ctx: Context, node: Intermediate) -> list[float]:
+    """Terminus weights from the stability of the C=C each capture product keeps."""
+    if len(node.forms) == 1:
+        return [1.0]
+    par = ctx.par["allylic"]
+    dh = [sum(alkene_dh(m, a, b) for a, b in alkene_bonds(m)) for m, _ in node.forms]
+    lo = min(dh)
+    w = [math.exp(-par["thermo_alpha"] * (x - lo) / par["rt_thermo_kcal_mol"]) for x in dh]
+    return [x / sum(w) for x in w]
+
+
+def open_cyclopropane(mol: Chem.Mol, c: int, r: int, r1: int) -> Chem.Mol | None:
+    """Cyclopropylcarbinyl -> homoallyl cation: ring bond r-r1 breaks, C=C between c and r,
+    the cation moves to r1."""
+    rw = Chem.RWMol(mol)
+    rw.RemoveBond(r, r1)
+    rw.GetBondBetweenAtoms(c, r).SetBondType(Chem.BondType.DOUBLE)
+    rw.GetAtomWithIdx(c).SetFormalCharge(0)
+    rw.GetAtomWithIdx(r1).SetFormalCharge(1)
+    try:
+        Chem.SanitizeMol(rw)
+    except Exception:  # an edit that gives no valid molecule is not a pathway
+        return None
+    return rw.GetMol()
+
+
+def _manifold_channels(ctx: Context, node: Intermediate, nucleophiles: list[Nucleophile]) -> list[Channel]:
+    """Capture of the cyclopropylcarbinyl/cyclobutyl/homoallyl manifold (Roberts & Mazur 1951).
+
+    The three cations interconvert faster than capture, so each nucleophile gives all three
+    skeletons in fixed shares (``[cyclopropylcarbinyl]`` in model.toml), whatever the
+    empirical scale says about the separate classical cations.
+    """
+    par = ctx.par["cyclopropylcarbinyl"]
+    m, c = node.forms[0]
+    ri = m.GetRingInfo()
+    r = next(n.GetIdx() for n in m.GetAtomWithIdx(c).GetNeighbors()
+             if n.GetAtomicNum() == 6 and ri.IsAtomInRingOfSize(n.GetIdx(), 3))
+    ring = next(rg for rg in ri.AtomRings() if len(rg) == 3 and r in rg)
+    others = [x for x in ring if x != r]
+    chs: list[Channel] = []
+    for nu in nucleophiles:
+        p = capture(m, c, nu)
+        if p is not None:
+            chs.append(Channel(p, nu.weight * par["carbinyl_share"], "capture",
+                               f"{nu.name} captures the cyclopropylcarbinyl cation at {lab(m, c)}", {"centre": c, "nu": nu}))
+        for r1 in others:
+            expanded = shift(m, c, r, r1)
+            if expanded is not None:
+                p = capture(expanded, r, nu)
+                if p is not None:
+                    chs.append(Channel(p, nu.weight * par["cyclobutyl_share"] / len(others), "capture",
+                                       f"ring bond {lab(m, r)}-{lab(m, r1)} shifts to {lab(m, c)} (cyclobutyl cation); "
+                                       f"{nu.name} captures it at {lab(m, r)}",
+                                       {"centre": r, "nu": nu, "manifold": "ring-expanded (cyclopropylcarbinyl -> cyclobutyl)"}))
+            opened = open_cyclopropane(m, c, r, r1)
+            if opened is not None:
+                p = capture(opened, r1, nu)
+                if p is not None:
+                    chs.append(Channel(p, nu.weight * par["homoallyl_share"] / len(others), "capture",
+                                       f"ring bond {lab(m, r)}-{lab(m, r1)} opens (homoallyl cation, C=C "
+                                       f"{lab(m, c)}={lab(m, r)}); {nu.name} captures it at {lab(m, r1)}",
+                                       {"centre": r1, "nu": nu, "manifold": "ring-opened (homoallyl)"}))
+    return chs
 
 
 def entry_expanded(net: Network, entry) -> bool:
@@ -470,7 +573,8 @@ def _substitution(ctx: Context) -> list[Outcome]:
     direct: list[Outcome] = []
     sites = _alcohol_sites(ctx.sub)
     for c, o, cc, inter, what in _ionisations(ctx, sites):
-        stabilised = len(inter.forms) > 1 or "benzylic" in inter.cls or inter.substitution == "tertiary"
+        stabilised = len(inter.forms) > 1 or "benzylic" in inter.cls or inter.substitution == "tertiary" \
+            or "cyclopropylcarbinyl" in inter.cls
         next_to_quaternary = any(n.GetAtomicNum() == 6 and n.GetTotalNumHs() == 0 and n.GetDegree() == 4
                                  for n in ctx.sub.GetAtomWithIdx(c).GetNeighbors())
         neopentyl = inter.substitution == "primary" and next_to_quaternary
@@ -518,6 +622,11 @@ def _dehydration(ctx: Context) -> list[Outcome]:
     net = _network(ctx)
     sites = _alcohol_sites(ctx.sub)
     for c, _o, cc, inter, what in _ionisations(ctx, sites):
+        if inter.substitution == "secondary" and len(inter.forms) == 1 and any(
+                n.GetAtomicNum() == 6 and n.GetTotalNumHs() == 0 and n.GetDegree() == 4
+                for n in ctx.sub.GetAtomWithIdx(c).GetNeighbors()):
+            ctx.assisted.add(inter.key)
+            what += " (assisted by the 1,2-shift from the quaternary neighbour)"
         net.add_entry(inter, 1.0 / len(sites), what, kind="ionisation", start=cc, word="alcohol",
                       group=f"site{c}")
     out = _run_network(ctx, net, [_water(ctx.par["nucleophiles"]["water_in_dehydration"])],
@@ -969,8 +1078,11 @@ def _finalise(ctx: Context, outcomes: list[Outcome], substrate_input: str, alcoh
 
 
 # ------------------------------------------------------------------ public entry point
+CONTROLS = ("auto", "kinetic", "thermodynamic")
+
+
 def enumerate_products(substrate: str, reagent: str | Reagent, *, alcohol: str | None = None,
-                       max_shifts: int = 2, use_xtb: bool = False) -> Enumeration:
+                       max_shifts: int = 2, use_xtb: bool = False, control: str = "auto") -> Enumeration:
     """Plausible products of `substrate` with `reagent`, with pathway, prior and role.
 
     Parameters
@@ -987,6 +1099,12 @@ def enumerate_products(substrate: str, reagent: str | Reagent, *, alcohol: str |
     use_xtb : bool
         Refine cations the empirical scale cannot order (within ~2 kcal/mol) with GFN2-xTB
         (needs the optional ``tblite`` package; without it a warning says so).
+    control : str
+        Capture of allylic cations: ``"kinetic"`` (low temperature, short times: the terminus
+        carrying more charge, e.g. the 1,2-adduct of a diene), ``"thermodynamic"`` (warm,
+        equilibrating: the product with the more substituted C=C, e.g. the 1,4-adduct), or
+        ``"auto"`` (thermodynamic for HX with allylic alcohols, whose halides equilibrate;
+        kinetic otherwise). Allylic products carry a note either way.
 
     Returns
     -------
@@ -1004,6 +1122,8 @@ def enumerate_products(substrate: str, reagent: str | Reagent, *, alcohol: str |
     if isinstance(max_shifts, bool) or not isinstance(max_shifts, int) or not 0 <= max_shifts <= cand["max_shifts_allowed"]:
         raise SpecmatchError(f"--max-shifts must be a whole number from 0 to {cand['max_shifts_allowed']} "
                              f"(got {max_shifts!r})")
+    if control not in CONTROLS:
+        raise SpecmatchError(f"--control must be one of {', '.join(CONTROLS)} (got {control!r})")
     r = reagent if isinstance(reagent, Reagent) else parse_reagent(reagent)
     mol = mol_from_text(substrate, max_heavy_atoms=cand["max_heavy_atoms"])
     if Chem.GetFormalCharge(mol) != 0 or any(a.GetNumRadicalElectrons() for a in mol.GetAtoms()) \
@@ -1025,7 +1145,7 @@ def enumerate_products(substrate: str, reagent: str | Reagent, *, alcohol: str |
             warnings.append("GFN2-xTB refinement requested but the optional 'tblite' package is not installed "
                             "(pip install 'specmatch[xtb]'); ranked with the empirical scale only")
             use_xtb = False
-    ctx = Context(sub, r, cls, max_shifts, use_xtb, nu, warnings, par)
+    ctx = Context(sub, r, cls, max_shifts, use_xtb, nu, warnings, par, control=control)
     if len(alkene_bonds(sub)) > 1 and cls in ADDITION_CLASSES:
         warnings.append("several C=C: mono-addition products are listed; with excess reagent each C=C reacts")
     if sub.GetRingInfo().NumRings() >= 2 and any(sub.GetRingInfo().NumAtomRings(i) >= 2 for i in range(sub.GetNumAtoms())):

@@ -7,18 +7,21 @@ text, so scoring many spectra against one candidate predicts it once.
 from __future__ import annotations
 
 from functools import lru_cache
+from typing import TYPE_CHECKING
 
-from ..structures import Structure, parse_structure
 from .model import CarbonShift, Prediction, ProtonGroup
-from .stereo import needs_stereo_layer
+
+if TYPE_CHECKING:  # RDKit is loaded on first prediction, so small submodules import fast
+    from ..structures import Structure
 
 __all__ = ["CarbonShift", "Prediction", "ProtonGroup", "predict", "predict_structure"]
 
 
 def predict_structure(structure: Structure) -> Prediction:
     """Predict both spectra of an already perceived structure."""
-    from .carbon import TABLES_VERSION as C_VERSION, predict_carbons
-    from .proton import TABLES_VERSION as H_VERSION, predict_protons
+    from .c13.predictor import TABLES_VERSION as C_VERSION, predict_carbons
+    from .h1.predictor import TABLES_VERSION as H_VERSION, predict_protons
+    from .stereo import apply_stereo_layer, needs_stereo_layer
 
     carbons, c_warn = predict_carbons(structure)
     protons, h_warn = predict_protons(structure)
@@ -32,8 +35,6 @@ def predict_structure(structure: Structure) -> Prediction:
     )
     if needs_stereo_layer(structure):
         # relative configuration specified and relevant: 3D ensemble layer (prediction/stereo.py)
-        from .stereo import apply_stereo_layer
-
         prediction = apply_stereo_layer(structure, prediction)
     return prediction
 
@@ -47,4 +48,6 @@ def predict(smiles: str) -> Prediction:
     specmatch.SpecmatchError
         If the structure cannot be parsed.
     """
+    from ..structures import parse_structure
+
     return predict_structure(parse_structure(smiles))

@@ -465,7 +465,7 @@ def apply_stereo_layer(structure: Structure, prediction: Prediction) -> Predicti
 
 def _methine_couplings(structure: Structure, c: int, own: Features) -> tuple[tuple[int, float], ...] | None:
     """Couplings of a CH: geometric 3J to each sp3 partner H, table values kept for the rest."""
-    from .h1_tables import load_tables
+    from .h1.tables import load_tables
 
     j_hz = load_tables().j_hz
     mol = structure.mol

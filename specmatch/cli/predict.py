@@ -26,7 +26,7 @@ def cmd_predict(args: argparse.Namespace) -> int:
                 else:
                     smi = smi.split()[0]
                     try:
-                        row = predict(smi).to_dict()
+                        row = predict(smi, geometry=args.stereo_3d).to_dict()
                         row["smiles"] = smi
                     except SpecmatchError as exc:
                         row = {"smiles": smi, "ok": False, "error": str(exc)}
@@ -52,6 +52,9 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--json", action="store_true", help="print JSON")
     p.add_argument("--batch", metavar="FILE", help="one SMILES per line")
     p.add_argument("--out", metavar="OUT.jsonl", help="with --batch: where to write results")
+    p.add_argument("--stereo-3d", action="store_true",
+                   help="with --batch: also run the 3D conformer layer for molecules with a relative "
+                        "configuration (cis/trans, meso/dl); slower (single predictions always use it)")
     p.add_argument("--frequency", type=float, default=400.0, metavar="MHZ",
                    help="1H frequency for the peak text (default 400)")
     p.add_argument("--solvent", default="CDCl3", help="solvent named in the peak text")

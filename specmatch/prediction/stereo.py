@@ -38,6 +38,9 @@ from .multiplicity import multiplicity
 
 _TABLE = Path(__file__).with_name("tables") / "stereo.csv"
 _XI = -1.0  # HLA orientation sign: with this sign trans-4-tert-butylcyclohexanol gets 11.1/4.7 Hz, lit. 11.0/4.3 (from memory)
+#: diastereomers averaged for the reference (the molecule itself first); more centres than
+#: this are rare in the alkene-addition products the tool is for
+MAX_DIASTEREOMERS = 4
 _X_SYMBOLS = {"F", "Cl", "Br", "I", "N", "S"}
 
 
@@ -52,13 +55,18 @@ def needs_stereo_layer(structure: Structure) -> bool:
     """True if the relative configuration is specified and can change the spectrum.
 
     Two or more specified tetrahedral stereocentres, with at least one on a ring or two of
-    them bonded to each other (1,2-relation). Everything else (the bulk of a batch) keeps the
+    them bonded to each other (1,2-relation), in a molecule without fused or bridged rings (the
+    corrections are parametrised on simple rings and chains; polycyclic skeletons are rigid in
+    ways the increment tables already reflect). Everything else (the bulk of a batch) keeps the
     pure increment prediction, so the 3D layer costs nothing there.
     """
     spec = structure.specified_stereo
     if len(spec) < 2 or structure.n_heavy > parameters()["ensemble:max_heavy_atoms"]:
         return False
     mol = structure.mol
+    ri = mol.GetRingInfo()
+    if any(ri.NumAtomRings(i) > 1 for i in range(mol.GetNumAtoms())):
+        return False
     if any(mol.GetAtomWithIdx(i).IsInRing() for i in spec):
         return True
     return any(mol.GetBondBetweenAtoms(a, b) is not None for a, b in itertools.combinations(spec, 2))
@@ -379,7 +387,7 @@ def stereo_features(structure: Structure) -> tuple[Features, Features | None] | 
         return None
     own: Features | None = None
     others: list[Features] = []
-    for k, m in enumerate(_diastereomers(structure)[:8]):
+    for k, m in enumerate(_diastereomers(structure)[:MAX_DIASTEREOMERS]):
         smi, order = _order_map(m)
         f = _features_for(smi, tuple(order))
         if f is None:

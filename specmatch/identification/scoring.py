@@ -482,6 +482,19 @@ def _mult_compatible(obs: str, pred: str) -> bool:
     return obs.replace(" ", "") == pred.replace(" ", "")
 
 
+#: log-probability that an exchangeable proton shows a resolved multiplet (it
+#: exchanges fast in routine CDCl3 samples and gives a singlet; common practice)
+EXCHANGEABLE_SPLIT_LOGP = -8.0
+
+
+def _resolved_pattern(multiplicity: str, j_hz: tuple[float, ...]) -> bool:
+    """A multiplet with resolved couplings: a J listed, or d/t/q/quint/sept... letters."""
+    m = multiplicity.replace(" ", "")
+    if any(j > 0 for j in j_hz):
+        return True
+    return bool(m) and not (m.startswith("m") or "br" in m or m == "s")
+
+
 def _h1_group_costs(cand: PreparedCandidate, obs: ObservedH1, m: NucleusModel):
     """Per (group, multiplet): scale, z, negative log density plus multiplicity/J terms."""
     s = np.where(cand.h_exch, m.exchangeable_sigma_ppm,
@@ -492,6 +505,11 @@ def _h1_group_costs(cand: PreparedCandidate, obs: ObservedH1, m: NucleusModel):
         extra = np.zeros_like(nll)
         for g in range(cand.h_shift.size):
             if cand.h_exch[g]:
+                # an exchanging OH/NH gives a singlet (broad or sharp): a multiplet with
+                # resolved couplings is a C-H signal, not this group's
+                for k in range(obs.n):
+                    if _resolved_pattern(obs.multiplicity[k], obs.j_hz[k]):
+                        extra[g, k] -= EXCHANGEABLE_SPLIT_LOGP
                 continue
             for k in range(obs.n):
                 if not _mult_compatible(obs.multiplicity[k], cand.h_mult[g]):

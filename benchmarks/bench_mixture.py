@@ -111,7 +111,8 @@ def peaklist_tasks(limit: int = 0) -> tuple[list[dict], Path]:
                     merged[-1][2] += i
                 else:
                     merged.append([sh, sh, i])
-            out.append({"a": a, "b": b, "fa": fa, "half": half, "multiplets": merged})
+            core = not ({"aromatic", "carbonyl"} & set(index[a]["classes"]))
+            out.append({"a": a, "b": b, "fa": fa, "half": half, "multiplets": merged, "core": core})
     return out, dev
 
 
@@ -139,8 +140,11 @@ def main_peaklists(limit: int) -> None:
             continue
         lo, hi = est.interval_95[0]
         rows.append({**t, "est": est.fractions[0], "sd": est.uncertainties[0], "lo": lo, "hi": hi, "error": None})
-    for half in ("fit", "held_back", None):
-        sel = [r for r in rows if half is None or r["half"] == half]
+    groups = [(h, None) for h in ("fit", "held_back", None)] + [(h, True) for h in ("fit", "held_back", None)]
+    for half, core in groups:
+        if core and half == "fit":
+            print("core scope (no aromatic ring, no carbonyl, as specbench's core):")
+        sel = [r for r in rows if (half is None or r["half"] == half) and (core is None or r["core"])]
         ok = [r for r in sel if r["error"] is None]
         if not sel:
             continue

@@ -209,10 +209,31 @@ def _clusters(nu_g: np.ndarray, J_g: np.ndarray, reduce: bool) -> list[list[int]
         for b in range(a + 1, G):
             if is_strong(J_g[a, b], nu_g[a] - nu_g[b]):
                 parent[find(a)] = find(b)
-    out: dict[int, list[int]] = {}
-    for a in range(G):
-        out.setdefault(find(a), []).append(a)
-    return sorted(out.values())
+    while True:
+        out: dict[int, list[int]] = {}
+        for a in range(G):
+            out.setdefault(find(a), []).append(a)
+        clusters = sorted(out.values())
+        merged = False
+        # a group coupled unequally to the groups of a strongly coupled partner cluster
+        # mixes that cluster's states differently for each of its own states (the X part
+        # of ABX): no X approximation there, treat both together
+        for c in clusters:
+            for p in clusters:
+                if p is c or len(p) < 2:
+                    continue
+                for g in c:
+                    row = J_g[g, p]
+                    if np.any(row != 0.0) and np.ptp(row) > 1e-9:
+                        parent[find(g)] = find(p[0])
+                        merged = True
+                        break
+                if merged:
+                    break
+            if merged:
+                break
+        if not merged:
+            return clusters
 
 
 # ---------------------------------------------------------- composite particles
@@ -410,10 +431,15 @@ def simulate_spins(
     for members in clusters:
         mem = np.array(members)
         n_spins = int(size[mem].sum())
-        partners = [g for g in range(G) if where[g] != where[members[0]] and np.any(J_g[mem, g] != 0.0)]
-        arrangements = _arrangements([int(size[p]) for p in partners])
+        # partner clusters: each couples uniformly to its groups (see _clusters), so
+        # its total M is the good quantum number its field on this cluster depends on
+        own = where[members[0]]
+        partners = [q for q, other in enumerate(clusters)
+                    if q != own and np.any(J_g[np.ix_(mem, other)] != 0.0)]
+        arrangements = _arrangements([int(size[clusters[q]].sum()) for q in partners])
         Jc = J_g[np.ix_(mem, mem)]
-        Jx = J_g[np.ix_(mem, partners)] if partners else np.zeros((len(mem), 0))
+        Jx = (np.array([J_g[mem, clusters[q][0]] for q in partners]).T if partners
+              else np.zeros((len(mem), 0)))
         choices = [composite_spins(int(size[g])) for g in mem]
         # distinct effective offsets: partners' z-fields; too many -> first-order shifts
         exact = len(arrangements) <= MAX_ARRANGEMENTS

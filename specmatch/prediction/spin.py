@@ -58,9 +58,13 @@ WEAK_RATIO = 0.02
 #: bounds set what the X approximation may neglect: intensity errors of order
 #: J / (2 delta-nu) and position errors of order J**2 / (4 delta-nu) (the AB case).
 WEAK_SHIFT_HZ = 0.01
-#: more partner arrangements than this for one cluster: the partners' z-fields are
-#: applied as first-order line shifts instead of re-diagonalising (Hellmann-Feynman)
-MAX_ARRANGEMENTS = 256
+#: while (partner arrangements x cluster dimension) stays below this, a cluster is
+#: re-diagonalised for every arrangement of its partners; beyond, the partners'
+#: z-fields move its lines to first order (Hellmann-Feynman)
+EXACT_BUDGET = 2048
+#: clusters with more spins than this are cut at their weakest couplings (speed bound;
+#: 2**8 states, the largest Fz block 70 x 70)
+MAX_CLUSTER_SPINS = 8
 
 
 @dataclass(frozen=True)
@@ -424,46 +428,43 @@ def simulate_spins(
     if not reduce:
         # connected components of the coupling graph only (uncoupled sets are exact apart)
         clusters = _components(J_g)
+    if reduce:
+        clusters = [piece for c in clusters for piece in _split(c, nu_g, J_g, size)]
     where = np.empty(G, int)
     for c, members in enumerate(clusters):
         where[members] = c
-    all_hz, all_int, all_d = [], [], []
+    all_hz, all_int, all_d = [], [], [np.zeros((0, n))]
     for members in clusters:
         mem = np.array(members)
         n_spins = int(size[mem].sum())
-        # partner clusters: each couples uniformly to its groups (see _clusters), so
-        # its total M is the good quantum number its field on this cluster depends on
-        own = where[members[0]]
-        partners = [q for q, other in enumerate(clusters)
-                    if q != own and np.any(J_g[np.ix_(mem, other)] != 0.0)]
-        arrangements = _arrangements([int(size[clusters[q]].sum()) for q in partners])
+        units_size, units_j = _partner_units(mem, clusters, where, J_g, size)
+        arrangements = _arrangements(units_size, units_j, len(mem))
         Jc = J_g[np.ix_(mem, mem)]
-        Jx = (np.array([J_g[mem, clusters[q][0]] for q in partners]).T if partners
-              else np.zeros((len(mem), 0)))
         choices = [composite_spins(int(size[g])) for g in mem]
-        # distinct effective offsets: partners' z-fields; too many -> first-order shifts
-        exact = len(arrangements) <= MAX_ARRANGEMENTS
-        arr_list = arrangements if exact else [(np.zeros(len(partners)), 1.0)]
+        dim = int(np.prod([2 * s + 1 for s in (c[0][0] for c in choices)]))
+        # re-diagonalise per partner arrangement while that stays cheap; beyond, the
+        # partner fields move the lines to first order (Hellmann-Feynman)
+        exact = len(arrangements) * dim <= EXACT_BUDGET
+        arr_list = arrangements if exact else [(np.zeros(len(mem)), 1.0)]
         for combo in itertools.product(*choices):
             spins = tuple(s for s, _ in combo)
             mult = float(np.prod([m for _, m in combo]))
-            for mz, p in arr_list:
-                hz, inten, dz = _cluster_lines(nu_g[mem] + Jx @ mz, Jc, spins)
+            for field_hz, p in arr_list:
+                hz, inten, dz = _cluster_lines(nu_g[mem] + field_hz, Jc, spins)
                 w = mult * p / 2.0 ** (n_spins - 1)
                 d_full = np.zeros((hz.size, n))
                 for col, g in enumerate(mem):
                     d_full[:, groups[g]] = dz[:, [col]] / size[g]
-                if not exact:
-                    # first order in the partner fields: each partner arrangement moves
-                    # every line by sum_g dz_g * (Jx @ mz)_g
-                    for mz2, p2 in arrangements:
-                        all_hz.append(hz + dz @ (Jx @ mz2))
-                        all_int.append(inten * w * p2)
-                        all_d.append(d_full)
-                else:
+                if exact:
                     all_hz.append(hz)
                     all_int.append(inten * w)
                     all_d.append(d_full)
+                    continue
+                fields = np.array([fa for fa, _ in arrangements])  # (A, groups)
+                probs = np.array([pa for _, pa in arrangements])
+                all_hz.append((hz[:, None] + dz @ fields.T).ravel())
+                all_int.append((inten[:, None] * w * probs[None, :]).ravel())
+                all_d.append(np.repeat(d_full, len(probs), axis=0))
     hz, inten, d = _merge(np.concatenate(all_hz), np.concatenate(all_int), np.concatenate(all_d))
     return SpinLines(f, hz, inten, d)
 
@@ -488,15 +489,81 @@ def _components(J_g: np.ndarray) -> list[list[int]]:
     return sorted(out)
 
 
-def _arrangements(sizes: Sequence[int]) -> list[tuple[np.ndarray, float]]:
-    """Total-m values of partner groups with their probabilities (binomial / 2**n)."""
-    out = [(np.zeros(0), 1.0)]
-    for n in sizes:
-        nxt = []
+def _partner_units(mem, clusters, where, J_g, size) -> tuple[list[int], list[np.ndarray]]:
+    """The partners whose z-field acts on a cluster: (spin count, couplings to the cluster's groups).
+
+    A partner cluster that every group of ``mem`` couples to uniformly acts through its
+    total M (exact); otherwise each of its groups acts through its own m (the usual
+    X approximation, used for clusters that were cut to bound their size).
+    """
+    own = where[mem[0]]
+    sizes, js = [], []
+    for q, other in enumerate(clusters):
+        if q == own:
+            continue
+        block = J_g[np.ix_(mem, other)]
+        if not np.any(block != 0.0):
+            continue
+        if np.all(np.ptp(block, axis=1) <= 1e-9):
+            sizes.append(int(size[other].sum()))
+            js.append(block[:, 0].copy())
+        else:
+            for col, g in enumerate(other):
+                if np.any(block[:, col] != 0.0):
+                    sizes.append(int(size[g]))
+                    js.append(block[:, col].copy())
+    return sizes, js
+
+
+def _split(members: list[int], nu_g: np.ndarray, J_g: np.ndarray, size: np.ndarray) -> list[list[int]]:
+    """Cut a cluster whose product space exceeds MAX_CLUSTER_SPINS at its weakest couplings.
+
+    Couplings are removed in order of increasing |J| / |delta-nu| until the cluster
+    falls apart; pieces still too large are cut again. What was cut is then treated
+    in the X approximation (an approximation, unlike the rest).
+    """
+    if int(size[members].sum()) <= MAX_CLUSTER_SPINS:
+        return [members]
+    mem = list(members)
+    edges = []
+    for x, a in enumerate(mem):
+        for b in mem[x + 1:]:
+            if J_g[a, b] != 0.0:
+                d = abs(nu_g[a] - nu_g[b])
+                edges.append((abs(J_g[a, b]) / d if d > 0 else np.inf, a, b))
+    edges.sort()
+    sub = np.zeros_like(J_g)
+    for _, a, b in edges:
+        sub[a, b] = sub[b, a] = 1.0
+    for _, a, b in edges:
+        sub[a, b] = sub[b, a] = 0.0
+        comps = _components(sub[np.ix_(mem, mem)])
+        if len(comps) > 1:
+            out = []
+            for c in comps:
+                out.extend(_split([mem[k] for k in c], nu_g, J_g, size))
+            return out
+    return [[m] for m in mem]
+
+
+def _arrangements(sizes: Sequence[int], js: Sequence[np.ndarray], n_groups: int) -> list[tuple[np.ndarray, float]]:
+    """Distinct z-fields (Hz per group of the cluster) of the partners, with their probabilities.
+
+    A partner of n spins has total m = k - n/2 with probability C(n, k) / 2**n; fields
+    equal to 1e-6 Hz are merged (equal couplings make many arrangements coincide).
+    """
+    out: dict[tuple, list] = {(0,) * n_groups: [np.zeros(n_groups), 1.0]}
+    for n, jv in zip(sizes, js):
+        nxt: dict[tuple, list] = {}
         for k in range(n + 1):
             m = k - n / 2.0
             p = comb(n, k) / 2.0**n
-            for mz, q in out:
-                nxt.append((np.append(mz, m), q * p))
+            for field, q in out.values():
+                fv = field + jv * m
+                key = tuple(np.round(fv * 1e6).astype(np.int64))
+                if key in nxt:
+                    nxt[key][1] += q * p
+                else:
+                    nxt[key] = [fv, q * p]
         out = nxt
-    return out
+    return [(f, p) for f, p in out.values()]

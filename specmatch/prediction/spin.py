@@ -516,13 +516,14 @@ def _partner_units(mem, clusters, where, J_g, size) -> tuple[list[int], list[np.
 
 
 def _split(members: list[int], nu_g: np.ndarray, J_g: np.ndarray, size: np.ndarray) -> list[list[int]]:
-    """Cut a cluster whose product space exceeds MAX_CLUSTER_SPINS at its weakest couplings.
+    """Cut a cluster whose product space exceeds 2**MAX_CLUSTER_SPINS at its weakest couplings.
 
     Couplings are removed in order of increasing |J| / |delta-nu| until the cluster
     falls apart; pieces still too large are cut again. What was cut is then treated
     in the X approximation (an approximation, unlike the rest).
     """
-    if int(size[members].sum()) <= MAX_CLUSTER_SPINS:
+    # largest product space among the composite choices: prod(n_g + 1)
+    if int(np.prod(size[members] + 1)) <= 2**MAX_CLUSTER_SPINS:
         return [members]
     mem = list(members)
     edges = []

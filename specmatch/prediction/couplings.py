@@ -29,6 +29,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..errors import SpecmatchError
 from .model import Prediction
 
 __all__ = ["SpinNetwork", "coupling_network", "coupling_table"]
@@ -164,11 +165,18 @@ def _build(structure, groups) -> SpinNetwork:
             continue
         per = max(1, count // len(atoms))
         for a in atoms:
+            if not 0 <= a < len(m.nh):
+                raise SpecmatchError(f"proton group {gi} names atom {a}, which the structure does not have")
             for _ in range(per):
                 spin_atom.append(a)
                 spin_slot.append(used.get(a, 0))
                 used[a] = used.get(a, 0) + 1
                 group_of.append(gi)
+    bad = [a for a, k in used.items() if not (0 <= a < len(m.nh)) or k > m.nh[a]]
+    if bad or any(not exch and atoms and count % len(atoms) for atoms, count, exch, _ in groups):
+        raise SpecmatchError(
+            "the proton groups do not match the structure (more H on an atom than it carries); "
+            "predict the molecule with specmatch.prediction.predict to simulate it exactly")
     n = len(spin_atom)
     cp: list[tuple[int, int, float]] = []
     cache: dict[tuple[int, int, int, int], float] = {}

@@ -53,11 +53,11 @@ MERGE_HZ = 0.005
 #: lines weaker than this share of one spin are dropped (forbidden combination lines)
 MIN_INTENSITY = 1e-7
 #: a coupling is treated exactly (same cluster) when |J| > WEAK_RATIO * |delta-nu| ...
-WEAK_RATIO = 0.02
+WEAK_RATIO = 0.005
 #: ... or when its second-order shift J**2 / (4 |delta-nu|) exceeds this (Hz). Both
 #: bounds set what the X approximation may neglect: intensity errors of order
 #: J / (2 delta-nu) and position errors of order J**2 / (4 delta-nu) (the AB case).
-WEAK_SHIFT_HZ = 0.01
+WEAK_SHIFT_HZ = 0.005
 #: while (partner arrangements x cluster dimension) stays below this, a cluster is
 #: re-diagonalised for every arrangement of its partners; beyond, the partners'
 #: z-fields move its lines to first order (Hellmann-Feynman)
@@ -441,16 +441,26 @@ def simulate_spins(
         arrangements = _arrangements(units_size, units_j, len(mem))
         Jc = J_g[np.ix_(mem, mem)]
         choices = [composite_spins(int(size[g])) for g in mem]
-        dim = int(np.prod([2 * s + 1 for s in (c[0][0] for c in choices)]))
-        # re-diagonalise per partner arrangement while that stays cheap; beyond, the
-        # partner fields move the lines to first order (Hellmann-Feynman)
-        exact = len(arrangements) * dim <= EXACT_BUDGET
-        arr_list = arrangements if exact else [(np.zeros(len(mem)), 1.0)]
+        fields = np.array([fa for fa, _ in arrangements])  # (A, groups)
+        probs = np.array([pa for _, pa in arrangements])
         for combo in itertools.product(*choices):
-            spins = tuple(s for s, _ in combo)
+            spins_all = tuple(s for s, _ in combo)
             mult = float(np.prod([m for _, m in combo]))
+            # total spin 0 groups have no lines and exert no field: leave them out
+            act = [k for k, sp in enumerate(spins_all) if sp > 0]
+            if not act:
+                continue
+            spins = tuple(spins_all[k] for k in act)
+            dim = int(np.prod([2 * sp + 1 for sp in spins]))
+            Ja = Jc[np.ix_(act, act)]
+            # re-diagonalise per partner arrangement while that stays cheap; beyond, the
+            # partner fields move the lines to first order (Hellmann-Feynman)
+            exact = len(arrangements) * dim <= EXACT_BUDGET
+            arr_list = arrangements if exact else [(np.zeros(len(mem)), 1.0)]
             for field_hz, p in arr_list:
-                hz, inten, dz = _cluster_lines(nu_g[mem] + field_hz, Jc, spins)
+                hz, inten, dz_a = _cluster_lines((nu_g[mem] + field_hz)[act], Ja, spins)
+                dz = np.zeros((hz.size, len(mem)))
+                dz[:, act] = dz_a
                 w = mult * p / 2.0 ** (n_spins - 1)
                 d_full = np.zeros((hz.size, n))
                 for col, g in enumerate(mem):
@@ -460,8 +470,6 @@ def simulate_spins(
                     all_int.append(inten * w)
                     all_d.append(d_full)
                     continue
-                fields = np.array([fa for fa, _ in arrangements])  # (A, groups)
-                probs = np.array([pa for _, pa in arrangements])
                 all_hz.append((hz[:, None] + dz @ fields.T).ravel())
                 all_int.append((inten[:, None] * w * probs[None, :]).ravel())
                 all_d.append(np.repeat(d_full, len(probs), axis=0))

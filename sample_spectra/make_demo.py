@@ -7,9 +7,12 @@ plant" and two crude reaction samples. The spectra are simulated, not measured:
 * shift values come from ``shift_values.csv`` in this folder (experimental
   nmrshiftdb2 values where the compound is in the shared data, with record ids;
   otherwise values marked there as estimated/invented);
-* 1H multiplets are first-order stick patterns of the couplings listed there
-  (``specmatch.prediction.simulate.sticks_1h``), drawn as Lorentzian lines
-  (``lorentzian_sum``); no second-order effects;
+* 1H spectra are exact (second order) spin simulations at the spectrometer field:
+  each compound's proton groups are those of ``specmatch.prediction.predict``, their
+  shifts are the table's (column ``atoms`` says which row is which group), their
+  couplings the network of ``specmatch.prediction.couplings``
+  (``specmatch.prediction.simulate.prediction_lines``); lines are Lorentzian
+  (``lorentzian_sum``); exchangeable OH is one broad line;
 * what is in each tube (product ratio, trace substrate) is taken from
   ``specmatch.demo`` so that the files and the app's description agree;
 * files are written with the library's own writer ``specmatch.spectra.write_jcampdx``.
@@ -34,8 +37,8 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))  # a source checkout without an install
 
 from specmatch.demo import LAB_NAME, demo_cases  # noqa: E402
-from specmatch.prediction.model import ProtonGroup  # noqa: E402
-from specmatch.prediction.simulate import lorentzian_sum, sticks_1h  # noqa: E402
+from specmatch.prediction import predict  # noqa: E402
+from specmatch.prediction.simulate import lorentzian_sum, prediction_lines  # noqa: E402
 from specmatch.spectra import write_jcampdx  # noqa: E402
 from specmatch.spectra.model import Spectrum  # noqa: E402
 
@@ -81,6 +84,7 @@ class Row:
     smiles: str
     nucleus: str
     label: str
+    atoms: str
     shift_ppm: float
     count: int
     hydrogens: int | None
@@ -101,7 +105,8 @@ def read_table(path: Path = HERE / "shift_values.csv") -> list[Row]:
         )
         rows.append(Row(
             case=rec["case"], compound=rec["compound"], smiles=rec["smiles"],
-            nucleus=rec["nucleus"], label=rec["label"], shift_ppm=float(rec["shift_ppm"]),
+            nucleus=rec["nucleus"], label=rec["label"], atoms=rec.get("atoms", ""),
+            shift_ppm=float(rec["shift_ppm"]),
             count=int(rec["count"]),
             hydrogens=int(rec["hydrogens"]) if rec["hydrogens"] else None,
             multiplicity=rec["multiplicity"] or "", couplings=couplings, source=rec["source"],
@@ -132,19 +137,66 @@ def _fractions(case) -> dict[str, float]:
     return {**case.truth, **case.impurities}
 
 
-def _h1_lines(rows: list[Row], fractions: dict[str, float]):
-    """Per signal: (row, positions_ppm, areas, width_hz)."""
-    out = []
+def group_shifts(smiles: str, rows: list[Row]):
+    """The compound's prediction and one shift per predicted proton group, from the table.
+
+    Each 1H row names its group by heavy atoms (``"4;8:a"``); every non-exchangeable
+    group must have exactly one row, so the simulated spin system is the predicted one.
+    """
+    pred = predict(smiles)
+    index: dict[str, int] = {}
+    seen: dict[tuple, int] = {}
+    for gi, g in enumerate(pred.protons):
+        key = ";".join(str(a) for a in g.atoms)
+        k = seen.get(g.atoms, 0)
+        seen[g.atoms] = k + 1
+        index[f"{key}:{'ab'[k]}" if g.diastereotopic else key] = gi
+    shifts = [g.shift for g in pred.protons]
+    mapped: dict[int, Row] = {}
     for r in rows:
-        frac = fractions.get(r.smiles)
-        if not frac or r.nucleus != "1H":
+        if r.smiles != smiles or r.nucleus != "1H":
             continue
-        group = ProtonGroup(atoms=(), shift=r.shift_ppm, sigma=0.0, count=r.count,
-                            multiplicity=r.multiplicity, couplings=r.couplings,
-                            exchangeable=r.label == "OH")
-        pos, inten = sticks_1h(group, H1_MHZ)
-        width = OH_WIDTH_HZ if group.exchangeable else H1_WIDTH_HZ
-        out.append((r, pos, inten * frac, width))
+        if r.atoms not in index:
+            raise SystemExit(f"shift_values.csv: {smiles} row '{r.label}' names group '{r.atoms}', "
+                             f"the prediction has {sorted(index)}")
+        gi = index[r.atoms]
+        if pred.protons[gi].count != r.count:
+            raise SystemExit(f"shift_values.csv: {smiles} row '{r.label}': {r.count} H, the group has "
+                             f"{pred.protons[gi].count}")
+        shifts[gi] = r.shift_ppm
+        mapped[gi] = r
+    missing = [gi for gi, g in enumerate(pred.protons) if gi not in mapped]
+    if missing:
+        raise SystemExit(f"shift_values.csv: {smiles} has no row for groups {missing}")
+    return pred, shifts, mapped
+
+
+def _h1_lines(rows: list[Row], fractions: dict[str, float], frequency_mhz: float = None,
+              widths: tuple[float, float] = None):
+    """Per signal: (row, positions_ppm, areas, width_hz), from the exact simulation.
+
+    Lines are attributed to the group that moves them most (their largest shift
+    derivative), which is what a chemist integrates as "that multiplet".
+    """
+    f = H1_MHZ if frequency_mhz is None else frequency_mhz
+    width, oh_width = widths or (H1_WIDTH_HZ, OH_WIDTH_HZ)
+    out = []
+    for smi, frac in fractions.items():
+        if not frac or not any(r.smiles == smi and r.nucleus == "1H" for r in rows):
+            continue
+        pred, shifts, mapped = group_shifts(smi, rows)
+        lines = prediction_lines(pred, f, shifts=shifts)
+        owner = lines.owner()
+        for gi, r in sorted(mapped.items()):
+            g = pred.protons[gi]
+            if g.exchangeable:
+                out.append((r, np.array([r.shift_ppm]), np.array([float(r.count)]) * frac, oh_width))
+                continue
+            sel = owner == gi
+            if not sel.any():  # every line of this group is shared out to strongly coupled partners
+                out.append((r, np.array([r.shift_ppm]), np.zeros(1), width))
+                continue
+            out.append((r, lines.ppm[sel], lines.intensity[sel] * frac, width))
     return out
 
 
@@ -182,7 +234,9 @@ def _h1_peaklist(signals, extras) -> list[dict]:
     items = []
     for r, pos, area, width in signals:
         half = 2.0 * width / H1_MHZ
-        items.append({"lo": float(pos.min()) - half, "hi": float(pos.max()) + half,
+        # extent of the visible lines (second-order spectra have faint lines far out)
+        vis = pos[area >= 0.02 * area.max()] if area.max() > 0 else pos
+        items.append({"lo": float(vis.min()) - half, "hi": float(vis.max()) + half,
                       "area": float(area.sum()), "centre": r.shift_ppm,
                       "mult": r.multiplicity, "j": sorted({j for _, j in r.couplings}, reverse=True),
                       "flag": None})

@@ -54,9 +54,34 @@ H1_WIDTH_HZ = 0.9  # full width at half height after mild apodisation
 C13_WIDTH_HZ = 2.0  # with 1 Hz exponential line broadening
 OH_WIDTH_HZ = 6.0  # exchange-broadened OH (common practice: 5-20 Hz in CDCl3)
 WATER_WIDTH_HZ = 4.0
-H1_NOISE = 5e-4  # noise SD in units of one proton's singlet height
+H1_NOISE = 5e-4  # noise SD in units of one proton's singlet height (of a 0.9 Hz line)
 C13_NOISE = 1.2e-2  # noise SD in units of one protonated carbon's line height
 DEPT_NOISE = 1.0e-2
+
+
+
+@dataclass(frozen=True)
+class Acquisition:
+    """Field-dependent parameters of an invented spectrometer."""
+
+    h1_mhz: float
+    c13_mhz: float
+    h1_axis: tuple
+    h1_width_hz: float
+    h1_noise: float
+    c13_width_hz: float
+    c13_noise: float
+    dept_noise: float
+    label: str
+
+
+#: the high-field instrument of cases (a) and (b), and an invented 60 MHz benchtop
+#: instrument (permanent magnet: broader lines, more noise; typical values, common practice)
+ACQUISITION = {
+    400: Acquisition(H1_MHZ, C13_MHZ, H1_AXIS, H1_WIDTH_HZ, H1_NOISE, C13_WIDTH_HZ, C13_NOISE, DEPT_NOISE,
+                     "400 MHz"),
+    60: Acquisition(60.0, 15.09, (12.0, -0.5, 16384), 1.6, 2.5e-3, 2.5, 2.0e-2, 2.0e-2, "60 MHz benchtop"),
+}
 
 # 13C lines are not quantitative under routine conditions (NOE, relaxation): the
 # invented relative response per carbon by attached H count (common practice:
@@ -146,11 +171,14 @@ def group_shifts(smiles: str, rows: list[Row]):
     pred = predict(smiles)
     index: dict[str, int] = {}
     seen: dict[tuple, int] = {}
+    twins = {}
+    for g in pred.protons:
+        twins[g.atoms] = twins.get(g.atoms, 0) + 1
     for gi, g in enumerate(pred.protons):
         key = ";".join(str(a) for a in g.atoms)
         k = seen.get(g.atoms, 0)
         seen[g.atoms] = k + 1
-        index[f"{key}:{'ab'[k]}" if g.diastereotopic else key] = gi
+        index[f"{key}:{'ab'[k]}" if twins[g.atoms] > 1 else key] = gi
     shifts = [g.shift for g in pred.protons]
     mapped: dict[int, Row] = {}
     for r in rows:
@@ -206,34 +234,41 @@ def _area_to_height(area: np.ndarray, width_hz: float) -> np.ndarray:
     return area * (H1_WIDTH_HZ / width_hz)
 
 
+def _acq(case) -> Acquisition:
+    return ACQUISITION[int(round(case.frequency_mhz)) if case.frequency_mhz < 100 else 400]
+
+
 def make_h1(case, rows: list[Row], rng: np.random.Generator) -> tuple[Spectrum, list[dict]]:
-    x = _axis(H1_AXIS)
+    acq = _acq(case)
+    f = acq.h1_mhz
+    x = _axis(acq.h1_axis)
     y = np.zeros_like(x)
-    signals = _h1_lines(rows, _fractions(case))
+    oh_width = OH_WIDTH_HZ * acq.h1_width_hz / H1_WIDTH_HZ
+    signals = _h1_lines(rows, _fractions(case), f, (acq.h1_width_hz, oh_width))
     for _, pos, area, width in signals:
-        y += lorentzian_sum(x, pos, _area_to_height(area, width), width / H1_MHZ)
+        y += lorentzian_sum(x, pos, _area_to_height(area, width), width / f)
     extras = [  # (label, ppm, area, width_hz, flag)
-        ("CHCl3 (residual solvent)", CHCL3_1H_PPM, CHCL3_AREA, H1_WIDTH_HZ, "solvent"),
-        ("H2O", WATER_1H_PPM, WATER_AREA, WATER_WIDTH_HZ, "water"),
-        ("TMS", TMS_PPM, TMS_1H_AREA, H1_WIDTH_HZ, "TMS"),
+        ("CHCl3 (residual solvent)", CHCL3_1H_PPM, CHCL3_AREA, acq.h1_width_hz, "solvent"),
+        ("H2O", WATER_1H_PPM, WATER_AREA, WATER_WIDTH_HZ * acq.h1_width_hz / H1_WIDTH_HZ, "water"),
+        ("TMS", TMS_PPM, TMS_1H_AREA, acq.h1_width_hz, "TMS"),
     ]
     for _, ppm, area, width, _ in extras:
-        y += lorentzian_sum(x, np.array([ppm]), _area_to_height(np.array([area]), width), width / H1_MHZ)
+        y += lorentzian_sum(x, np.array([ppm]), _area_to_height(np.array([area]), width), width / f)
     y += 2e-4 + 1.5e-4 * (x - 5.0) / 6.0  # slight baseline offset and tilt
-    y += rng.normal(0.0, H1_NOISE, x.size)
-    title, comments = _header(case, "1H NMR, CDCl3, 400 MHz (simulated)")
-    spec = Spectrum(nucleus="1H", ppm=x, intensity=y, frequency_mhz=H1_MHZ, solvent="CDCl3",
+    y += rng.normal(0.0, acq.h1_noise, x.size)
+    title, comments = _header(case, f"1H NMR, CDCl3, {acq.label} (simulated)")
+    spec = Spectrum(nucleus="1H", ppm=x, intensity=y, frequency_mhz=f, solvent="CDCl3",
                     source=f"{case.h1.name} (JCAMP-DX)", experiment="1D",
                     meta={"title": title, "comments": comments, "origin": LAB_NAME,
                           "owner": "specmatch demo (invented)"})
-    return spec, _h1_peaklist(signals, extras)
+    return spec, _h1_peaklist(signals, extras, f)
 
 
-def _h1_peaklist(signals, extras) -> list[dict]:
+def _h1_peaklist(signals, extras, f: float = H1_MHZ) -> list[dict]:
     """What a chemist would report: resolved multiplets, overlapping ones merged."""
     items = []
     for r, pos, area, width in signals:
-        half = 2.0 * width / H1_MHZ
+        half = 2.0 * width / f
         # extent of the visible lines (second-order spectra have faint lines far out)
         vis = pos[area >= 0.02 * area.max()] if area.max() > 0 else pos
         items.append({"lo": float(vis.min()) - half, "hi": float(vis.max()) + half,
@@ -241,7 +276,7 @@ def _h1_peaklist(signals, extras) -> list[dict]:
                       "mult": r.multiplicity, "j": sorted({j for _, j in r.couplings}, reverse=True),
                       "flag": None})
     for label, ppm, area, width, flag in extras:
-        half = 2.0 * width / H1_MHZ
+        half = 2.0 * width / f
         items.append({"lo": ppm - half, "hi": ppm + half, "area": area, "centre": ppm,
                       "mult": "br s" if flag == "water" else "s", "j": [], "flag": flag})
     items.sort(key=lambda d: d["lo"])
@@ -295,31 +330,33 @@ def _c13_lines(case, rows: list[Row], dept: bool):
 
 
 def make_c13(case, rows: list[Row], rng: np.random.Generator, dept: bool = False) -> tuple[Spectrum, list[dict]]:
+    acq = _acq(case)
     x = _axis(C13_AXIS)
     lines = _c13_lines(case, rows, dept)
     centres = [s for _, s, _ in lines]
     heights = [h for _, _, h in lines]
     flags = [None] * len(lines)
     if not dept:  # CDCl3 carries no H: absent from DEPT-135
-        d = CDCL3_JCD_HZ / C13_MHZ
+        d = CDCL3_JCD_HZ / acq.c13_mhz
         centres += [CDCL3_13C_PPM + d, CDCL3_13C_PPM, CDCL3_13C_PPM - d]
         heights += [CDCL3_LINE_HEIGHT] * 3
         flags += ["solvent"] * 3
     centres.append(TMS_PPM)
     heights.append(TMS_13C_HEIGHT)
     flags.append("TMS")
-    y = lorentzian_sum(x, np.array(centres), np.array(heights), C13_WIDTH_HZ / C13_MHZ)
-    y += rng.normal(0.0, DEPT_NOISE if dept else C13_NOISE, x.size)
-    what = "DEPT-135, CDCl3, 100.6 MHz (simulated)" if dept else "13C{1H} NMR, CDCl3, 100.6 MHz (simulated)"
+    y = lorentzian_sum(x, np.array(centres), np.array(heights), acq.c13_width_hz / acq.c13_mhz)
+    y += rng.normal(0.0, acq.dept_noise if dept else acq.c13_noise, x.size)
+    mhz = f"{acq.c13_mhz:.1f} MHz"
+    what = f"DEPT-135, CDCl3, {mhz} (simulated)" if dept else f"13C{{1H}} NMR, CDCl3, {mhz} (simulated)"
     title, comments = _header(case, what)
     path = case.dept135 if dept else case.c13
-    spec = Spectrum(nucleus="13C", ppm=x, intensity=y, frequency_mhz=C13_MHZ, solvent="CDCl3",
+    spec = Spectrum(nucleus="13C", ppm=x, intensity=y, frequency_mhz=acq.c13_mhz, solvent="CDCl3",
                     source=f"{path.name} (JCAMP-DX)", experiment="DEPT-135" if dept else "1D",
                     meta={"title": title, "comments": comments, "origin": LAB_NAME,
                           "owner": "specmatch demo (invented)"})
     # peak list: lines a picker would see (height above 5x noise), DEPT H count where known
     peaks = []
-    noise = C13_NOISE
+    noise = acq.c13_noise
     for (r, s, h) in lines:
         if abs(h) < 5 * noise:
             continue
@@ -398,9 +435,11 @@ def main(argv: list[str] | None = None) -> int:
             # JCAMP-DX files are ASCII: the attribution's umlaut is transliterated there
             comments = [c.replace("ö", "oe") for c in spec.meta["comments"]]
             write_jcampdx(spec, path, form=JCAMP_FORM, title=spec.meta["title"], comments=comments)
-        _write_csv(case.h1_csv, case, "1H peak list (multiplets), CDCl3, 400 MHz (simulated)",
+        acq = _acq(case)
+        _write_csv(case.h1_csv, case, f"1H peak list (multiplets), CDCl3, {acq.label} (simulated)",
                    ["shift_ppm", "from_ppm", "to_ppm", "integral", "multiplicity", "j_hz", "flag"], h1_peaks)
-        _write_csv(case.c13_csv, case, "13C peak list with DEPT-135 H counts, CDCl3, 100.6 MHz (simulated)",
+        _write_csv(case.c13_csv, case,
+                   f"13C peak list with DEPT-135 H counts, CDCl3, {acq.c13_mhz:.1f} MHz (simulated)",
                    ["shift_ppm", "intensity", "hydrogens", "flag"], c13_peaks)
         for p in (case.h1, case.c13, case.dept135, case.h1_csv, case.c13_csv):
             print(f"wrote {p} ({p.stat().st_size / 1024:.0f} KiB)")

@@ -18,6 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import SpecmatchError
+from ..prediction.multiplicity import normalise as normalise_multiplicity
 from .model import Multiplet, Peak, PeakList, Spectrum
 
 _COLS = {
@@ -157,7 +158,7 @@ def read_peak_csv(path_or_text: str | Path | bytes, *, nucleus: str | None = Non
                     raise SpecmatchError(f"'{src}' line {n}: J value {part!r} is not a number (Hz)")
                 js.append(float(part))
             multiplets.append(Multiplet(shift=shift, range=(lo, hi), integral=integral,
-                                        multiplicity=re.sub(r"\s+", " ", mult.replace("hept", "sept").replace("brs", "br s")),
+                                        multiplicity=normalise_multiplicity(mult),
                                         j_hz=tuple(js), flag=flag))
     if not peaks:
         raise SpecmatchError(f"'{src}' has a header but no peaks")

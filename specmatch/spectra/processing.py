@@ -136,7 +136,7 @@ def _merge_shallow(s: np.ndarray, idx: np.ndarray, depth: float) -> np.ndarray:
 
 
 # ------------------------------------------------------------------ first-order analysis
-_LETTER = {1: "d", 2: "t", 3: "q", 4: "quint", 5: "sext", 6: "sept"}
+from ..prediction.multiplicity import LETTER_FOR_PARTNERS as _LETTER  # noqa: E402  (one owner of the letters)
 
 
 def first_order(pos_hz: np.ndarray, height: np.ndarray, *, tol_hz: float = 0.5

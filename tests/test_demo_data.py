@@ -91,7 +91,7 @@ def test_regeneration_is_byte_identical(tmp_path):
                           capture_output=True, text=True, timeout=900)  # slow on a busy machine
     assert proc.returncode == 0, proc.stderr
     made = sorted(p.name for p in tmp_path.iterdir())
-    assert len(made) == 11  # 2 cases x (3 JCAMP-DX + 2 CSV) + manifest
+    assert len(made) == 16  # 3 cases x (3 JCAMP-DX + 2 CSV) + manifest
     for name in made:
         assert (tmp_path / name).read_bytes() == (SAMPLES / name).read_bytes(), name
 
@@ -214,8 +214,10 @@ def test_benchtop_case_is_second_order():
         outer_hi = inten[hz > shifts[ch3] * f + 5].sum()
         outer_lo = inten[hz < shifts[ch3] * f - 5].sum()
         tilt[f] = outer_hi / outer_lo
-    assert tilt[60.0] > 1.15
-    assert tilt[400.0] == pytest.approx(1.0, abs=0.05)
+    # the tilt grows with J/dnu (about 1 + 4 J/dnu for the outer lines, from the AB-type
+    # mixing; common practice): ~0.7 at 60 MHz, ~0.1 at 400 MHz
+    assert tilt[60.0] > 1.4
+    assert 1.0 < tilt[400.0] < 1.2
     assert predict("CCC(C)(C)Cl").canonical_smiles in {predict(s).canonical_smiles for s in demo_case("c").truth}
 
 

@@ -32,7 +32,7 @@ def _predict_row(line: str) -> dict[str, Any]:
 
 def cmd_predict(args: argparse.Namespace) -> int:
     from ..prediction import predict
-    from ..reports.prediction_text import prediction_table
+    from ..reports.tables_text import prediction_table
 
     if args.batch:
         from contextlib import closing

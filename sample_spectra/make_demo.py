@@ -7,9 +7,12 @@ plant" and two crude reaction samples. The spectra are simulated, not measured:
 * shift values come from ``shift_values.csv`` in this folder (experimental
   nmrshiftdb2 values where the compound is in the shared data, with record ids;
   otherwise values marked there as estimated/invented);
-* 1H multiplets are first-order stick patterns of the couplings listed there
-  (``specmatch.prediction.simulate.sticks_1h``), drawn as Lorentzian lines
-  (``lorentzian_sum``); no second-order effects;
+* 1H spectra are exact (second order) spin simulations at the spectrometer field:
+  each compound's proton groups are those of ``specmatch.prediction.predict``, their
+  shifts are the table's (column ``atoms`` says which row is which group), their
+  couplings the network of ``specmatch.prediction.couplings``
+  (``specmatch.prediction.simulate.prediction_lines``); lines are Lorentzian
+  (``lorentzian_sum``); exchangeable OH is one broad line;
 * what is in each tube (product ratio, trace substrate) is taken from
   ``specmatch.demo`` so that the files and the app's description agree;
 * files are written with the library's own writer ``specmatch.spectra.write_jcampdx``.
@@ -34,8 +37,8 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))  # a source checkout without an install
 
 from specmatch.demo import LAB_NAME, demo_cases  # noqa: E402
-from specmatch.prediction.model import ProtonGroup  # noqa: E402
-from specmatch.prediction.simulate import lorentzian_sum, sticks_1h  # noqa: E402
+from specmatch.prediction import predict  # noqa: E402
+from specmatch.prediction.simulate import lorentzian_sum, prediction_lines  # noqa: E402
 from specmatch.spectra import write_jcampdx  # noqa: E402
 from specmatch.spectra.model import Spectrum  # noqa: E402
 
@@ -51,9 +54,34 @@ H1_WIDTH_HZ = 0.9  # full width at half height after mild apodisation
 C13_WIDTH_HZ = 2.0  # with 1 Hz exponential line broadening
 OH_WIDTH_HZ = 6.0  # exchange-broadened OH (common practice: 5-20 Hz in CDCl3)
 WATER_WIDTH_HZ = 4.0
-H1_NOISE = 5e-4  # noise SD in units of one proton's singlet height
+H1_NOISE = 5e-4  # noise SD in units of one proton's singlet height (of a 0.9 Hz line)
 C13_NOISE = 1.2e-2  # noise SD in units of one protonated carbon's line height
 DEPT_NOISE = 1.0e-2
+
+
+
+@dataclass(frozen=True)
+class Acquisition:
+    """Field-dependent parameters of an invented spectrometer."""
+
+    h1_mhz: float
+    c13_mhz: float
+    h1_axis: tuple
+    h1_width_hz: float
+    h1_noise: float
+    c13_width_hz: float
+    c13_noise: float
+    dept_noise: float
+    label: str
+
+
+#: the high-field instrument of cases (a) and (b), and an invented 60 MHz benchtop
+#: instrument (permanent magnet: broader lines, more noise; typical values, common practice)
+ACQUISITION = {
+    400: Acquisition(H1_MHZ, C13_MHZ, H1_AXIS, H1_WIDTH_HZ, H1_NOISE, C13_WIDTH_HZ, C13_NOISE, DEPT_NOISE,
+                     "400 MHz"),
+    60: Acquisition(60.0, 15.09, (12.0, -0.5, 16384), 1.6, 2.5e-3, 2.5, 2.0e-2, 2.0e-2, "60 MHz benchtop"),
+}
 
 # 13C lines are not quantitative under routine conditions (NOE, relaxation): the
 # invented relative response per carbon by attached H count (common practice:
@@ -81,6 +109,7 @@ class Row:
     smiles: str
     nucleus: str
     label: str
+    atoms: str
     shift_ppm: float
     count: int
     hydrogens: int | None
@@ -101,7 +130,8 @@ def read_table(path: Path = HERE / "shift_values.csv") -> list[Row]:
         )
         rows.append(Row(
             case=rec["case"], compound=rec["compound"], smiles=rec["smiles"],
-            nucleus=rec["nucleus"], label=rec["label"], shift_ppm=float(rec["shift_ppm"]),
+            nucleus=rec["nucleus"], label=rec["label"], atoms=rec.get("atoms", ""),
+            shift_ppm=float(rec["shift_ppm"]),
             count=int(rec["count"]),
             hydrogens=int(rec["hydrogens"]) if rec["hydrogens"] else None,
             multiplicity=rec["multiplicity"] or "", couplings=couplings, source=rec["source"],
@@ -132,19 +162,69 @@ def _fractions(case) -> dict[str, float]:
     return {**case.truth, **case.impurities}
 
 
-def _h1_lines(rows: list[Row], fractions: dict[str, float]):
-    """Per signal: (row, positions_ppm, areas, width_hz)."""
-    out = []
+def group_shifts(smiles: str, rows: list[Row]):
+    """The compound's prediction and one shift per predicted proton group, from the table.
+
+    Each 1H row names its group by heavy atoms (``"4;8:a"``); every non-exchangeable
+    group must have exactly one row, so the simulated spin system is the predicted one.
+    """
+    pred = predict(smiles)
+    index: dict[str, int] = {}
+    seen: dict[tuple, int] = {}
+    twins = {}
+    for g in pred.protons:
+        twins[g.atoms] = twins.get(g.atoms, 0) + 1
+    for gi, g in enumerate(pred.protons):
+        key = ";".join(str(a) for a in g.atoms)
+        k = seen.get(g.atoms, 0)
+        seen[g.atoms] = k + 1
+        index[f"{key}:{'ab'[k]}" if twins[g.atoms] > 1 else key] = gi
+    shifts = [g.shift for g in pred.protons]
+    mapped: dict[int, Row] = {}
     for r in rows:
-        frac = fractions.get(r.smiles)
-        if not frac or r.nucleus != "1H":
+        if r.smiles != smiles or r.nucleus != "1H":
             continue
-        group = ProtonGroup(atoms=(), shift=r.shift_ppm, sigma=0.0, count=r.count,
-                            multiplicity=r.multiplicity, couplings=r.couplings,
-                            exchangeable=r.label == "OH")
-        pos, inten = sticks_1h(group, H1_MHZ)
-        width = OH_WIDTH_HZ if group.exchangeable else H1_WIDTH_HZ
-        out.append((r, pos, inten * frac, width))
+        if r.atoms not in index:
+            raise SystemExit(f"shift_values.csv: {smiles} row '{r.label}' names group '{r.atoms}', "
+                             f"the prediction has {sorted(index)}")
+        gi = index[r.atoms]
+        if pred.protons[gi].count != r.count:
+            raise SystemExit(f"shift_values.csv: {smiles} row '{r.label}': {r.count} H, the group has "
+                             f"{pred.protons[gi].count}")
+        shifts[gi] = r.shift_ppm
+        mapped[gi] = r
+    missing = [gi for gi, g in enumerate(pred.protons) if gi not in mapped]
+    if missing:
+        raise SystemExit(f"shift_values.csv: {smiles} has no row for groups {missing}")
+    return pred, shifts, mapped
+
+
+def _h1_lines(rows: list[Row], fractions: dict[str, float], frequency_mhz: float = None,
+              widths: tuple[float, float] = None):
+    """Per signal: (row, positions_ppm, areas, width_hz), from the exact simulation.
+
+    Lines are attributed to the group that moves them most (their largest shift
+    derivative), which is what a chemist integrates as "that multiplet".
+    """
+    f = H1_MHZ if frequency_mhz is None else frequency_mhz
+    width, oh_width = widths or (H1_WIDTH_HZ, OH_WIDTH_HZ)
+    out = []
+    for smi, frac in fractions.items():
+        if not frac or not any(r.smiles == smi and r.nucleus == "1H" for r in rows):
+            continue
+        pred, shifts, mapped = group_shifts(smi, rows)
+        lines = prediction_lines(pred, f, shifts=shifts)
+        owner = lines.owner()
+        for gi, r in sorted(mapped.items()):
+            g = pred.protons[gi]
+            if g.exchangeable:
+                out.append((r, np.array([r.shift_ppm]), np.array([float(r.count)]) * frac, oh_width))
+                continue
+            sel = owner == gi
+            if not sel.any():  # every line of this group is shared out to strongly coupled partners
+                out.append((r, np.array([r.shift_ppm]), np.zeros(1), width))
+                continue
+            out.append((r, lines.ppm[sel], lines.intensity[sel] * frac, width))
     return out
 
 
@@ -154,40 +234,49 @@ def _area_to_height(area: np.ndarray, width_hz: float) -> np.ndarray:
     return area * (H1_WIDTH_HZ / width_hz)
 
 
+def _acq(case) -> Acquisition:
+    return ACQUISITION[int(round(case.frequency_mhz)) if case.frequency_mhz < 100 else 400]
+
+
 def make_h1(case, rows: list[Row], rng: np.random.Generator) -> tuple[Spectrum, list[dict]]:
-    x = _axis(H1_AXIS)
+    acq = _acq(case)
+    f = acq.h1_mhz
+    x = _axis(acq.h1_axis)
     y = np.zeros_like(x)
-    signals = _h1_lines(rows, _fractions(case))
+    oh_width = OH_WIDTH_HZ * acq.h1_width_hz / H1_WIDTH_HZ
+    signals = _h1_lines(rows, _fractions(case), f, (acq.h1_width_hz, oh_width))
     for _, pos, area, width in signals:
-        y += lorentzian_sum(x, pos, _area_to_height(area, width), width / H1_MHZ)
+        y += lorentzian_sum(x, pos, _area_to_height(area, width), width / f)
     extras = [  # (label, ppm, area, width_hz, flag)
-        ("CHCl3 (residual solvent)", CHCL3_1H_PPM, CHCL3_AREA, H1_WIDTH_HZ, "solvent"),
-        ("H2O", WATER_1H_PPM, WATER_AREA, WATER_WIDTH_HZ, "water"),
-        ("TMS", TMS_PPM, TMS_1H_AREA, H1_WIDTH_HZ, "TMS"),
+        ("CHCl3 (residual solvent)", CHCL3_1H_PPM, CHCL3_AREA, acq.h1_width_hz, "solvent"),
+        ("H2O", WATER_1H_PPM, WATER_AREA, WATER_WIDTH_HZ * acq.h1_width_hz / H1_WIDTH_HZ, "water"),
+        ("TMS", TMS_PPM, TMS_1H_AREA, acq.h1_width_hz, "TMS"),
     ]
     for _, ppm, area, width, _ in extras:
-        y += lorentzian_sum(x, np.array([ppm]), _area_to_height(np.array([area]), width), width / H1_MHZ)
+        y += lorentzian_sum(x, np.array([ppm]), _area_to_height(np.array([area]), width), width / f)
     y += 2e-4 + 1.5e-4 * (x - 5.0) / 6.0  # slight baseline offset and tilt
-    y += rng.normal(0.0, H1_NOISE, x.size)
-    title, comments = _header(case, "1H NMR, CDCl3, 400 MHz (simulated)")
-    spec = Spectrum(nucleus="1H", ppm=x, intensity=y, frequency_mhz=H1_MHZ, solvent="CDCl3",
+    y += rng.normal(0.0, acq.h1_noise, x.size)
+    title, comments = _header(case, f"1H NMR, CDCl3, {acq.label} (simulated)")
+    spec = Spectrum(nucleus="1H", ppm=x, intensity=y, frequency_mhz=f, solvent="CDCl3",
                     source=f"{case.h1.name} (JCAMP-DX)", experiment="1D",
                     meta={"title": title, "comments": comments, "origin": LAB_NAME,
                           "owner": "specmatch demo (invented)"})
-    return spec, _h1_peaklist(signals, extras)
+    return spec, _h1_peaklist(signals, extras, f)
 
 
-def _h1_peaklist(signals, extras) -> list[dict]:
+def _h1_peaklist(signals, extras, f: float = H1_MHZ) -> list[dict]:
     """What a chemist would report: resolved multiplets, overlapping ones merged."""
     items = []
     for r, pos, area, width in signals:
-        half = 2.0 * width / H1_MHZ
-        items.append({"lo": float(pos.min()) - half, "hi": float(pos.max()) + half,
+        half = 2.0 * width / f
+        # extent of the visible lines (second-order spectra have faint lines far out)
+        vis = pos[area >= 0.02 * area.max()] if area.max() > 0 else pos
+        items.append({"lo": float(vis.min()) - half, "hi": float(vis.max()) + half,
                       "area": float(area.sum()), "centre": r.shift_ppm,
                       "mult": r.multiplicity, "j": sorted({j for _, j in r.couplings}, reverse=True),
                       "flag": None})
     for label, ppm, area, width, flag in extras:
-        half = 2.0 * width / H1_MHZ
+        half = 2.0 * width / f
         items.append({"lo": ppm - half, "hi": ppm + half, "area": area, "centre": ppm,
                       "mult": "br s" if flag == "water" else "s", "j": [], "flag": flag})
     items.sort(key=lambda d: d["lo"])
@@ -241,31 +330,33 @@ def _c13_lines(case, rows: list[Row], dept: bool):
 
 
 def make_c13(case, rows: list[Row], rng: np.random.Generator, dept: bool = False) -> tuple[Spectrum, list[dict]]:
+    acq = _acq(case)
     x = _axis(C13_AXIS)
     lines = _c13_lines(case, rows, dept)
     centres = [s for _, s, _ in lines]
     heights = [h for _, _, h in lines]
     flags = [None] * len(lines)
     if not dept:  # CDCl3 carries no H: absent from DEPT-135
-        d = CDCL3_JCD_HZ / C13_MHZ
+        d = CDCL3_JCD_HZ / acq.c13_mhz
         centres += [CDCL3_13C_PPM + d, CDCL3_13C_PPM, CDCL3_13C_PPM - d]
         heights += [CDCL3_LINE_HEIGHT] * 3
         flags += ["solvent"] * 3
     centres.append(TMS_PPM)
     heights.append(TMS_13C_HEIGHT)
     flags.append("TMS")
-    y = lorentzian_sum(x, np.array(centres), np.array(heights), C13_WIDTH_HZ / C13_MHZ)
-    y += rng.normal(0.0, DEPT_NOISE if dept else C13_NOISE, x.size)
-    what = "DEPT-135, CDCl3, 100.6 MHz (simulated)" if dept else "13C{1H} NMR, CDCl3, 100.6 MHz (simulated)"
+    y = lorentzian_sum(x, np.array(centres), np.array(heights), acq.c13_width_hz / acq.c13_mhz)
+    y += rng.normal(0.0, acq.dept_noise if dept else acq.c13_noise, x.size)
+    mhz = f"{acq.c13_mhz:.1f} MHz"
+    what = f"DEPT-135, CDCl3, {mhz} (simulated)" if dept else f"13C{{1H}} NMR, CDCl3, {mhz} (simulated)"
     title, comments = _header(case, what)
     path = case.dept135 if dept else case.c13
-    spec = Spectrum(nucleus="13C", ppm=x, intensity=y, frequency_mhz=C13_MHZ, solvent="CDCl3",
+    spec = Spectrum(nucleus="13C", ppm=x, intensity=y, frequency_mhz=acq.c13_mhz, solvent="CDCl3",
                     source=f"{path.name} (JCAMP-DX)", experiment="DEPT-135" if dept else "1D",
                     meta={"title": title, "comments": comments, "origin": LAB_NAME,
                           "owner": "specmatch demo (invented)"})
     # peak list: lines a picker would see (height above 5x noise), DEPT H count where known
     peaks = []
-    noise = C13_NOISE
+    noise = acq.c13_noise
     for (r, s, h) in lines:
         if abs(h) < 5 * noise:
             continue
@@ -344,9 +435,11 @@ def main(argv: list[str] | None = None) -> int:
             # JCAMP-DX files are ASCII: the attribution's umlaut is transliterated there
             comments = [c.replace("ö", "oe") for c in spec.meta["comments"]]
             write_jcampdx(spec, path, form=JCAMP_FORM, title=spec.meta["title"], comments=comments)
-        _write_csv(case.h1_csv, case, "1H peak list (multiplets), CDCl3, 400 MHz (simulated)",
+        acq = _acq(case)
+        _write_csv(case.h1_csv, case, f"1H peak list (multiplets), CDCl3, {acq.label} (simulated)",
                    ["shift_ppm", "from_ppm", "to_ppm", "integral", "multiplicity", "j_hz", "flag"], h1_peaks)
-        _write_csv(case.c13_csv, case, "13C peak list with DEPT-135 H counts, CDCl3, 100.6 MHz (simulated)",
+        _write_csv(case.c13_csv, case,
+                   f"13C peak list with DEPT-135 H counts, CDCl3, {acq.c13_mhz:.1f} MHz (simulated)",
                    ["shift_ppm", "intensity", "hydrogens", "flag"], c13_peaks)
         for p in (case.h1, case.c13, case.dept135, case.h1_csv, case.c13_csv):
             print(f"wrote {p} ({p.stat().st_size / 1024:.0f} KiB)")

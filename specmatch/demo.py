@@ -1,6 +1,6 @@
 """The invented demo scenario shipped in ``sample_spectra/``.
 
-Two cases from a fictional pilot plant (the plant, its batches and its spectra
+Three cases from a fictional pilot plant (the plant, its batches and its spectra
 are invented; ``sample_spectra/README.md`` says how the files were made). The
 CLI, the README and the app load the scenario through :func:`demo_cases`, so
 all three run exactly the same inputs.
@@ -54,6 +54,8 @@ class DemoCase:
         SMILES of the rearranged product the demo's verdict should name.
     impurities : dict
         SMILES -> mole fraction of other things deliberately added (unreacted substrate).
+    frequency_mhz : float
+        1H frequency of the (invented) spectrometer the files come from.
     """
 
     key: str
@@ -72,6 +74,7 @@ class DemoCase:
     truth: dict[str, float] = field(default_factory=dict)
     rearranged: str = ""
     impurities: dict[str, float] = field(default_factory=dict)
+    frequency_mhz: float = 400.13
 
     @property
     def files(self) -> dict[str, Path]:
@@ -128,6 +131,28 @@ _CASES = (
         "rearranged": "CCC(C)(Br)CC",
         "impurities": {},
     },
+    {
+        "key": "c",
+        "sample_id": "LFP-0503-C",
+        "title": "(c) 3-methylbut-1-ene + HCl, 60 MHz benchtop: which chloride?",
+        "substrate": "C=CC(C)C",
+        "reagent": "HCl",
+        "alcohol": None,
+        "solvent": "CDCl3",
+        "stem": "c_methylbutene_hcl_60MHz",
+        "description": (
+            f"{LAB_NAME}: batch LFP-0503-C, checked at-line on the plant's 60 MHz benchtop "
+            "spectrometer. HCl gas was passed into 3-methylbut-1-ene. Markovnikov addition gives "
+            "2-chloro-3-methylbutane, a 1,2-hydride shift the tertiary 2-chloro-2-methylbutane. "
+            "At 60 MHz the ethyl and isopropyl multiplets are strongly coupled and overlap, so "
+            "first-order reading misplaces their lines. Invented scenario; the spectra are "
+            "simulated (second order) from documented shift values."
+        ),
+        "truth": {"CCC(C)(C)Cl": 0.65, "CC(Cl)C(C)C": 0.35},
+        "rearranged": "CCC(C)(C)Cl",
+        "impurities": {},
+        "frequency_mhz": 60.0,
+    },
 )
 
 
@@ -156,7 +181,7 @@ def sample_dir() -> Path:
 
 
 def demo_cases() -> list[DemoCase]:
-    """Both demo cases, with absolute paths to their files.
+    """All demo cases, with absolute paths to their files.
 
     Files may not exist yet if ``make_demo.py`` has not been run; callers that
     open them get the reader's own error.
@@ -174,12 +199,13 @@ def demo_cases() -> list[DemoCase]:
             c13_csv=base / f"{stem}_13C_peaks.csv", h1_csv=base / f"{stem}_1H_peaks.csv",
             description=spec["description"], truth=dict(spec["truth"]),
             rearranged=spec["rearranged"], impurities=dict(spec["impurities"]),
+            frequency_mhz=float(spec.get("frequency_mhz", 400.13)),
         ))
     return out
 
 
 def demo_case(key: str) -> DemoCase:
-    """One demo case by key (``"a"`` or ``"b"``)."""
+    """One demo case by key (``"a"``, ``"b"`` or ``"c"``)."""
     for case in demo_cases():
         if case.key == key:
             return case

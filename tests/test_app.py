@@ -58,7 +58,7 @@ def _headline(at: AppTest) -> str:
 
 def _ratio(at: AppTest) -> tuple[int, int] | None:
     for text in _values(at.markdown):
-        m = re.search(r"\*\*(\d{1,3}):(\d{1,3})\*\*", text)
+        m = re.search(r"\*\*(\d{1,3}):(\d{1,3})(?::\d{1,3})*\*\*", text)  # a trace third part may follow
         if m:
             return int(m.group(1)), int(m.group(2))
     return None

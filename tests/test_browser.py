@@ -141,7 +141,7 @@ def test_demo_in_headless_chromium(server, tmp_path):
             headline = page.locator("h4").filter(has_text=re.compile(r"^(Decisive|Likely|Tentative|Cannot)")).first
             headline.wait_for(timeout=30_000)
             ratio_text = page.locator("[data-testid='stMarkdownContainer'] strong").filter(
-                has_text=re.compile(r"^\d{1,3}:\d{1,3}$")).first.inner_text(timeout=30_000)
+                has_text=re.compile(r"^\d{1,3}:\d{1,3}(:\d{1,3})*$")).first.inner_text(timeout=30_000)
             page.wait_for_timeout(2000)
             height = page.evaluate("() => document.querySelector('[data-testid=stMainBlockContainer]').scrollHeight")
             shot = _shot(page, tmp_path, "demo_a_results")

@@ -1,7 +1,11 @@
-"""Simulated spectra from a prediction: first-order sticks -> Lorentzian lines.
+"""Simulated spectra from a prediction: stick spectra -> Lorentzian lines.
 
-Pure functions on arrays (no state, no file access), used for overlays and for
-mixture fitting. Axes are in ppm; a printed spectrum runs from high to low ppm,
+1H spectra are exact (second order at the given field): the prediction's proton
+groups become individual spins with the couplings of
+:mod:`specmatch.prediction.couplings`, simulated by :mod:`specmatch.prediction.spin`
+(:func:`prediction_lines`). :func:`sticks_1h` keeps the first-order pattern of one
+group for text reports and quick looks. Pure functions on arrays (no state, no file
+access), used for overlays and for mixture fitting. Axes are in ppm; a printed spectrum runs from high to low ppm,
 and :func:`default_axis` returns such a descending axis, but every function here
 accepts an axis in either order.
 """
@@ -12,9 +16,12 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from .model import CarbonShift, Prediction, ProtonGroup
+from functools import lru_cache
 
-__all__ = ["default_axis", "lorentzian_sum", "simulate_13c", "simulate_1h", "sticks_1h"]
+from .model import CarbonShift, Prediction, ProtonGroup
+from .spin import SpinLines
+
+__all__ = ["default_axis", "lorentzian_sum", "prediction_lines", "simulate_13c", "simulate_1h", "sticks_1h"]
 
 #: exchange-broadened lines (OH, NH) are drawn this many times wider than the
 #: others (common practice: OH signals are typically 5-20 Hz wide in CDCl3)
@@ -129,27 +136,111 @@ def lorentzian_sum(
     return out
 
 
+def prediction_lines(
+    prediction: Prediction,
+    frequency_mhz: float,
+    *,
+    shifts: Sequence[float] | np.ndarray | None = None,
+    j_scale: float = 1.0,
+    geometric=None,
+) -> SpinLines:
+    """Exact 1H stick spectrum of the non-exchangeable protons of a prediction.
+
+    Parameters
+    ----------
+    prediction : Prediction
+    frequency_mhz : float
+        Spectrometer 1H frequency.
+    shifts : array-like, optional
+        One shift (ppm) per entry of ``prediction.protons`` replacing the predicted ones.
+    j_scale : float
+        Factor on every H-H coupling (the mixture fit refines it).
+    geometric : mapping, optional
+        Geometric vicinal couplings, see :func:`specmatch.prediction.couplings.coupling_network`.
+
+    Returns
+    -------
+    SpinLines
+        Intensities sum to the number of non-exchangeable protons; ``dhz_dshift`` has
+        one column per proton group (derivative of each line with respect to that
+        group's offset in Hz).
+    """
+    groups = prediction.protons
+    if shifts is None:
+        sh = tuple(float(g.shift) for g in groups)
+    else:
+        arr = np.asarray(shifts, dtype=float)
+        if arr.shape != (len(groups),):
+            from ..errors import SpecmatchError
+
+            raise SpecmatchError(
+                f"{len(groups)} proton groups but {arr.size} shifts given; give one shift per group")
+        sh = tuple(float(x) for x in arr)
+    if geometric:
+        return _lines(prediction, sh, float(frequency_mhz), float(j_scale), geometric)
+    return _cached_lines(prediction, sh, float(frequency_mhz), float(j_scale))
+
+
+@lru_cache(maxsize=1024)
+def _cached_lines(prediction: Prediction, shifts: tuple[float, ...], f: float, j_scale: float) -> SpinLines:
+    return _lines(prediction, shifts, f, j_scale, None)
+
+
+def _lines(prediction, shifts, f, j_scale, geometric) -> SpinLines:
+    from math import comb
+
+    from .couplings import coupling_network
+    from .spin import simulate_spins
+
+    net = coupling_network(prediction, geometric=geometric)
+    n_groups = len(prediction.protons)
+    sim = simulate_spins(net.shifts(shifts), net.j_matrix(j_scale), f)
+    # per-spin derivative -> per-group derivative
+    member = np.zeros((net.n_spins, n_groups))
+    if net.n_spins:
+        member[np.arange(net.n_spins), np.asarray(net.group_of_spin)] = 1.0
+    hz, inten, d_spin = sim.hz, sim.intensity, sim.dhz_dshift
+    # 19F partners: always weakly coupled to 1H, so first order on each line, through
+    # the share of the coupled spin in the line (its derivative)
+    for spin, n_f, j_hf in net.hetero:
+        m = np.arange(n_f + 1) - n_f / 2.0
+        p = np.array([comb(n_f, k) for k in range(n_f + 1)], float) / 2.0**n_f
+        hz = (hz[:, None] + d_spin[:, [spin]] * (j_hf * m)[None, :]).ravel()
+        inten = (inten[:, None] * p[None, :]).ravel()
+        d_spin = np.repeat(d_spin, n_f + 1, axis=0)
+    order = np.argsort(hz, kind="stable")
+    return SpinLines(f, hz[order], inten[order], (d_spin @ member)[order])
+
+
 def simulate_1h(
     prediction: Prediction,
     ppm_axis: np.ndarray,
     frequency_mhz: float = 400.0,
     line_width_hz: float = 1.0,
     shifts: Sequence[float] | np.ndarray | None = None,
+    *,
+    exact: bool = True,
+    geometric=None,
 ) -> np.ndarray:
-    """Simulated first-order 1H spectrum of one molecule.
+    """Simulated 1H spectrum of one molecule (exact, second order, at ``frequency_mhz``).
 
     Parameters
     ----------
     prediction : Prediction
     ppm_axis : ndarray
     frequency_mhz : float
-        Spectrometer 1H frequency (sets the multiplet widths in ppm).
+        Spectrometer 1H frequency: sets where strong coupling distorts the multiplets
+        and the multiplet widths in ppm.
     line_width_hz : float
         Full width at half height of each line; exchangeable groups are drawn
         ``EXCHANGE_BROADENING`` times wider with the same area.
     shifts : array-like, optional
         One shift (ppm) per entry of ``prediction.protons`` replacing the
         predicted one (mixture fitting moves groups within their sigma).
+    exact : bool
+        ``False`` draws the first-order multiplets of :func:`sticks_1h` instead.
+    geometric : mapping, optional
+        Geometric vicinal couplings by pair of proton-group indices.
 
     Returns
     -------
@@ -166,10 +257,26 @@ def simulate_1h(
             raise SpecmatchError(
                 f"{len(groups)} proton groups but {shifts.size} shifts given; give one shift per group"
             )
-    width = line_width_hz / float(frequency_mhz)
+    f = float(frequency_mhz)
+    if not np.isfinite(f) or f <= 0:
+        from ..errors import SpecmatchError
+
+        raise SpecmatchError(f"spectrometer frequency must be a positive number of MHz, got {frequency_mhz}")
+    width = line_width_hz / f
+    lines = None
+    if exact and any(not g.exchangeable for g in groups):
+        from ..errors import SpecmatchError
+
+        try:
+            lines = prediction_lines(prediction, f, shifts=shifts, geometric=geometric)
+        except SpecmatchError:
+            # hand-made groups that do not fit the structure: first order is all we have
+            exact = False
     centres, heights, widths = [], [], []
     for i, g in enumerate(groups):
-        pos, inten = sticks_1h(g, frequency_mhz)
+        if exact and not g.exchangeable:
+            continue
+        pos, inten = sticks_1h(g, f)
         if shifts is not None:
             pos = pos + (shifts[i] - g.shift)
         w = width * (EXCHANGE_BROADENING if g.exchangeable else 1.0)
@@ -177,6 +284,10 @@ def simulate_1h(
         # same area whatever the width: scale height by width ratio
         heights.append(inten * (width / w))
         widths.append(np.full(pos.shape, w))
+    if exact and lines is not None:
+        centres.append(lines.ppm)
+        heights.append(lines.intensity)
+        widths.append(np.full(lines.hz.shape, width))
     if not centres:
         return np.zeros(np.shape(ppm_axis), dtype=float)
     return lorentzian_sum(ppm_axis, np.concatenate(centres), np.concatenate(heights), np.concatenate(widths))

@@ -1,0 +1,109 @@
+#!/usr/bin/env python3
+"""Time of the exact 1H simulation (coupling network + spin simulation) per molecule.
+
+Prints, per molecule and field, the number of proton spins, of lines, and the best
+of ``--repeat`` wall-clock times after one warm-up (the first call pays for imports
+and basis caches). Targets: a 12-spin molecule under 1 s, a typical candidate
+(<= 20 protons) under 100 ms.
+
+    python benchmarks/bench_spin.py [--repeat 3] [--fields 60,400]
+    python benchmarks/bench_spin.py --demo-fit a   # whole-spectrum fit of a demo 1H file
+
+``--demo-fit KEY`` fits the demo case's 1H JCAMP-DX file with every compound the
+generator put in the tube (products and trace substrate) as candidates, first order
+and then with the exact second-order polish, and prints the reduced chi-square over
+the signal points and the fractions (with their sd) next to the truth.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import time
+from pathlib import Path
+
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")  # small matrices: threads only cost on a shared machine
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+from specmatch.prediction import predict  # noqa: E402
+from specmatch.prediction.couplings import coupling_network  # noqa: E402
+from specmatch.prediction.spin import simulate_spins  # noqa: E402
+
+MOLECULES = [
+    ("CCC(C)(Br)CC", "3-bromo-3-methylpentane"),
+    ("CC(Br)C(C)CC", "2-bromo-3-methylpentane"),
+    ("CCCCCC", "hexane (14 H)"), ("CCCCBr", "1-bromobutane (9 H)"), ("CCC(C)CC", "3-methylpentane (14 H)"),
+    ("CC(C)CCBr", "1-bromo-3-methylbutane (11 H)"),
+    ("CCCC(C)Br", "2-bromopentane (11 H)"),
+    ("CCCCO", "butan-1-ol"),
+    ("OCCCCCC", "hexan-1-ol (13 H on C)"),
+    ("CC(O)C1CCCCC1", "1-cyclohexylethan-1-ol"),
+    ("CCC1(O)CCCCC1", "1-ethylcyclohexan-1-ol"),
+    ("C=CC1CCCCC1", "vinylcyclohexane"),
+    ("CC(C)(C)c1ccccc1", "tert-butylbenzene"),
+    ("Cc1ccc(Cl)cc1", "4-chlorotoluene"),
+    ("CCOC(=O)CC(C)C", "ethyl isovalerate"),
+    ("CC(C)CC(C)(C)O", "2,4-dimethylpentan-2-ol"),
+]
+
+
+def demo_fit(key: str) -> int:
+    import numpy as np
+
+    from specmatch.demo import demo_case
+    from specmatch.identification.mixture.spectrum_fit import fit_spectrum
+    from specmatch.spectra import read_jcampdx
+
+    case = demo_case(key)
+    spec = read_jcampdx(case.h1.read_bytes(), source=case.h1.name)
+    truth = {**case.truth, **case.impurities}
+    cands = list(truth)
+    preds = [predict(s) for s in cands]
+    tot = sum(truth.values())
+    print(f"inputs: {case.h1.name} ({spec.frequency_mhz} MHz), candidates {cands}, "
+          f"truth {[round(truth[c] / tot, 4) for c in cands]}; masks TMS, CHCl3, water (+ free lines)")
+    for label, use in (("first order", None), ("exact polish", preds)):
+        t0 = time.perf_counter()
+        fit = fit_spectrum(spec.ppm, spec.intensity, [p.protons for p in preds], frequency_mhz=spec.frequency_mhz,
+                           masks_ppm=[(-0.03, 0.03), (7.23, 7.29), (1.545, 1.575)],
+                           extra_lines_ppm=[("water", 1.56), ("TMS", 0.0)], predictions=use)
+        print(f"{label}: reduced chi-square {fit.chi2_red:.2f}, fractions {np.round(fit.fractions, 4)} "
+              f"+- {np.round(fit.fractions_sd, 4)}, width {fit.width_hz:.2f} Hz, {time.perf_counter() - t0:.0f} s")
+    return 0
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--fields", default="60,400")
+    ap.add_argument("--demo-fit", metavar="KEY", help="fit a demo case's 1H spectrum instead (a, b or c)")
+    args = ap.parse_args(argv)
+    if args.demo_fit:
+        return demo_fit(args.demo_fit)
+    fields = [float(x) for x in args.fields.split(",")]
+    print(f"inputs: {len(MOLECULES)} molecules, fields {fields} MHz, best of {args.repeat}, "
+          f"OPENBLAS_NUM_THREADS={os.environ.get('OPENBLAS_NUM_THREADS')}")
+    print(f"{'molecule':<28} {'SMILES':<18} {'spins':>5} {'MHz':>5} {'lines':>6} {'ms':>8}")
+    worst_typical = 0.0
+    for smi, name in MOLECULES:
+        pred = predict(smi)
+        net = coupling_network(pred)
+        shifts = net.shifts([g.shift for g in pred.protons])
+        for f in fields:
+            simulate_spins(shifts, net.j_matrix(), f)  # warm-up
+            best = float("inf")
+            for _ in range(args.repeat):
+                t0 = time.perf_counter()
+                net2 = coupling_network(pred)
+                lines = simulate_spins(net2.shifts([g.shift for g in pred.protons]), net2.j_matrix(), f)
+                best = min(best, time.perf_counter() - t0)
+            if net.n_spins <= 20:
+                worst_typical = max(worst_typical, best)
+            print(f"{name:<28} {smi:<18} {net.n_spins:>5} {f:>5.0f} {lines.hz.size:>6} {1000 * best:>8.1f}")
+    print(f"slowest molecule with <= 20 protons: {1000 * worst_typical:.1f} ms (target < 100 ms)")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

@@ -27,6 +27,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .. import safeio
 from ..errors import SpecmatchError
 from .jcampdx import normalise_nucleus
 from .model import PeakList, Spectrum
@@ -60,16 +61,16 @@ def read_folder(root: Path, *, nucleus: str | None = None, label: str | None = N
     readers = []
     for p in files:
         if p.suffix.lower() in (".jdx", ".dx", ".jcamp"):
-            readers.append(lambda p=p: read_jcampdx(p.read_bytes(), source=where(p), nucleus=nucleus))
+            readers.append(lambda p=p: read_jcampdx(safeio.read_bytes(p, kind="spectrum"), source=where(p), nucleus=nucleus))
     for p in files:
         if p.name == "1r" and (p.parent / "procs").exists():
             readers.append(lambda d=p.parent: read_bruker_pdata(d, label=where(d), nucleus=nucleus))
     for p in files:
         if p.suffix.lower() in (".ft", ".ft1"):
-            readers.append(lambda p=p: read_nmrpipe_bytes(p.read_bytes(), source=where(p), nucleus=nucleus))
+            readers.append(lambda p=p: read_nmrpipe_bytes(safeio.read_bytes(p, kind="spectrum"), source=where(p), nucleus=nucleus))
     for p in files:
         if p.suffix.lower() == ".nmrml":
-            readers.append(lambda p=p: read_nmrml(p.read_bytes(), source=where(p), nucleus=nucleus))
+            readers.append(lambda p=p: read_nmrml(safeio.read_bytes(p, kind="spectrum"), source=where(p), nucleus=nucleus))
     processed = {p.parent for p in files if p.name == "1r"}
     for p in files:
         if p.name == "fid" and (p.parent / "procpar").exists():
@@ -107,6 +108,16 @@ def _ng():
     return ng
 
 
+def _guard(folder: Path, data_names: tuple[str, ...], param_names: tuple[str, ...]) -> None:
+    """Size and file-type checks (``safeio``) on the files nmrglue is about to read."""
+    for name in data_names:
+        if (folder / name).exists():
+            safeio.check_file(folder / name, kind="spectrum")
+    for name in param_names:
+        if (folder / name).exists():
+            safeio.check_file(folder / name, kind="parameters")
+
+
 def _nmrglue_call(what: str, fn, *args, **kwargs):
     """Run an nmrglue reader; its exceptions become one clear message."""
     try:
@@ -131,6 +142,8 @@ def read_bruker_pdata(pdata_dir: Path, *, label: str, nucleus: str | None = None
     ng = _ng()
     expno = pdata_dir.parent.parent
     acqus_ok = (expno / "acqus").exists()
+    _guard(pdata_dir, ("1r", "1i"), ("procs",))
+    _guard(expno, (), ("acqus",))
 
     def _read():
         dic, data = ng.bruker.read_pdata(str(pdata_dir), read_acqus=False, scale_data=True)
@@ -185,6 +198,7 @@ def _process_fid(fid: np.ndarray, *, sw_hz: float, sf_mhz: float, nucleus: str,
 def read_varian_fid(folder: Path, *, label: str, nucleus: str | None = None) -> Spectrum:
     """Agilent/Varian ``fid`` + ``procpar``: processed here (see module docstring)."""
     ng = _ng()
+    _guard(folder, ("fid",), ("procpar",))
     dic, data = _nmrglue_call(f"'{label}' (Agilent/Varian fid)", ng.varian.read, str(folder))
     data = np.asarray(data)
     if data.ndim != 1:
@@ -228,6 +242,7 @@ def read_varian_fid(folder: Path, *, label: str, nucleus: str | None = None) -> 
 def read_bruker_fid(folder: Path, *, label: str, nucleus: str | None = None) -> Spectrum:
     """A raw ``fid`` with ``acqus`` (no processed data): processed here."""
     ng = _ng()
+    _guard(folder, ("fid",), ("acqus",))
     dic, data = _nmrglue_call(f"'{label}' (fid)", ng.bruker.read, str(folder))
     data = np.asarray(data)
     if data.ndim != 1:

@@ -62,6 +62,9 @@ class PeakList:
     source: str = ""
     experiment: str = "1D"
     warnings: tuple[str, ...] = ()
+    #: what 1H multiplet integrals are: "" as given (typed lists), "percent" of the
+    #: unflagged multiplets (processed spectra), or "H" (scaled to protons)
+    integral_unit: str = ""
 
     def compound_peaks(self) -> tuple[Peak, ...]:
         """Peaks not flagged as solvent, water, TMS, grease or impurity."""

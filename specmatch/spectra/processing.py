@@ -56,6 +56,8 @@ UNRESOLVED_HZ = 1.2
 SMOOTH_MAX_HZ_PER_POINT = 0.5
 #: largest height ratio of neighbouring lines inside one multiplet (8:1 edge of a nonet, plus slack)
 MAX_NEIGHBOUR_RATIO = 12.0
+#: a named multiplet whose integral exceeds its lines' Lorentzian areas this many times is "m"
+UNEXPLAINED_AREA_RATIO = 1.6
 #: most lines analysed per spectrum: the strongest are kept (a noise-picking limit)
 MAX_LINES = 5000
 
@@ -574,7 +576,10 @@ def _reference(pos: np.ndarray, height: np.ndarray, nucleus: str, solvent: str |
     hmax = float(np.max(np.abs(height)))
     near0 = np.flatnonzero((np.abs(pos) <= win) & (np.abs(height) >= 0.02 * hmax))
     # TMS: the singlet nearest 0 ppm; in 1H it is the highest-field line.
-    if len(near0) and (nucleus == "13C" or pos[near0].min() <= pos.min() + 1e-9):
+    # (Compared with the significant lines only: TMS's own 13C satellites and
+    # traces lie further upfield.)
+    significant = pos[np.abs(height) >= 0.02 * hmax]
+    if len(near0) and (nucleus == "13C" or pos[near0].min() <= significant.min() + 1e-9):
         k = near0[np.argmin(np.abs(pos[near0]))]
         off = -float(pos[k])
         return off, f"TMS at 0.00 ppm (axis moved by {off:+.3f} ppm)"
@@ -637,9 +642,10 @@ def _flag_peaks(pos: np.ndarray, nucleus: str, solvent: str | None, freq: float 
         for p in pattern_ppm(row, freq):
             for k in np.flatnonzero(np.abs(pos - p) <= tol):
                 flags[k] = "solvent" if row.kind == "solvent" else "TMS"
-    if not any(r.kind == "TMS" for r in lines_for(solvent, nucleus)):
-        for k in np.flatnonzero(np.abs(pos) <= tol):
-            flags[k] = flags[k] or "TMS"
+    # A line at 0.00 is TMS whatever the table says for the solvent (spectra are
+    # often referenced to TMS itself).
+    for k in np.flatnonzero(np.abs(pos) <= tol):
+        flags[k] = flags[k] or "TMS"
     return flags
 
 
@@ -750,6 +756,16 @@ def _proton_list(spectrum: Spectrum, ppm: np.ndarray, y: np.ndarray, sigma: floa
         ints.append(float(np.sum(y[lo:hi + 1])) * dppm)
         bounds.append((lo, hi))
     ints_a = np.array(ints)
+    # A first-order name needs the lines to carry the intensity: much more area
+    # than the picked lines explain means unresolved lines (shoulders) -> "m".
+    hts = picked.height[order]
+    for i, (members, mult, js, c) in enumerate(multiplets):
+        if mult == "m" or len(members) < 2:
+            continue
+        explained = sum(_line_area(y, int(pts[k]), float(hts[k])) for k in members)
+        if explained > 0 and ints_a[i] > UNEXPLAINED_AREA_RATIO * explained * dppm:
+            multiplets[i] = (members, "m", (), float(np.average(pos[order][members],
+                                                                weights=np.abs(hts[members]))))
     centres = np.array([m[3] for m in multiplets])
     mults = [m[1] for m in multiplets]
     mflags: list[str | None] = [flags[int(order[m[0][0]])] for m in multiplets]
@@ -850,6 +866,32 @@ def scale_integrals(peaklist: PeakList, total_h: float | None = None, *,
     return replace(peaklist, multiplets=mults, integral_unit="H",
                    warnings=tuple(w for w in peaklist.warnings if not w.startswith("integrals "))
                    + (f"integrals scaled to {total_h:g} H for the unflagged multiplets",))
+
+
+def _line_area(y: np.ndarray, k: int, height: float, max_walk: int = 400) -> float:
+    """Area (in point units) of a Lorentzian line of this height and the half width
+    measured on its cleaner side (a side that meets a valley before half height
+    is not used); 0 when neither side reaches half height."""
+    half = 0.5 * height
+    widths = []
+    for step in (-1, 1):
+        j, prev = k, height
+        for _ in range(max_walk):
+            nxt = j + step
+            if nxt < 0 or nxt >= len(y):
+                break
+            v = float(y[nxt])
+            if v < half:
+                # interpolate the crossing between j and nxt
+                frac = (float(y[j]) - half) / max(float(y[j]) - v, 1e-300)
+                widths.append(abs(j - k) + frac)
+                break
+            if v > prev * 1.02:
+                break  # climbing again: a valley before half height
+            j, prev = nxt, v
+    if not widths:
+        return 0.0
+    return float(np.pi * height * min(widths))  # pi/2 x height x FWHM, FWHM = 2 x half width
 
 
 def _group(pos: np.ndarray, height: np.ndarray, flags: list[str | None], freq: float,

@@ -639,7 +639,16 @@ def _read_peak_table(block: Block, rec: LDR, *, source: str, nucleus: str | None
                      solvent: str | None, src: str, notes: list[str]) -> PeakList:
     kind = re.sub(r"\s", "", rec.value).upper()
     width = 3 if kind.startswith("(XYW") or kind.startswith("(XYM") else 2
+    from .peaklist_io import MAX_PEAKS, SHIFT_RANGE_PPM
+
+    if len(rec.lines) > MAX_PEAKS:
+        raise SpecmatchError(
+            f"{source}: the peak table has {len(rec.lines):,} lines; a peak list may hold at most "
+            f"{MAX_PEAKS:,} peaks")
     vals = _table_values(rec, width, source)
+    if len(vals) > MAX_PEAKS:
+        raise SpecmatchError(
+            f"{source}: the peak table lists {len(vals):,} peaks; at most {MAX_PEAKS:,} are read")
     xfactor = _factor(_num(block, "XFACTOR", source), "XFACTOR", source)
     yfactor = _factor(_num(block, "YFACTOR", source), "YFACTOR", source)
     x = vals[:, 0] * xfactor
@@ -650,6 +659,12 @@ def _read_peak_table(block: Block, rec: LDR, *, source: str, nucleus: str | None
     if nucleus is None:
         raise SpecmatchError(
             f"{source}: the peak table does not say which nucleus it is; give --nucleus 1H or 13C")
+    lo_ok, hi_ok = SHIFT_RANGE_PPM.get(nucleus, (-1e3, 1e3))
+    bad = ~((ppm >= lo_ok) & (ppm <= hi_ok))
+    if bad.any():
+        raise SpecmatchError(
+            f"{source}: the peak table lists a shift of {float(ppm[np.argmax(bad)]):g} ppm, outside the "
+            f"{nucleus} range ({lo_ok:g} to {hi_ok:g} ppm); the table is damaged")
     peaks = []
     for i in np.argsort(-ppm):
         wid = None

@@ -473,7 +473,12 @@ def _check_and_axis(dec, xfactor, yfactor, firstx, lastx, npoints, firsty, sourc
     want = int(npoints) if npoints is not None else n
     if n < 2:
         raise SpecmatchError(f"{source}: '{rec.value.strip()}' holds {n} point; a spectrum needs more")
-    xs = dec.line_x * xfactor
+    with np.errstate(over="ignore", invalid="ignore"):
+        xs = dec.line_x * xfactor
+    if not np.all(np.isfinite(xs)):
+        raise SpecmatchError(
+            f"cannot read '{source}': the line X values times XFACTOR ({xfactor:g}) are not finite "
+            "numbers; the header is damaged")
     starts = dec.line_start
     # Abscissa step from the header (over the points the data really hold), else
     # from the X written on the lines.

@@ -216,3 +216,14 @@ def test_peaks_json_lists_the_reading_warnings(capsys):
     out = json.loads(capsys.readouterr().out)
     assert any("NPOINTS" in w for w in out["warnings"])
     assert out["integral_unit"] == "percent"
+
+
+def test_journal_text_counts_protons_only_when_scaled():
+    from specmatch.reports.peaktext import measured_peak_text
+
+    pl = peaks("chloroethanol_1h_cdcl3_difdup.dx")
+    plain = measured_peak_text(pl, "1H", pl.frequency_mhz, pl.solvent)
+    assert "H)" not in plain  # relative integrals are not proton counts
+    scaled = measured_peak_text(pl, "1H", pl.frequency_mhz, pl.solvent, formula="C2H5ClO")
+    # 2-chloroethanol: two 2H triplets (J about 5 Hz, from memory) and the 1H OH singlet
+    assert "(t, J = 5.2 Hz, 2H)" in scaled and "(s, 1H)" in scaled

@@ -29,7 +29,8 @@ import numpy as np
 
 from .. import safeio
 from ..errors import SpecmatchError
-from .jcampdx import normalise_nucleus
+from .experiment import classify_experiment
+from .jcampdx import check_frequency, normalise_nucleus
 from .model import PeakList, Spectrum
 
 MAX_DEPTH = 6
@@ -169,10 +170,15 @@ def read_bruker_pdata(pdata_dir: Path, *, label: str, nucleus: str | None = None
         raise SpecmatchError(f"'{label}': no acqus with NUC1; give --nucleus 1H or 13C")
     solvent = str(acqus.get("SOLVENT", "")).strip("<> ") or None
     pulprog = str(acqus.get("PULPROG", "")).strip("<> ")
-    return Spectrum(nucleus=nuc, ppm=ppm, intensity=np.asarray(data, dtype=float).real, frequency_mhz=sf,
-                    solvent=solvent, source=f"{label} (processed 1D data)",
-                    experiment="DEPT-135" if "dept" in pulprog.lower() else "1D",
-                    meta={"pulse_program": pulprog})
+    check_frequency(sf, nuc, label)
+    intensity = np.asarray(data, dtype=float).real
+    title = ""
+    if (pdata_dir / "title").is_file():
+        title = safeio.read_text(pdata_dir / "title", kind="parameters")
+    experiment, notes = classify_experiment(nuc, pulprog, title, intensity)
+    return Spectrum(nucleus=nuc, ppm=ppm, intensity=intensity, frequency_mhz=sf,
+                    solvent=solvent, source=f"{label} (processed 1D data)", experiment=experiment,
+                    meta={"pulse_program": pulprog, "title": title.strip(), "warnings": tuple(notes)})
 
 
 def _process_fid(fid: np.ndarray, *, sw_hz: float, sf_mhz: float, nucleus: str,
@@ -221,6 +227,7 @@ def read_varian_fid(folder: Path, *, label: str, nucleus: str | None = None) -> 
     nuc = normalise_nucleus(val("tn", None, str)) or nucleus
     if nuc is None:
         raise SpecmatchError(f"'{label}': procpar has no tn (nucleus); give --nucleus")
+    check_frequency(sfrq, nuc, label)
     rp, lp = val("rp"), val("lp")
     phase_given = rp is not None and (rp != 0 or (lp or 0) != 0)
     spec = _process_fid(data, sw_hz=sw, sf_mhz=sfrq, nucleus=nuc,
@@ -232,11 +239,14 @@ def read_varian_fid(folder: Path, *, label: str, nucleus: str | None = None) -> 
     right_ppm = (rfp - rfl) / sfrq
     ppm = right_ppm + (sw / sfrq) * (1 - np.arange(n) / n)
     solvent = val("solvent", None, str)
+    seq = val("seqfil", None, str) or val("pslabel", None, str)
+    experiment, notes = classify_experiment(nuc, seq, None, spec)
     return Spectrum(nucleus=nuc, ppm=ppm, intensity=spec, frequency_mhz=sfrq, solvent=solvent,
-                    source=f"{label} (Agilent/Varian fid, processed by specmatch)",
-                    meta={"warnings": ("FID processed by specmatch: exponential window, FT, "
-                                       + ("phase from procpar" if phase_given else "automatic phase")
-                                       ,)})
+                    source=f"{label} (Agilent/Varian fid, processed by specmatch)", experiment=experiment,
+                    meta={"pulse_program": seq or "",
+                          "warnings": ("FID processed by specmatch: exponential window, FT, "
+                                       + ("phase from procpar" if phase_given else "automatic phase"),
+                                       *notes)})
 
 
 def read_bruker_fid(folder: Path, *, label: str, nucleus: str | None = None) -> Spectrum:
@@ -259,14 +269,19 @@ def read_bruker_fid(folder: Path, *, label: str, nucleus: str | None = None) -> 
     nuc = normalise_nucleus(str(acqus.get("NUC1", "")).strip("<>")) or nucleus
     if nuc is None:
         raise SpecmatchError(f"'{label}': acqus has no NUC1; give --nucleus")
+    check_frequency(sfo1, nuc, label)
     spec = _process_fid(data, sw_hz=sw, sf_mhz=sfo1, nucleus=nuc, p0=None, p1=None)
     n = len(spec)
     centre = o1 / bf1
     ppm = centre + (sw / sfo1) * (0.5 - np.arange(n) / n)
     solvent = str(acqus.get("SOLVENT", "")).strip("<> ") or None
+    pulprog = str(acqus.get("PULPROG", "")).strip("<> ")
+    experiment, notes = classify_experiment(nuc, pulprog, None, spec)
     return Spectrum(nucleus=nuc, ppm=ppm, intensity=spec, frequency_mhz=sfo1, solvent=solvent,
-                    source=f"{label} (fid, processed by specmatch)",
-                    meta={"warnings": ("FID processed by specmatch: exponential window, FT, automatic phase",)})
+                    source=f"{label} (fid, processed by specmatch)", experiment=experiment,
+                    meta={"pulse_program": pulprog,
+                          "warnings": ("FID processed by specmatch: exponential window, FT, automatic phase",
+                                       *notes)})
 
 
 def read_nmrpipe_bytes(data: bytes, *, source: str, nucleus: str | None = None) -> Spectrum:
@@ -296,6 +311,7 @@ def read_nmrpipe_bytes(data: bytes, *, source: str, nucleus: str | None = None) 
         nuc = nucleus
     if nuc is None:
         raise SpecmatchError(f"'{source}': the NMRPipe axis label '{lab}' does not name a nucleus; give --nucleus")
+    check_frequency(obs, nuc, source)
     return Spectrum(nucleus=nuc, ppm=ppm, intensity=np.asarray(y.real, dtype=float), frequency_mhz=obs,
                     solvent=None, source=f"{source} (NMRPipe)")
 
@@ -334,6 +350,8 @@ def read_nmrml(data: bytes, *, source: str, nucleus: str | None = None) -> Spect
             pass
     if freq and freq > 1e5:  # given in Hz
         freq /= 1e6
+    if freq is not None:
+        check_frequency(freq, nuc, source)
     sw = None
     for e in by.get("sweepWidth", []):
         try:

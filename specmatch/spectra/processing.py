@@ -58,6 +58,8 @@ SMOOTH_MAX_HZ_PER_POINT = 0.5
 MAX_NEIGHBOUR_RATIO = 12.0
 #: a named multiplet whose integral exceeds its lines' Lorentzian areas this many times is "m"
 UNEXPLAINED_AREA_RATIO = 1.6
+#: 1H multiplets below this share of the unflagged integral are flagged "trace"
+TRACE_FRACTION = 0.003
 #: most lines analysed per spectrum: the strongest are kept (a noise-picking limit)
 MAX_LINES = 5000
 
@@ -781,6 +783,12 @@ def _proton_list(spectrum: Spectrum, ppm: np.ndarray, y: np.ndarray, sigma: floa
     for k, f in imp.items():
         mflags[k] = f
     compound = np.array([f is None for f in mflags])
+    if compound.sum() > 1:
+        # Traces: far below any proton of the compound (and below what a ratio is quoted for).
+        total = float(np.sum(np.abs(ints_a[compound])))
+        for i in np.flatnonzero(compound & (np.abs(ints_a) < TRACE_FRACTION * total)):
+            mflags[i] = "trace"
+        compound = np.array([f is None for f in mflags])
     unit = "percent"
     basis = ""
     if compound.any():

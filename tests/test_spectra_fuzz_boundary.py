@@ -106,3 +106,12 @@ def test_real_ntuples_header_values_never_crash(label, values):
     got = _ok_or_clear(read_spectrum, "\n".join(lines).encode("latin-1"), name="fuzz.jdx")
     if isinstance(got, Spectrum):
         assert np.all(np.isfinite(got.ppm)) and np.all(np.isfinite(got.intensity))
+
+
+@SETTINGS
+@given(prefix=st.sampled_from([b"PK\x03\x04", b"PK\x05\x06", b"<?xml version='1.0'?><nmrML>",
+                               b"\xff\xfe#\x00#\x00", b"\xef\xbb\xbfshift,integral\n"]),
+       body=st.binary(max_size=300))
+def test_archive_nmrml_and_encoded_text_never_crash(prefix, body):
+    got = _ok_or_clear(read_spectrum, prefix + body, name="fuzz")
+    assert got is None or isinstance(got, (Spectrum, PeakList))

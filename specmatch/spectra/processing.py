@@ -151,32 +151,6 @@ def _subset(p: PickedPeaks, sel: np.ndarray) -> PickedPeaks:
     return PickedPeaks(p.index[sel], p.ppm[sel], p.height[sel], p.point[sel])
 
 
-def _merge_shallow(s: np.ndarray, idx: np.ndarray, depth: float) -> np.ndarray:
-    """Drop maxima that are noise on a bigger line: the valley between a maximum and
-    its kept neighbour must be at least `depth` below the smaller of the two."""
-    if len(idx) < 2:
-        return idx
-    # Fast path: consecutive valleys all deep -> nothing to merge.
-    valleys = np.minimum.reduceat(s, idx)[:-1]
-    if not ((np.minimum(s[idx[:-1]], s[idx[1:]]) - valleys) < depth).any():
-        return idx
-    keep: list[int] = [int(idx[0])]
-    for j in idx[1:]:
-        j = int(j)
-        while keep:
-            a = keep[-1]
-            valley = float(s[a:j].min())
-            if min(s[a], s[j]) - valley >= depth:
-                keep.append(j)
-                break
-            if s[j] <= s[a]:
-                break  # j is noise on a's line
-            keep.pop()  # a is noise on j's line; compare j with the one before
-        else:
-            keep.append(j)
-    return np.asarray(keep, dtype=int)
-
-
 # ------------------------------------------------------------------ real-data artefacts
 def foot_lines(y: np.ndarray, point: np.ndarray, height: np.ndarray, hz_per_point: float) -> np.ndarray:
     """Mask of lines that are ripples on the foot of a much bigger line nearby.

@@ -189,3 +189,22 @@ def test_dept_title_without_pulse_program_needs_negative_lines(tmp_path):
     write_jcampdx(Spectrum("13C", ppm, up, 100.6, None, "t"), p, title="sample 7 DEPT-135")
     sp = read_jcampdx(p.read_bytes())
     assert sp.experiment == "1D" and any("no line points down" in w for w in sp.meta["warnings"])
+
+
+def test_line_x_in_other_units_is_a_warning_and_still_checks_points(tmp_path):
+    # line X values written as point indices with XFACTOR 1 (not the Hz of FIRSTX/LASTX)
+    lines = _jdx(tmp_path, n=2048).splitlines()
+    first = next(i for i, s in enumerate(lines) if s.startswith("##XYDATA")) + 1
+    start, out = 0, lines[:first]
+    for s in lines[first:]:
+        if s.startswith("##"):
+            out.append(s)
+            continue
+        parts = s.split()
+        out.append(" ".join([str(start)] + parts[1:]))
+        start += len(parts) - 1
+    sp = read_jcampdx("\n".join(out))
+    assert len(sp.ppm) == 2048 and any("other units" in w for w in sp.meta["warnings"])
+    del out[first + 5]
+    with pytest.raises(SpecmatchError, match=rf"line {first + 6}: .*points are missing"):
+        read_jcampdx("\n".join(out))

@@ -511,14 +511,24 @@ def _check_and_axis(dec, xfactor, yfactor, firstx, lastx, npoints, firsty, sourc
     if len(xs) > 1:
         steps = np.diff(xs) / deltax
         want_steps = np.diff(starts).astype(float)
+        # The line X values may count in other units than FIRSTX/LASTX (point indices,
+        # the opposite direction): one scale for all lines, read from the median step.
+        use = want_steps > 0
+        scale = float(np.median(steps[use] / want_steps[use])) if use.any() else 1.0
+        if not np.isfinite(scale) or scale == 0 or abs(scale - 1.0) <= 0.01:
+            scale = 1.0
+        elif abs(scale + 1.0) <= 0.01:
+            scale = -1.0
+        steps = steps / scale
         # Half a point plus the rounding of two X values plus 0.1% drift per point.
-        tol = 0.5 + round_pts + 1e-3 * want_steps
+        tol = 0.5 + round_pts / abs(scale) + 1e-3 * want_steps
         bad = np.abs(steps - want_steps) > tol
-        if bad.any() and not (np.abs(-steps - want_steps) > tol).any():
-            notes.append("the line X values run opposite to ##FIRSTX= -> ##LASTX= (they count "
-                         "points); the abscissa follows FIRSTX, LASTX and the point count")
-            bad[:] = False
-            opposite = True
+        if scale != 1.0:
+            opposite = True  # offset and drift against FIRSTX are not meaningful then
+            how = ("run opposite to ##FIRSTX= -> ##LASTX= (they count points)" if scale == -1.0
+                   else f"advance {scale:.4g} times the point spacing per point (other units)")
+            notes.append(f"the line X values {how}; the abscissa follows FIRSTX, LASTX and the "
+                         "point count")
         if bad.any():
             k = int(np.argmax(bad))
             gap = steps[k] - want_steps[k]

@@ -32,7 +32,7 @@ def main() -> None:
     ap.add_argument("--data", type=Path, default=DEFAULT_DATA)
     a = ap.parse_args()
     t0 = time.perf_counter()
-    from specmatch.prediction.proton import TABLES_VERSION, predict_protons
+    from specmatch.prediction.h1.predictor import TABLES_VERSION, predict_protons
     from specmatch.structures import parse_structure
     t_import = time.perf_counter() - t0
 

@@ -7,7 +7,7 @@ Reproducible: the same data file and options give the same tables.
 
 Method
 ------
-* Every carbon's shift is a sum of increments (``specmatch.prediction.c13_environment``
+* Every carbon's shift is a sum of increments (``specmatch.prediction.c13.environment``
   names them); the starting values are the handbook numbers of
   ``specmatch/prediction/tables/c13_handbook.csv``.
 * The records are not atom-mapped to the SMILES, so measured shifts are paired with
@@ -48,7 +48,7 @@ from rdkit import Chem, RDLogger
 RDLogger.DisableLog("rdApp.*")
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 sys.path.insert(0, ROOT)
-from specmatch.prediction.c13_environment import carbon_environments, is_correction  # noqa: E402
+from specmatch.prediction.c13.environment import carbon_environments, is_correction  # noqa: E402
 
 TABLES = os.path.join(ROOT, "specmatch", "prediction", "tables")
 H_OF = {"S": 0, "D": 1, "T": 2, "Q": 3}

@@ -5,7 +5,7 @@ Data: nmrshiftdb2 (Kuhn & Schlörer, Magn. Reson. Chem. 2015, 53, 582), developm
 part at ../shared/reference/nmrshiftdb2_dev.jsonl; every record whose largest 1H
 spectrum has one shift per hydrogen of the molecule.
 
-Method: the model stays the additive one of specmatch.prediction.h1_perceive
+Method: the model stays the additive one of specmatch.prediction.h1.environment
 (shift = sum of table values times coefficients). Experimental shifts carry no
 usable atom map, so protons are assigned within each molecule in shift order
 (predicted sorted against measured sorted, the pairing that minimises absolute
@@ -45,8 +45,8 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 from specmatch.errors import SpecmatchError  # noqa: E402
-from specmatch.prediction import h1_tables  # noqa: E402
-from specmatch.prediction.h1_perceive import proton_sites  # noqa: E402
+from specmatch.prediction.h1 import tables as h1_tables  # noqa: E402
+from specmatch.prediction.h1.environment import proton_sites  # noqa: E402
 from specmatch.structures import parse_structure  # noqa: E402
 
 DEFAULT_DATA = ROOT.parent / "shared" / "reference" / "nmrshiftdb2_dev.jsonl"

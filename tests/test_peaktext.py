@@ -9,7 +9,7 @@ import pytest
 from specmatch.errors import SpecmatchError
 from specmatch.prediction import predict_structure
 from specmatch.prediction.model import CarbonShift, Prediction, ProtonGroup
-from specmatch.prediction.proton import predict_protons
+from specmatch.prediction.h1.predictor import predict_protons
 from specmatch.reports.peaktext import measured_peak_text, predicted_peak_text
 from specmatch.spectra.model import Multiplet, Peak, PeakList
 from specmatch.structures import parse_structure

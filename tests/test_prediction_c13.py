@@ -21,7 +21,7 @@ from hypothesis import strategies as st
 from rdkit import Chem
 
 from specmatch.prediction import predict
-from specmatch.prediction.carbon import TABLES_VERSION, predict_carbons
+from specmatch.prediction.c13.predictor import TABLES_VERSION, predict_carbons
 from specmatch.structures import parse_structure
 
 DATA = Path(__file__).parent / "data" / "nmrshiftdb2_c13_subset.jsonl"

@@ -19,10 +19,10 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from specmatch.prediction.h1_perceive import proton_sites
-from specmatch.prediction.h1_tables import TABLE_DIR, load_tables
+from specmatch.prediction.h1.environment import proton_sites
+from specmatch.prediction.h1.tables import TABLE_DIR, load_tables
 from specmatch.prediction.multiplicity import merge_couplings, multiplicity
-from specmatch.prediction.proton import predict_protons
+from specmatch.prediction.h1.predictor import predict_protons
 from specmatch.structures import parse_structure
 
 DATA = Path(__file__).parent / "data" / "nmrshiftdb2_h1_core_subset.jsonl"

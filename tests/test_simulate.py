@@ -173,7 +173,7 @@ _PIECES = ["C", "C(C)", "C(O)", "C(Cl)", "C(Br)", "C(F)", "C=C", "O", "C#C", "c1
 def test_property_predicted_spectra_finite_and_area_follows_h_count(body, end):
     # whole chain: perception -> 1H prediction -> simulation; total area / H count must be
     # one constant (pi * width / 2 per proton), whatever the molecule
-    from specmatch.prediction.proton import predict_protons
+    from specmatch.prediction.h1.predictor import predict_protons
     from specmatch.structures import parse_structure
 
     st_ = parse_structure("C" + "".join(body) + end)

@@ -7,17 +7,20 @@ text, so scoring many spectra against one candidate predicts it once.
 from __future__ import annotations
 
 from functools import lru_cache
+from typing import TYPE_CHECKING
 
-from ..structures import Structure, parse_structure
 from .model import CarbonShift, Prediction, ProtonGroup
+
+if TYPE_CHECKING:  # RDKit is loaded on first prediction, so small submodules import fast
+    from ..structures import Structure
 
 __all__ = ["CarbonShift", "Prediction", "ProtonGroup", "predict", "predict_structure"]
 
 
 def predict_structure(structure: Structure) -> Prediction:
     """Predict both spectra of an already perceived structure."""
-    from .carbon import TABLES_VERSION as C_VERSION, predict_carbons
-    from .proton import TABLES_VERSION as H_VERSION, predict_protons
+    from .c13.predictor import TABLES_VERSION as C_VERSION, predict_carbons
+    from .h1.predictor import TABLES_VERSION as H_VERSION, predict_protons
 
     carbons, c_warn = predict_carbons(structure)
     protons, h_warn = predict_protons(structure)
@@ -40,4 +43,6 @@ def predict(smiles: str) -> Prediction:
     specmatch.SpecmatchError
         If the structure cannot be parsed.
     """
+    from ..structures import parse_structure
+
     return predict_structure(parse_structure(smiles))

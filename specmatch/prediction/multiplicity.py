@@ -1,4 +1,15 @@
-"""First-order multiplicity: coupling partner sets -> the trade's letters.
+"""Multiplicity letters: the one place that knows the trade's vocabulary.
+
+Everything that writes, reads or counts multiplicity letters (the 1H predictor,
+peak picking, peak-list readers, solvent patterns, scoring, mixture analysis,
+reports) takes them from here:
+
+- :data:`LETTER_FOR_PARTNERS` — n equivalent partners -> letter (n + 1 lines),
+- :data:`PARTNERS_FOR_LETTER` and :data:`N_LINES` — the reverse, with the common
+  alternative spellings found in users' files (hept, p, pent),
+- :data:`NO_J_LETTERS` — letters that carry no coupling constant,
+- :func:`normalise` and :func:`partners_of` for observed text,
+- :func:`multiplicity` — coupling partner sets -> letters (first-order analysis).
 
 The n+1 rule with equal-J merging: partner sets whose coupling constants agree
 within a tolerance are merged (their proton counts add), then each remaining
@@ -8,6 +19,7 @@ q, quint, sext, sept, dd, dt, td, ddd) are reported as "m".
 
 from __future__ import annotations
 
+import re
 from collections.abc import Sequence
 
 #: merge couplings closer than this (Hz); at 400 MHz lines 1 Hz apart are rarely resolved
@@ -17,8 +29,47 @@ MERGE_TOLERANCE_HZ = 1.5
 #: couplings smaller than this are not resolved as splittings (common practice)
 MIN_RESOLVED_J_HZ = 0.8
 
-_SIMPLE = {0: "s", 1: "d", 2: "t", 3: "q", 4: "quint", 5: "sext", 6: "sept"}
+#: n equivalent partners -> the trade's letter (n + 1 lines)
+LETTER_FOR_PARTNERS: dict[int, str] = {0: "s", 1: "d", 2: "t", 3: "q", 4: "quint", 5: "sext", 6: "sept"}
+#: other spellings met in peak lists and papers -> our letters
+ALIASES: dict[str, str] = {"hept": "sept", "p": "quint", "pent": "quint", "brs": "br s", "bs": "br s"}
+#: letter (our spelling or an alias) -> number of equivalent partners
+PARTNERS_FOR_LETTER: dict[str, int] = {
+    **{v: k for k, v in LETTER_FOR_PARTNERS.items()},
+    **{a: {v: k for k, v in LETTER_FOR_PARTNERS.items()}[t] for a, t in ALIASES.items() if t != "br s"},
+}
+#: letter -> number of lines of a first-order multiplet
+N_LINES: dict[str, int] = {letter: n + 1 for letter, n in PARTNERS_FOR_LETTER.items()}
+#: letters that carry no coupling constant
+NO_J_LETTERS = frozenset({"s", "br s", "m", "br", "br m"})
+#: two- and three-letter first-order patterns we write
 _TWO = {(1, 1): "dd", (1, 2): "dt", (2, 1): "td"}
+_BY_LENGTH = tuple(sorted(PARTNERS_FOR_LETTER.items(), key=lambda kv: -len(kv[0])))
+
+
+def normalise(text: str) -> str:
+    """Observed multiplicity text in our spelling (``"Hept"`` -> ``"sept"``, ``"brs"`` -> ``"br s"``)."""
+    m = re.sub(r"\s+", " ", text.strip().lower())
+    if m.replace(" ", "") in ALIASES:
+        return ALIASES[m.replace(" ", "")]
+    return re.sub(r"hept|pent", lambda g: ALIASES[g.group(0)], m)
+
+
+def partners_of(text: str) -> int | None:
+    """Total equivalent partners of a first-order letter string (``"dq"`` -> 4); None for m / br."""
+    m = (text or "").strip().lower()
+    if not m or "m" in m or "br" in m:
+        return None
+    n = 0
+    while m:
+        for letters, partners in _BY_LENGTH:
+            if m.startswith(letters):
+                n += partners
+                m = m[len(letters):]
+                break
+        else:
+            return None
+    return n
 
 
 def merge_couplings(
@@ -82,7 +133,7 @@ def multiplicity(
     if len(merged) == 0:
         return "s", ()
     if len(merged) == 1:
-        letter = _SIMPLE.get(ns[0])
+        letter = LETTER_FOR_PARTNERS.get(ns[0])
         return (letter, js) if letter else ("m", ())
     if len(merged) == 2 and ns in _TWO:
         return _TWO[ns], js

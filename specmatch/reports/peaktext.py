@@ -20,7 +20,7 @@ from ..spectra.model import Multiplet, Peak, PeakList
 __all__ = ["measured_peak_text", "predicted_peak_text"]
 
 _NUCLEI = ("1H", "13C")
-_NO_J = {"s", "br s", "m", "br", "br m"}
+from ..prediction.multiplicity import NO_J_LETTERS as _NO_J  # noqa: E402  (one owner of the letters)
 
 
 def _check_nucleus(nucleus: str) -> None:

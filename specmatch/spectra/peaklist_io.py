@@ -19,6 +19,7 @@ import numpy as np
 
 from .. import safeio
 from ..errors import SpecmatchError
+from ..prediction.multiplicity import normalise as normalise_multiplicity
 from .model import Multiplet, Peak, PeakList, Spectrum
 
 _COLS = {
@@ -195,7 +196,7 @@ def read_peak_csv(path_or_text: str | Path | bytes, *, nucleus: str | None = Non
                         f"'{src}' line {n}: J value {part} Hz is outside 0 to {MAX_J_HZ:g} Hz")
                 js.append(jv)
             multiplets.append(Multiplet(shift=shift, range=(lo, hi), integral=integral,
-                                        multiplicity=re.sub(r"\s+", " ", mult.replace("hept", "sept").replace("brs", "br s")),
+                                        multiplicity=normalise_multiplicity(mult),
                                         j_hz=tuple(js), flag=flag))
     if not peaks:
         raise SpecmatchError(f"'{src}' has a header but no peaks")

@@ -256,7 +256,7 @@ def sideband_lines(hz: np.ndarray, height: np.ndarray, threshold: float) -> np.n
 
 
 # ------------------------------------------------------------------ first-order analysis
-_LETTER = {1: "d", 2: "t", 3: "q", 4: "quint", 5: "sext", 6: "sept"}
+from ..prediction.multiplicity import LETTER_FOR_PARTNERS as _LETTER  # noqa: E402  (one owner of the letters)
 
 
 def first_order(pos_hz: np.ndarray, height: np.ndarray, *, tol_hz: float = 0.5

@@ -91,7 +91,7 @@ def lines_for(solvent: str | None, nucleus: str) -> tuple[SolventLine, ...]:
     return tuple(r for r in solvent_table() if r.solvent == solvent and r.nucleus == nucleus)
 
 
-_N_LINES = {"s": 1, "d": 2, "t": 3, "q": 4, "quint": 5, "sext": 6, "sept": 7}
+from ..prediction.multiplicity import N_LINES as _N_LINES  # noqa: E402  (one owner of the letters)
 
 
 def pattern_ppm(line: SolventLine, frequency_mhz: float | None) -> list[float]:

@@ -1,4 +1,4 @@
-"""The 1H increment tables (CSV data files in ``tables/``), loaded once.
+"""The 1H increment tables (CSV data files in ``prediction/tables/``), loaded once.
 
 Each table row becomes one named parameter, so the predictor and the fitting
 script (benchmarks/fit_h1_tables.py) share one additive model:
@@ -18,7 +18,7 @@ from dataclasses import dataclass
 from functools import lru_cache
 from pathlib import Path
 
-TABLE_DIR = Path(__file__).with_name("tables")
+TABLE_DIR = Path(__file__).resolve().parent.parent / "tables"
 
 #: file -> (columns forming the key, key prefix)
 _KEYED = {

@@ -4,7 +4,7 @@ For every set of equivalent heavy atoms carrying H this module lists the
 additive terms (parameter key, coefficient) of the 1H model, the coupling
 partners for a first-order multiplet, and flags. It knows no numbers except
 coupling constants: shifts are ``sum(value[key] * coefficient)`` with values from
-the tables (see :mod:`specmatch.prediction.h1_tables`), so the fitting script
+the tables (see :mod:`specmatch.prediction.h1.tables`), so the fitting script
 uses exactly the same environments as the predictor.
 
 Rules used
@@ -24,7 +24,7 @@ from dataclasses import dataclass
 
 from rdkit import Chem
 
-from ..structures import Structure
+from ...structures import Structure
 
 HALOGENS = {9: "F", 17: "Cl", 35: "Br", 53: "I"}
 _O_TYPES = {"OH", "OR", "OCOR", "OAr", "Ovinyl"}

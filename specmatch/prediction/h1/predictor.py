@@ -5,16 +5,16 @@ protons (diastereotopic protons and groups as separate signals): shift from the
 additive tables (Shoolery's rule extended to CH for sp3 C-H, Pascual-Meier-Simon
 for alkenes, benzene increments for aromatics), sigma per environment class,
 first-order multiplicity with estimated J. The environments are perceived in
-:mod:`specmatch.prediction.h1_perceive`; the numbers live in ``tables/h1_*.csv``.
+:mod:`specmatch.prediction.h1.environment`; the numbers live in ``tables/h1_*.csv``.
 """
 
 from __future__ import annotations
 
-from ..structures import Structure
-from .h1_perceive import proton_sites
-from .h1_tables import load_tables
-from .model import ProtonGroup
-from .multiplicity import multiplicity
+from ...structures import Structure
+from ..model import ProtonGroup
+from ..multiplicity import multiplicity
+from .environment import proton_sites
+from .tables import load_tables
 
 TABLES_VERSION = "h1-2026.12-1"
 

@@ -1,34 +1,26 @@
 """13C shifts from additive increment tables.
 
 Every carbon's shift is the sum of the increments that
-:func:`specmatch.prediction.c13_environment.carbon_environments` names for it
+:func:`specmatch.prediction.c13.environment.carbon_environments` names for it
 (Grant-Paul alkane terms, substituent, ring and interaction corrections for sp3
 carbons; 123.3 ppm plus alpha/beta/gamma increments for alkene carbons; 128.5 ppm
 plus ipso/ortho/meta/para increments for benzene carbons; class values and
 substituent increments for alkyne, nitrile and carbonyl carbons).
 
-The numbers live in ``tables/c13_increments.csv`` (one row per increment, with its
-handbook value, the number of carbons it was refined on and its source) and
-``tables/c13_sigma.csv`` (expected error per environment class and coverage). Both
-are read once, at import.
+The numbers are read once, at import, by :mod:`specmatch.prediction.c13.tables`.
 """
 
 from __future__ import annotations
 
-import csv
 import math
-from pathlib import Path
-
 from rdkit.Chem import BondType
 
-from ..structures import Structure
-from .c13_environment import carbon_environments, is_correction, nearest_term
-from .model import CarbonShift
+from ...structures import Structure
+from ..model import CarbonShift
+from .environment import carbon_environments, is_correction, nearest_term
+from .tables import SIGMA as _SIGMA, SUPPORT as _SUPPORT, TABLES_VERSION, VALUE as _VALUE
 
 _DOUBLE = BondType.DOUBLE
-_TABLES = Path(__file__).with_name("tables")
-TABLES_VERSION = "c13-increments-2026-12-01"
-
 #: Sigma added (in quadrature) for every term the tables have no row for, ppm.
 MISSING_TERM_SIGMA_PPM = 8.0
 #: Sigma added for every interaction correction never seen in the fitting data, ppm.
@@ -38,25 +30,6 @@ NO_CLASS_SIGMA_PPM = 20.0
 #: Coverage buckets: a carbon's rarest term seen on >= 100 / >= 10 / fewer carbons.
 WELL_COVERED, THIN = 100, 10
 
-
-def _read_tables() -> tuple[dict[str, float], dict[str, int], dict[str, float]]:
-    value: dict[str, float] = {}
-    support: dict[str, int] = {}
-    with open(_TABLES / "c13_increments.csv", newline="", encoding="utf-8") as fh:
-        rows = csv.reader(fh)
-        head = next(rows)
-        k_term, k_val, k_n = head.index("term"), head.index("shift_ppm"), head.index("n_carbons")
-        for row in rows:
-            value[row[k_term]] = float(row[k_val])
-            support[row[k_term]] = int(row[k_n])
-    sigma: dict[str, float] = {}
-    with open(_TABLES / "c13_sigma.csv", newline="", encoding="utf-8") as fh:
-        for row in csv.DictReader(fh):
-            sigma[row["class"]] = float(row["sigma_ppm"])
-    return value, support, sigma
-
-
-_VALUE, _SUPPORT, _SIGMA = _read_tables()
 _DIASTEREOTOPIC_SPLIT_PPM = _VALUE.get("split:diastereotopic", 0.0)
 
 

@@ -1,0 +1,2 @@
+"""1H prediction: environment perception (:mod:`.environment`), the increment tables
+(:mod:`.tables`) and the predictor (:mod:`.predictor`)."""

@@ -208,3 +208,13 @@ def test_line_x_in_other_units_is_a_warning_and_still_checks_points(tmp_path):
     del out[first + 5]
     with pytest.raises(SpecmatchError, match=rf"line {first + 6}: .*points are missing"):
         read_jcampdx("\n".join(out))
+
+
+def test_huge_folder_tree_is_refused_quickly(tmp_path, monkeypatch):
+    from specmatch.spectra import instrument
+
+    monkeypatch.setattr(instrument, "MAX_ENTRIES", 50)
+    for i in range(60):
+        (tmp_path / f"f{i}.txt").write_text("x")
+    with pytest.raises(SpecmatchError, match="holds more than 50 entries; give the experiment folder"):
+        peaks_from_file(tmp_path)

@@ -36,12 +36,31 @@ from .model import PeakList, Spectrum
 MAX_DEPTH = 6
 
 
+#: most directory entries looked at in an instrument folder (an experiment folder holds tens)
+MAX_ENTRIES = 5000
+
+
 def _files(root: Path) -> list[Path]:
-    out = []
-    for p in sorted(root.rglob("*")):
-        if len(p.relative_to(root).parts) <= MAX_DEPTH and p.is_file() and not p.is_symlink():
-            out.append(p)
-    return out
+    """Regular files (no symbolic links) up to MAX_DEPTH levels below `root`; the walk is
+    bounded, so a huge tree (a home folder, /proc) is refused quickly instead of scanned."""
+    import os
+
+    out: list[Path] = []
+    seen = 0
+    for dirpath, dirnames, filenames in os.walk(root, followlinks=False):
+        depth = len(Path(dirpath).relative_to(root).parts)
+        if depth >= MAX_DEPTH:
+            dirnames[:] = []
+        seen += len(dirnames) + len(filenames)
+        if seen > MAX_ENTRIES:
+            raise SpecmatchError(
+                f"'{root}' holds more than {MAX_ENTRIES:,} entries; give the experiment folder "
+                "(or a zip of it), not a whole data tree")
+        for name in filenames:
+            p = Path(dirpath) / name
+            if not p.is_symlink() and p.is_file():
+                out.append(p)
+    return sorted(out)
 
 
 def read_folder(root: Path, *, nucleus: str | None = None, label: str | None = None) -> Spectrum | PeakList:

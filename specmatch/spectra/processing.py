@@ -195,16 +195,14 @@ def satellite_lines(hz: np.ndarray, height: np.ndarray, threshold: float) -> np.
             idx = idx[(h[idx] >= lo_f * hp) & (h[idx] <= hi_f * hp)]
             sides.append(idx)
         left, right = sides
-        used = False
-        for i in left:
-            d_left = x[k] - x[i]
-            for j in right:
-                if (abs((x[j] - x[k]) - d_left) <= SATELLITE_PAIR_TOL_HZ
-                        and 0.4 <= h[i] / h[j] <= 2.5):
-                    out[order[i]] = out[order[j]] = True
-                    used = True
-        if used:
-            continue
+        if len(left) and len(right):
+            d = np.abs((x[right][None, :] - x[k]) - (x[k] - x[left][:, None]))
+            r = h[left][:, None] / h[right][None, :]
+            li, ri = np.nonzero((d <= SATELLITE_PAIR_TOL_HZ) & (r >= 0.4) & (r <= 2.5))
+            if len(li):
+                out[order[left[li]]] = True
+                out[order[right[ri]]] = True
+                continue
         # One satellite alone: its mirror image must lie under a clearly bigger line.
         for idx, sign in ((left, 1.0), (right, -1.0)):
             for i in idx:
@@ -234,15 +232,21 @@ def sideband_lines(hz: np.ndarray, height: np.ndarray, threshold: float) -> np.n
         hp = h[k]
         i0, i1 = np.searchsorted(x, x[k] - hi), np.searchsorted(x, x[k] - lo, side="right")
         j0, j1 = np.searchsorted(x, x[k] + lo), np.searchsorted(x, x[k] + hi, side="right")
-        left = [i for i in range(i0, i1) if h[i] <= SIDEBAND_FRACTION * hp]
-        right = [j for j in range(j0, j1) if h[j] <= SIDEBAND_FRACTION * hp]
-        for i in left:
-            for j in right:
-                nu_l, nu_r = x[k] - x[i], x[j] - x[k]
-                if abs(nu_l - nu_r) <= 0.6 and 1 / 3 <= h[i] / h[j] <= 3:
-                    nu = 0.5 * (nu_l + nu_r)
-                    found.append((nu, int(k)))
-                    pairs.setdefault(int(k), []).append((nu, int(i), int(j)))
+        left = np.arange(i0, i1)
+        left = left[h[left] <= SIDEBAND_FRACTION * hp]
+        right = np.arange(j0, j1)
+        right = right[h[right] <= SIDEBAND_FRACTION * hp]
+        if not (len(left) and len(right)):
+            continue
+        nu_l = x[k] - x[left][:, None]
+        nu_r = x[right][None, :] - x[k]
+        r = h[left][:, None] / h[right][None, :]
+        li, ri = np.nonzero((np.abs(nu_l - nu_r) <= 0.6) & (r >= 1 / 3) & (r <= 3))
+        for a, b in zip(li[:50], ri[:50]):
+            i, j = int(left[a]), int(right[b])
+            nu = 0.5 * (float(nu_l[a, 0]) + float(nu_r[0, b]))
+            found.append((nu, int(k)))
+            pairs.setdefault(int(k), []).append((nu, i, j))
     if not found:
         return out
     for nu, _ in sorted(found):

@@ -218,3 +218,16 @@ def test_huge_folder_tree_is_refused_quickly(tmp_path, monkeypatch):
         (tmp_path / f"f{i}.txt").write_text("x")
     with pytest.raises(SpecmatchError, match="holds more than 50 entries; give the experiment folder"):
         peaks_from_file(tmp_path)
+
+
+def test_fuzz_regressions_firstx_extremes(tmp_path):
+    # found by tests/test_spectra_fuzz_boundary.py: an abscissa overflowing to inf, and an axis
+    # whose multiplets integrate to zero (a division by zero when making integrals relative)
+    with pytest.raises(SpecmatchError, match="leaves the range of numbers|not finite"):
+        read_jcampdx(_set(_jdx(tmp_path), "FIRSTX", "1.7976931348623157e+308"))
+    text = _set(_jdx(tmp_path), "FIRSTX", "3.3676259625593135e-38")
+    try:
+        pl = peaks_from_file(text.encode(), name="fuzz.jdx")
+    except SpecmatchError:
+        return
+    assert all(m.integral is None or np.isfinite(m.integral) for m in pl.multiplets)

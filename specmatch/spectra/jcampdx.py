@@ -560,7 +560,8 @@ def _check_and_axis(dec, xfactor, yfactor, firstx, lastx, npoints, firsty, sourc
             notes.append(f"##DELTAX= {deltax_header:g} disagrees with (LASTX - FIRSTX)/(points - 1) = "
                          f"{deltax:g}; the abscissa follows FIRSTX, LASTX and the point count")
     # Offset origin and drift of the line X values (in points): reported, not refused.
-    dev = (xs - (firstx + starts * deltax)) / deltax
+    with np.errstate(over="ignore", invalid="ignore"):
+        dev = (xs - (firstx + starts * deltax)) / deltax
     slack = 0.5 + round_pts
     if opposite:
         dev = np.zeros(0)
@@ -589,7 +590,12 @@ def _check_and_axis(dec, xfactor, yfactor, firstx, lastx, npoints, firsty, sourc
             raise SpecmatchError(
                 f"cannot read '{source}': ##FIRSTY= {firsty:g} but the first ordinate decodes to "
                 f"{y[0]:g}; YFACTOR or the data lines are damaged")
-    x = firstx + np.arange(n) * deltax
+    with np.errstate(over="ignore", invalid="ignore"):
+        x = firstx + np.arange(n) * deltax
+    if not (np.isfinite(x[0]) and np.isfinite(x[-1])):
+        raise SpecmatchError(
+            f"cannot read '{source}': the abscissa from ##FIRSTX= {firstx:g} to ##LASTX= "
+            f"{lastx if lastx is not None else float('nan'):g} leaves the range of numbers; the header is damaged")
     return x, y
 
 

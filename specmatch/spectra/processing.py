@@ -769,20 +769,22 @@ def _proton_list(spectrum: Spectrum, ppm: np.ndarray, y: np.ndarray, sigma: floa
         compound = np.array([f is None for f in mflags])
     unit = "percent"
     basis = ""
-    if compound.any():
+    comp_total = float(np.sum(ints_a[compound])) if compound.any() else 0.0
+    if compound.any() and comp_total > 0 and np.isfinite(comp_total):
         if total_h:
-            scale = total_h / float(np.sum(ints_a[compound]))
+            scale = total_h / comp_total
             unit = "H"
             basis = f"integrals scaled to {total_h:g} H for the unflagged multiplets"
         else:
             # Relative: the unflagged multiplets add up to 100. Whole protons need
             # the H count of the compound (scale_integrals, --total-h); the smallest
             # multiplet is not a safe unit (it may be a trace or an OH).
-            scale = 100.0 / float(np.sum(ints_a[compound]))
+            scale = 100.0 / comp_total
             basis = ("integrals relative: percent of the unflagged multiplets (give the compound's "
                      "H count, --total-h, to scale them to protons)")
     else:
-        scale = 100.0 / float(np.sum(np.abs(ints_a)))
+        whole = float(np.sum(np.abs(ints_a)))
+        scale = 100.0 / whole if whole > 0 and np.isfinite(whole) else 1.0
     heights = picked.height[order]
     compound_h = [abs(h) for h, f in zip(heights, [flags[k] for k in order]) if f is None]
     hscale = 100.0 / (max(compound_h) if compound_h else float(np.max(np.abs(heights))))

@@ -31,20 +31,27 @@ def cmd_identify(args: argparse.Namespace) -> int:
         from ..reports.html import write_report
 
         write_report(result, args.report)
-    saved_id = None
-    if args.save:
-        from ..store import save_run
+    if args.nmredata:
+        from ..reports.nmredata import write_nmredata
 
-        saved_id = save_run(result, {"c13": args.c13, "h1": args.h1, "dept135": args.dept135},
-                            store=args.store, sample_id=args.sample_id, user=args.user)
+        write_nmredata(result, args.nmredata)
+    # the verdict first: a save that fails (read-only store, full disk) must not hide it
     if args.json:
         _print_json(result.to_dict())
     else:
         print(result_text(result))
         if args.report:
             print(f"\nreport written to {args.report}")
-        if saved_id:
-            print(f"saved as analysis {saved_id} (see 'specmatch history show {saved_id[:12]}')")
+    if args.save:
+        import sys
+
+        from ..store import save_run
+
+        sys.stdout.flush()
+        saved_id = save_run(result, {"c13": args.c13, "h1": args.h1, "dept135": args.dept135},
+                            store=args.store, sample_id=args.sample_id, user=args.user)
+        print(f"saved as analysis {saved_id} (see 'specmatch history show {saved_id[:12]}')",
+              file=sys.stderr if args.json else sys.stdout)
     return 0
 
 
@@ -83,6 +90,8 @@ def register(sub: argparse._SubParsersAction) -> None:
                    help="largest mixture considered (default 2; 1: assume a pure sample)")
     p.add_argument("--no-prior", action="store_true", help="verdict from the spectra alone")
     p.add_argument("--report", metavar="OUT.html", help="write a self-contained HTML report")
+    p.add_argument("--nmredata", metavar="OUT.sdf",
+                   help="write the top structure with its assigned signals as NMReDATA (SD file)")
     p.add_argument("--save", action="store_true", help="save the analysis (inputs, files, verdict) in the store")
     p.add_argument("--store", metavar="URL", help="with --save: database URL (default $SPECMATCH_STORE)")
     p.add_argument("--sample-id", metavar="ID", help="with --save: the sample's id")

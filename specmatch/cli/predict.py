@@ -10,30 +10,47 @@ from ..errors import SpecmatchError
 from ._common import _open_out, _print_json, _progress, _read_lines
 
 
+#: molecules that pay for a worker's start-up (a prediction takes a few milliseconds)
+PER_WORKER = 200
+
+
+def _predict_row(line: str) -> dict[str, Any]:
+    """One line of a ``--batch`` file as its result row (run by the batch executor)."""
+    from ..prediction import predict
+
+    smi = line.strip()
+    if not smi or smi.startswith("#"):
+        return {"smiles": line, "ok": False, "error": "empty line"}
+    smi = smi.split()[0]
+    try:
+        row = predict(smi).to_dict()
+        row["smiles"] = smi
+        return row
+    except SpecmatchError as exc:
+        return {"smiles": smi, "ok": False, "error": str(exc)}
+
+
 def cmd_predict(args: argparse.Namespace) -> int:
     from ..prediction import predict
-    from ..reports.prediction_text import prediction_table
+    from ..reports.tables_text import prediction_table
 
     if args.batch:
+        from contextlib import closing
+
+        from ..executor import plan_workers, run_tasks
+
         if not args.out:
             raise SpecmatchError("--batch needs --out OUT.jsonl")
         lines = _read_lines(args.batch)
-        with _open_out(args.out) as out, _progress(len(lines), "predict") as bar:
-            for line in lines:
-                smi = line.strip()
-                if not smi or smi.startswith("#"):
-                    row: dict[str, Any] = {"smiles": line, "ok": False, "error": "empty line"}
-                else:
-                    smi = smi.split()[0]
-                    try:
-                        row = predict(smi).to_dict()
-                        row["smiles"] = smi
-                    except SpecmatchError as exc:
-                        row = {"smiles": smi, "ok": False, "error": str(exc)}
-                    except Exception as exc:  # one bad molecule must not stop a batch
-                        row = {"smiles": smi, "ok": False, "error": f"internal error: {exc}"}
-                out.write(json.dumps(row) + "\n")
-                bar.update()
+        plan = plan_workers(len(lines), per_worker=PER_WORKER)
+        with _open_out(args.out) as out, _progress(len(lines), "predict") as bar, \
+                closing(run_tasks(_predict_row, lines, plan, ordered=True, chunk=16)) as outcomes:
+            for group in outcomes:
+                for o in group:
+                    row = o.value if o.ok else {"smiles": lines[o.index], "ok": False,
+                                                "error": o.error}
+                    out.write(json.dumps(row) + "\n")
+                    bar.update()
         return 0
     if not args.smiles:
         raise SpecmatchError("give a SMILES, or --batch FILE --out OUT.jsonl")

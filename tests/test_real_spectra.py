@@ -219,7 +219,7 @@ def test_peaks_json_lists_the_reading_warnings(capsys):
 
 
 def test_journal_text_counts_protons_only_when_scaled():
-    from specmatch.reports.peaktext import measured_peak_text
+    from specmatch.reports.journal_text import measured_peak_text
 
     pl = peaks("chloroethanol_1h_cdcl3_difdup.dx")
     plain = measured_peak_text(pl, "1H", pl.frequency_mhz, pl.solvent)

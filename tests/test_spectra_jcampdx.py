@@ -263,7 +263,8 @@ def test_missing_lines_in_the_middle_are_located(tmp_path):
     lines = p.read_text().splitlines()
     data_start = next(i for i, s in enumerate(lines) if s.startswith("##XYDATA")) + 1
     del lines[data_start + 10]
-    with pytest.raises(SpecmatchError, match=rf"line {data_start + 11:,}: X is .* expected"):
+    with pytest.raises(SpecmatchError, match=rf"line {data_start + 11:,}: its X .* points beyond .* "
+                                             "points are missing"):
         read_jcampdx("\n".join(lines))
 
 

@@ -13,6 +13,10 @@ def cmd_peaks(args: argparse.Namespace) -> int:
 
     peaklist = peaks_from_file(args.file, nucleus=args.nucleus, solvent=args.solvent,
                                dept135=args.dept135, total_h=getattr(args, "total_h", None))
+    if args.formula and peaklist.nucleus == "1H":
+        from ..spectra import scale_integrals
+
+        peaklist = scale_integrals(peaklist, formula=args.formula)
     if args.json:
         from ..spectra import peaklist_to_dict
 
@@ -31,5 +35,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--dept135", action="store_true", help="the file is a DEPT-135 spectrum")
     p.add_argument("--total-h", type=float, metavar="N", dest="total_h",
                    help="scale 1H integrals so the compound's multiplets add up to N H")
+    p.add_argument("--formula", metavar="FORMULA_OR_SMILES",
+                   help="scale 1H integrals to the H count of this compound (e.g. C2H5ClO or OCCCl)")
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_peaks)

@@ -12,7 +12,7 @@ import os
 from dataclasses import replace
 from typing import Any, Sequence
 
-from .. import __version__
+from .. import __version__, safeio
 from ..errors import SpecmatchError
 from ..spectra.model import Peak, PeakList
 from .errormodel import ErrorModel, load_error_model
@@ -28,6 +28,8 @@ DEPT_MATCH_PPM = 0.25
 
 def sha256_file(path: str | os.PathLike) -> str:
     h = hashlib.sha256()
+    if not os.path.isdir(path):
+        safeio.check_file(path, kind="archive")  # regular file, bounded size (no /dev/zero)
     with open(path, "rb") as fh:
         for block in iter(lambda: fh.read(1 << 20), b""):
             h.update(block)

@@ -99,7 +99,8 @@ def predicted_peak_text(pred: Prediction, nucleus: str = "1H", frequency_mhz: fl
 
 
 def measured_peak_text(multiplets_or_peaks: Sequence[Multiplet] | Sequence[Peak] | PeakList, nucleus: str,
-                       frequency_mhz: float | None, solvent: str | None) -> str:
+                       frequency_mhz: float | None, solvent: str | None, *,
+                       formula: str | None = None, total_h: float | None = None) -> str:
     """Journal-style text of a measured list (multiplets for 1H, peaks for 13C).
 
     Parameters
@@ -107,15 +108,27 @@ def measured_peak_text(multiplets_or_peaks: Sequence[Multiplet] | Sequence[Peak]
     multiplets_or_peaks : sequence of Multiplet or Peak, or a PeakList
         Flagged entries (solvent, water, TMS, grease, impurities) are left out.
         Multiplets analysed as "m" are written as ranges (``1.20-1.35 (m, 4H)``);
-        integrals are rounded to whole protons.
+        integrals are rounded to whole protons. Integrals of a processed spectrum are
+        relative: they are written only when `formula` or `total_h` scales them.
     nucleus : {"1H", "13C"}
     frequency_mhz : float or None
     solvent : str or None
+    formula, total_h : str or float, optional
+        The compound's formula (or SMILES) or H count, to scale 1H integrals to protons
+        (:func:`specmatch.spectra.scale_integrals`).
     """
     _check_nucleus(nucleus)
     items_in: Sequence = multiplets_or_peaks
+    relative = False
     if isinstance(multiplets_or_peaks, PeakList):
         pl = multiplets_or_peaks
+        if nucleus == "1H" and (formula or total_h):
+            from ..spectra.processing import scale_integrals
+
+            pl = scale_integrals(pl, total_h, formula=formula)
+        # Relative integrals (percent of the signal) are not proton counts: left out
+        # unless the compound's formula or H count scales them.
+        relative = pl.integral_unit == "percent"
         items_in = pl.compound_multiplets() if (nucleus == "1H" and pl.multiplets) else pl.compound_peaks()
     items_in = [x for x in items_in if getattr(x, "flag", None) is None]
     for x in items_in:
@@ -130,6 +143,6 @@ def measured_peak_text(multiplets_or_peaks: Sequence[Multiplet] | Sequence[Peak]
         if nucleus == "13C" or isinstance(x, Peak):
             items.append(f"{x.shift:.1f}" if nucleus == "13C" else f"{x.shift:.2f}")
             continue
-        n_h = int(round(x.integral)) if x.integral is not None and x.integral > 0 else None
+        n_h = int(round(x.integral)) if x.integral is not None and x.integral > 0 and not relative else None
         items.append(_signal(x.shift, x.multiplicity, x.j_hz, n_h, x.range))
     return _finish(head, items)

@@ -29,7 +29,8 @@ def peaklist_table(peaklist: PeakList) -> str:
         "",
     ]
     if peaklist.multiplets:
-        lines.append(f"  {'shift/ppm':>9}  {'range/ppm':<15}{'integral':>9}  {'mult':<6}{'J/Hz':<20}flag")
+        head = {"percent": "int/%", "H": "int/H"}.get(peaklist.integral_unit, "integral")
+        lines.append(f"  {'shift/ppm':>9}  {'range/ppm':<15}{head:>9}  {'mult':<6}{'J/Hz':<20}flag")
         for m in peaklist.multiplets:
             rng = f"{m.range[1]:.3f}-{m.range[0]:.3f}" if m.range[0] != m.range[1] else ""
             js = ", ".join(f"{j:.1f}" for j in m.j_hz)

@@ -15,12 +15,13 @@ if TYPE_CHECKING:  # pragma: no cover
     from .archive import extract_archive
     from .jcampdx import read_jcampdx, write_jcampdx
     from .peaklist_io import read_peak_csv
-    from .processing import process_spectrum
+    from .processing import hydrogen_count, process_spectrum, scale_integrals
     from .reader import peaklist_to_dict, peaks_from_file, read_spectrum
 
 __all__ = [
     "Multiplet", "Peak", "PeakList", "Spectrum",
-    "extract_archive", "peaklist_to_dict", "peaks_from_file", "process_spectrum",
+    "extract_archive", "hydrogen_count", "peaklist_to_dict", "peaks_from_file", "process_spectrum",
+    "scale_integrals",
     "read_jcampdx", "read_peak_csv", "read_spectrum", "write_jcampdx",
 ]
 
@@ -30,6 +31,8 @@ _LAZY = {
     "write_jcampdx": "jcampdx",
     "read_peak_csv": "peaklist_io",
     "process_spectrum": "processing",
+    "scale_integrals": "processing",
+    "hydrogen_count": "processing",
     "peaklist_to_dict": "reader",
     "peaks_from_file": "reader",
     "read_spectrum": "reader",

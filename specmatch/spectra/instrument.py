@@ -27,19 +27,40 @@ from pathlib import Path
 
 import numpy as np
 
+from .. import safeio
 from ..errors import SpecmatchError
-from .jcampdx import normalise_nucleus
+from .experiment import classify_experiment
+from .jcampdx import check_frequency, normalise_nucleus
 from .model import PeakList, Spectrum
 
 MAX_DEPTH = 6
 
 
+#: most directory entries looked at in an instrument folder (an experiment folder holds tens)
+MAX_ENTRIES = 5000
+
+
 def _files(root: Path) -> list[Path]:
-    out = []
-    for p in sorted(root.rglob("*")):
-        if len(p.relative_to(root).parts) <= MAX_DEPTH and p.is_file() and not p.is_symlink():
-            out.append(p)
-    return out
+    """Regular files (no symbolic links) up to MAX_DEPTH levels below `root`; the walk is
+    bounded, so a huge tree (a home folder, /proc) is refused quickly instead of scanned."""
+    import os
+
+    out: list[Path] = []
+    seen = 0
+    for dirpath, dirnames, filenames in os.walk(root, followlinks=False):
+        depth = len(Path(dirpath).relative_to(root).parts)
+        if depth >= MAX_DEPTH:
+            dirnames[:] = []
+        seen += len(dirnames) + len(filenames)
+        if seen > MAX_ENTRIES:
+            raise SpecmatchError(
+                f"'{root}' holds more than {MAX_ENTRIES:,} entries; give the experiment folder "
+                "(or a zip of it), not a whole data tree")
+        for name in filenames:
+            p = Path(dirpath) / name
+            if not p.is_symlink() and p.is_file():
+                out.append(p)
+    return sorted(out)
 
 
 def read_folder(root: Path, *, nucleus: str | None = None, label: str | None = None) -> Spectrum | PeakList:
@@ -60,16 +81,16 @@ def read_folder(root: Path, *, nucleus: str | None = None, label: str | None = N
     readers = []
     for p in files:
         if p.suffix.lower() in (".jdx", ".dx", ".jcamp"):
-            readers.append(lambda p=p: read_jcampdx(p.read_bytes(), source=where(p), nucleus=nucleus))
+            readers.append(lambda p=p: read_jcampdx(safeio.read_bytes(p, kind="spectrum"), source=where(p), nucleus=nucleus))
     for p in files:
         if p.name == "1r" and (p.parent / "procs").exists():
             readers.append(lambda d=p.parent: read_bruker_pdata(d, label=where(d), nucleus=nucleus))
     for p in files:
         if p.suffix.lower() in (".ft", ".ft1"):
-            readers.append(lambda p=p: read_nmrpipe_bytes(p.read_bytes(), source=where(p), nucleus=nucleus))
+            readers.append(lambda p=p: read_nmrpipe_bytes(safeio.read_bytes(p, kind="spectrum"), source=where(p), nucleus=nucleus))
     for p in files:
         if p.suffix.lower() == ".nmrml":
-            readers.append(lambda p=p: read_nmrml(p.read_bytes(), source=where(p), nucleus=nucleus))
+            readers.append(lambda p=p: read_nmrml(safeio.read_bytes(p, kind="spectrum"), source=where(p), nucleus=nucleus))
     processed = {p.parent for p in files if p.name == "1r"}
     for p in files:
         if p.name == "fid" and (p.parent / "procpar").exists():
@@ -107,6 +128,16 @@ def _ng():
     return ng
 
 
+def _guard(folder: Path, data_names: tuple[str, ...], param_names: tuple[str, ...]) -> None:
+    """Size and file-type checks (``safeio``) on the files nmrglue is about to read."""
+    for name in data_names:
+        if (folder / name).exists():
+            safeio.check_file(folder / name, kind="spectrum")
+    for name in param_names:
+        if (folder / name).exists():
+            safeio.check_file(folder / name, kind="parameters")
+
+
 def _nmrglue_call(what: str, fn, *args, **kwargs):
     """Run an nmrglue reader; its exceptions become one clear message."""
     try:
@@ -131,6 +162,8 @@ def read_bruker_pdata(pdata_dir: Path, *, label: str, nucleus: str | None = None
     ng = _ng()
     expno = pdata_dir.parent.parent
     acqus_ok = (expno / "acqus").exists()
+    _guard(pdata_dir, ("1r", "1i"), ("procs",))
+    _guard(expno, (), ("acqus",))
 
     def _read():
         dic, data = ng.bruker.read_pdata(str(pdata_dir), read_acqus=False, scale_data=True)
@@ -156,10 +189,15 @@ def read_bruker_pdata(pdata_dir: Path, *, label: str, nucleus: str | None = None
         raise SpecmatchError(f"'{label}': no acqus with NUC1; give --nucleus 1H or 13C")
     solvent = str(acqus.get("SOLVENT", "")).strip("<> ") or None
     pulprog = str(acqus.get("PULPROG", "")).strip("<> ")
-    return Spectrum(nucleus=nuc, ppm=ppm, intensity=np.asarray(data, dtype=float).real, frequency_mhz=sf,
-                    solvent=solvent, source=f"{label} (processed 1D data)",
-                    experiment="DEPT-135" if "dept" in pulprog.lower() else "1D",
-                    meta={"pulse_program": pulprog})
+    check_frequency(sf, nuc, label)
+    intensity = np.asarray(data, dtype=float).real
+    title = ""
+    if (pdata_dir / "title").is_file():
+        title = safeio.read_text(pdata_dir / "title", kind="parameters")
+    experiment, notes = classify_experiment(nuc, pulprog, title, intensity)
+    return Spectrum(nucleus=nuc, ppm=ppm, intensity=intensity, frequency_mhz=sf,
+                    solvent=solvent, source=f"{label} (processed 1D data)", experiment=experiment,
+                    meta={"pulse_program": pulprog, "title": title.strip(), "warnings": tuple(notes)})
 
 
 def _process_fid(fid: np.ndarray, *, sw_hz: float, sf_mhz: float, nucleus: str,
@@ -185,6 +223,7 @@ def _process_fid(fid: np.ndarray, *, sw_hz: float, sf_mhz: float, nucleus: str,
 def read_varian_fid(folder: Path, *, label: str, nucleus: str | None = None) -> Spectrum:
     """Agilent/Varian ``fid`` + ``procpar``: processed here (see module docstring)."""
     ng = _ng()
+    _guard(folder, ("fid",), ("procpar",))
     dic, data = _nmrglue_call(f"'{label}' (Agilent/Varian fid)", ng.varian.read, str(folder))
     data = np.asarray(data)
     if data.ndim != 1:
@@ -207,6 +246,7 @@ def read_varian_fid(folder: Path, *, label: str, nucleus: str | None = None) -> 
     nuc = normalise_nucleus(val("tn", None, str)) or nucleus
     if nuc is None:
         raise SpecmatchError(f"'{label}': procpar has no tn (nucleus); give --nucleus")
+    check_frequency(sfrq, nuc, label)
     rp, lp = val("rp"), val("lp")
     phase_given = rp is not None and (rp != 0 or (lp or 0) != 0)
     spec = _process_fid(data, sw_hz=sw, sf_mhz=sfrq, nucleus=nuc,
@@ -218,16 +258,20 @@ def read_varian_fid(folder: Path, *, label: str, nucleus: str | None = None) -> 
     right_ppm = (rfp - rfl) / sfrq
     ppm = right_ppm + (sw / sfrq) * (1 - np.arange(n) / n)
     solvent = val("solvent", None, str)
+    seq = val("seqfil", None, str) or val("pslabel", None, str)
+    experiment, notes = classify_experiment(nuc, seq, None, spec)
     return Spectrum(nucleus=nuc, ppm=ppm, intensity=spec, frequency_mhz=sfrq, solvent=solvent,
-                    source=f"{label} (Agilent/Varian fid, processed by specmatch)",
-                    meta={"warnings": ("FID processed by specmatch: exponential window, FT, "
-                                       + ("phase from procpar" if phase_given else "automatic phase")
-                                       ,)})
+                    source=f"{label} (Agilent/Varian fid, processed by specmatch)", experiment=experiment,
+                    meta={"pulse_program": seq or "",
+                          "warnings": ("FID processed by specmatch: exponential window, FT, "
+                                       + ("phase from procpar" if phase_given else "automatic phase"),
+                                       *notes)})
 
 
 def read_bruker_fid(folder: Path, *, label: str, nucleus: str | None = None) -> Spectrum:
     """A raw ``fid`` with ``acqus`` (no processed data): processed here."""
     ng = _ng()
+    _guard(folder, ("fid",), ("acqus",))
     dic, data = _nmrglue_call(f"'{label}' (fid)", ng.bruker.read, str(folder))
     data = np.asarray(data)
     if data.ndim != 1:
@@ -244,14 +288,19 @@ def read_bruker_fid(folder: Path, *, label: str, nucleus: str | None = None) -> 
     nuc = normalise_nucleus(str(acqus.get("NUC1", "")).strip("<>")) or nucleus
     if nuc is None:
         raise SpecmatchError(f"'{label}': acqus has no NUC1; give --nucleus")
+    check_frequency(sfo1, nuc, label)
     spec = _process_fid(data, sw_hz=sw, sf_mhz=sfo1, nucleus=nuc, p0=None, p1=None)
     n = len(spec)
     centre = o1 / bf1
     ppm = centre + (sw / sfo1) * (0.5 - np.arange(n) / n)
     solvent = str(acqus.get("SOLVENT", "")).strip("<> ") or None
+    pulprog = str(acqus.get("PULPROG", "")).strip("<> ")
+    experiment, notes = classify_experiment(nuc, pulprog, None, spec)
     return Spectrum(nucleus=nuc, ppm=ppm, intensity=spec, frequency_mhz=sfo1, solvent=solvent,
-                    source=f"{label} (fid, processed by specmatch)",
-                    meta={"warnings": ("FID processed by specmatch: exponential window, FT, automatic phase",)})
+                    source=f"{label} (fid, processed by specmatch)", experiment=experiment,
+                    meta={"pulse_program": pulprog,
+                          "warnings": ("FID processed by specmatch: exponential window, FT, automatic phase",
+                                       *notes)})
 
 
 def read_nmrpipe_bytes(data: bytes, *, source: str, nucleus: str | None = None) -> Spectrum:
@@ -281,6 +330,7 @@ def read_nmrpipe_bytes(data: bytes, *, source: str, nucleus: str | None = None) 
         nuc = nucleus
     if nuc is None:
         raise SpecmatchError(f"'{source}': the NMRPipe axis label '{lab}' does not name a nucleus; give --nucleus")
+    check_frequency(obs, nuc, source)
     return Spectrum(nucleus=nuc, ppm=ppm, intensity=np.asarray(y.real, dtype=float), frequency_mhz=obs,
                     solvent=None, source=f"{source} (NMRPipe)")
 
@@ -319,6 +369,8 @@ def read_nmrml(data: bytes, *, source: str, nucleus: str | None = None) -> Spect
             pass
     if freq and freq > 1e5:  # given in Hz
         freq /= 1e6
+    if freq is not None:
+        check_frequency(freq, nuc, source)
     sw = None
     for e in by.get("sweepWidth", []):
         try:

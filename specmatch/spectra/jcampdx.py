@@ -24,6 +24,7 @@ import numpy as np
 
 from ..errors import SpecmatchError
 from .asdf import FORMS, decode_xy_lines, encode_xy_lines
+from .experiment import classify_experiment, resolve_solvent
 from .model import Peak, PeakList, Spectrum
 
 __all__ = ["read_jcampdx", "write_jcampdx", "parse_blocks", "normalise_nucleus", "looks_like_jcampdx"]
@@ -65,18 +66,23 @@ def _norm_label(raw: str) -> str:
     return re.sub(r"[\s\-/_]", "", raw).upper()
 
 
-def _decode_text(data: bytes | str) -> str:
+def _decode_text(data: bytes | str, name: str = "file") -> str:
     if isinstance(data, str):
         return data
-    try:
-        return data.decode("utf-8-sig")
-    except UnicodeDecodeError:
-        return data.decode("latin-1")
+    from ..safeio import decode_text
+
+    return decode_text(data, name=name)
 
 
 def looks_like_jcampdx(head: bytes | str) -> bool:
     """True if the first non-blank text of a file is a ``##LABEL=`` record."""
-    text = _decode_text(head[:4096]) if isinstance(head, bytes) else head[:4096]
+    if isinstance(head, bytes):
+        try:
+            text = _decode_text(head[:4096])
+        except SpecmatchError:
+            return False
+    else:
+        text = head[:4096]
     return bool(re.match(r"\s*##[^=\n\r]*=", text.lstrip("\ufeff")))
 
 
@@ -156,10 +162,46 @@ def _num(block: Block, label: str, source: str) -> float | None:
         return None
     txt = r.value.strip().strip("<>")
     try:
-        return float(txt.replace("D", "E").replace("d", "e"))
+        v = float(txt.replace("D", "E").replace("d", "e"))
     except ValueError:
         raise SpecmatchError(
             f"{_loc(source, r.line_no)}: '##{label}=' should be a number, found {txt[:30]!r}") from None
+    if not np.isfinite(v):
+        raise SpecmatchError(
+            f"{_loc(source, r.line_no)}: '##{label}= {txt[:30]}' is not a finite number; the header "
+            "is damaged")
+    return v
+
+
+def _factor(value: float | None, label: str, source: str) -> float:
+    """XFACTOR / YFACTOR / an NTUPLES FACTOR: 1 when absent, refused when zero or non-finite."""
+    if value is None:
+        return 1.0
+    if value == 0 or not np.isfinite(value):
+        raise SpecmatchError(
+            f"{source}: '##{label}= {value:g}' would scale every value to "
+            f"{'zero' if value == 0 else 'a non-finite number'}; the header is damaged")
+    return float(value)
+
+
+#: Most points read from one spectrum (4 Mi: 16x a large 1D 1H acquisition).
+MAX_POINTS = 4 * 1024 * 1024
+
+#: Plausible observe frequencies (MHz) per nucleus: from the smallest benchtop
+#: magnets (~40 MHz 1H) down to field-cycling and up past 1.2 GHz 1H; 13C is
+#: gamma(13C)/gamma(1H) = 0.2515 of the 1H frequency (common practice).
+FREQUENCY_RANGE_MHZ = {"1H": (1.0, 1500.0), "13C": (0.25, 380.0)}
+
+
+def check_frequency(freq: float | None, nucleus: str | None, source: str) -> None:
+    """Refuse an observe frequency no spectrometer has for this nucleus."""
+    if freq is None:
+        return
+    lo, hi = FREQUENCY_RANGE_MHZ.get(nucleus or "", (0.1, 1500.0))
+    if not (np.isfinite(freq) and lo <= freq <= hi):
+        raise SpecmatchError(
+            f"{source}: an observe frequency of {freq:g} MHz is not plausible for "
+            f"{nucleus or 'this nucleus'} (expected {lo:g} to {hi:g} MHz); the header is damaged")
 
 
 def _nums(value: str) -> list[float | None]:
@@ -167,9 +209,13 @@ def _nums(value: str) -> list[float | None]:
     for part in value.split(","):
         part = part.strip()
         try:
-            out.append(float(part))
+            v = float(part)
         except ValueError:
             out.append(None)
+            continue
+        if not np.isfinite(v):
+            raise SpecmatchError(f"'{value.strip()[:60]}' holds a non-finite number; the header is damaged")
+        out.append(v)
     return out
 
 
@@ -206,7 +252,7 @@ def read_jcampdx(data: bytes | str, *, source: str = "", nucleus: str | None = N
     Spectrum or PeakList
         A Spectrum for XYDATA / NTUPLES / XYPOINTS, a PeakList for a PEAK TABLE.
     """
-    text = _decode_text(data)
+    text = _decode_text(data, source or "file")
     blocks = parse_blocks(text, source=source)
     candidates = []
     for i, b in enumerate(blocks):
@@ -243,7 +289,8 @@ def read_jcampdx(data: bytes | str, *, source: str = "", nucleus: str | None = N
     if n_spectra > 1:
         notes.append(f"the file holds {n_spectra} spectra; the first was read "
                      f"('{block.get('TITLE', '')}')")
-    return _read_block(block, blocks, source=source, nucleus=nucleus, notes=notes)
+    return _read_block(block, blocks, source=source, nucleus=nucleus, notes=notes,
+                       embedded=embedded_parameters(text, blocks))
 
 
 def _inherited(block: Block, blocks: list[Block], label: str) -> str | None:
@@ -259,7 +306,7 @@ def _inherited(block: Block, blocks: list[Block], label: str) -> str | None:
 
 
 def _read_block(block: Block, blocks: list[Block], *, source: str, nucleus: str | None,
-                notes: list[str]) -> Spectrum | PeakList:
+                notes: list[str], embedded: dict[str, str]) -> Spectrum | PeakList:
     nuc = normalise_nucleus(_inherited(block, blocks, ".OBSERVENUCLEUS")
                             or _inherited(block, blocks, "$NUC1"))
     if nuc is None:
@@ -275,12 +322,15 @@ def _read_block(block: Block, blocks: list[Block], *, source: str, nucleus: str 
                 break
     if freq is not None and freq <= 0:
         raise SpecmatchError(f"{source}: .OBSERVE FREQUENCY must be positive, found {freq:g}")
-    solvent = (_inherited(block, blocks, ".SOLVENTNAME") or _inherited(block, blocks, "$SOLVENT") or "")
-    solvent = solvent.strip().strip("<>").strip() or None
+    check_frequency(freq, nuc, source)
+    declared = next((v for v in (_inherited(block, blocks, lab) for lab in _SOLVENT_LABELS)
+                     if v and v.strip().strip("<>").strip()), None)
+    solvent, solvent_notes = resolve_solvent(declared, _first(embedded, _SOLVENT_LABELS))
+    notes.extend(solvent_notes)
     src = f"{source} (JCAMP-DX {block.get('JCAMPDX', '?').split()[0] if block.get('JCAMPDX') else '?'})"
 
     if block.first("NTUPLES") is not None:
-        x_hz_or_ppm, y, xunits = _read_ntuples(block, source)
+        x_hz_or_ppm, y, xunits = _read_ntuples(block, source, notes)
     else:
         rec = _data_record(block)
         assert rec is not None
@@ -296,10 +346,14 @@ def _read_block(block: Block, blocks: list[Block], *, source: str, nucleus: str 
                 raise SpecmatchError(
                     f"{_loc(source, rec.line_no)}: expected '(X++(Y..Y))' after '##{rec.label}=', "
                     f"found {rec.value.strip()[:30]!r}")
-            x_hz_or_ppm, y = _read_xydata(block, rec, source)
+            x_hz_or_ppm, y = _read_xydata(block, rec, source, notes)
     ppm = _to_ppm(block, x_hz_or_ppm, xunits, freq, source)
     if ppm[0] < ppm[-1]:
         ppm, y = ppm[::-1], y[::-1]
+    if np.isinf(y).any():
+        raise SpecmatchError(
+            f"cannot read '{source}': {int(np.isinf(y).sum()):,} ordinates are infinite (a number too "
+            "large for the format, or YFACTOR too large); the file is damaged")
     if not np.all(np.isfinite(y)):
         bad = int(np.sum(~np.isfinite(y)))
         notes.append(f"{bad:,} unknown ordinates ('?') were set to 0")
@@ -308,86 +362,247 @@ def _read_block(block: Block, blocks: list[Block], *, source: str, nucleus: str 
         raise SpecmatchError(
             f"{source}: the file does not say which nucleus it is (no '##.OBSERVE NUCLEUS='); "
             "give it with --nucleus 1H or --nucleus 13C")
-    experiment = "1D"
-    what = " ".join(block.get(k) or "" for k in ("TITLE", ".PULSESEQUENCE", "$PULPROG")).upper()
-    # DEPT-135 unless the text names another DEPT angle (DEPT-90, DEPT-45 are not handled).
-    if "DEPT" in what and not re.search(r"DEPT\W?(90|45)", what):
-        experiment = "DEPT-135"
+    prog = next((v.strip().strip("<>").strip() for v in
+                 (_inherited(block, blocks, lab) for lab in _PULSE_LABELS)
+                 if v and v.strip().strip("<>").strip()), None) or _first(embedded, _PULSE_LABELS)
+    experiment, exp_notes = classify_experiment(nuc, prog, block.get("TITLE"), y)
+    notes.extend(exp_notes)
     return Spectrum(nucleus=nuc, ppm=np.ascontiguousarray(ppm, dtype=float),
                     intensity=np.ascontiguousarray(y, dtype=float), frequency_mhz=freq,
                     solvent=solvent, source=src, experiment=experiment,
                     meta={"title": block.get("TITLE") or "", "warnings": tuple(notes),
-                          "shift_reference": block.get(".SHIFTREFERENCE")})
+                          "shift_reference": block.get(".SHIFTREFERENCE"),
+                          "pulse_program": prog or ""})
 
 
-def _read_xydata(block: Block, rec: LDR, source: str) -> tuple[np.ndarray, np.ndarray]:
-    xfactor = _num(block, "XFACTOR", source) or 1.0
-    yfactor = _num(block, "YFACTOR", source) or 1.0
+_SOLVENT_LABELS = (".SOLVENTNAME", "$SOLVENT", "$SLVNT", "$SOLVENTNAME")
+_PULSE_LABELS = (".PULSESEQUENCE", "$PULPROG", "$PULSEPROGRAM", "$EXPERIMENT")
+_EMBEDDED_LDR = re.compile(r"^[ \t]*\$\$[ \t]*##([^=\r\n]{1,40})=[ \t]*([^\r\n]*)", re.M)
+_COMMENT_SOLVENT = re.compile(r"^[ \t]*\$\$[ \t]*solvent[ \t]*[=:][ \t]*([^\r\n$]+)", re.M | re.I)
+_PLAIN_LDR = re.compile(r"^[ \t]*(?:\$\$[ \t]*)?##([^=\r\n]{1,40})=[ \t]*([^\r\n]*)", re.M)
+MAX_EMBEDDED_BYTES = 4 * 1024 * 1024
+
+
+def _first(d: dict[str, str], labels: tuple[str, ...]) -> str | None:
+    for lab in labels:
+        v = (d.get(lab) or "").strip().strip("<>").strip()
+        if v:
+            return v
+    return None
+
+
+def embedded_parameters(text: str, blocks: list[Block]) -> dict[str, str]:
+    """Parameters a file carries besides its own records: instrument parameter files
+    copied into ``$$`` comment lines (``$$ ##$SOLVENT= <CDCl3>``), comment notes
+    (``$$solvent=CDCL3``) and BASE64-embedded parameter files (``##$PARAMETER FILE=
+    (header, BASE64, ...)``). First occurrence of each label wins."""
+    out: dict[str, str] = {}
+
+    def take(pattern: re.Pattern, chunk: str) -> None:
+        for m in pattern.finditer(chunk):
+            lab = _norm_label(m.group(1))
+            val = m.group(2).split("$$", 1)[0].strip()
+            if val and lab not in out:
+                out[lab] = val
+
+    if "$$" in text:
+        take(_EMBEDDED_LDR, text)
+        m = _COMMENT_SOLVENT.search(text)
+        if m and ".SOLVENTNAME" not in out:
+            out[".SOLVENTNAME"] = m.group(1).strip()
+    import base64
+    import binascii
+
+    budget = MAX_EMBEDDED_BYTES
+    for b in blocks:
+        for r in b.records:
+            if r.label != "$PARAMETERFILE" or "BASE64" not in r.value.upper() or budget <= 0:
+                continue
+            raw = "".join(ln.strip() for ln in r.lines)[:budget]
+            budget -= len(raw)
+            try:
+                decoded = base64.b64decode(raw[: len(raw) - len(raw) % 4], validate=False)
+            except (binascii.Error, ValueError):
+                continue
+            take(_PLAIN_LDR, decoded.decode("latin-1"))
+    return out
+
+
+def _read_xydata(block: Block, rec: LDR, source: str, notes: list[str]) -> tuple[np.ndarray, np.ndarray]:
+    xfactor = _factor(_num(block, "XFACTOR", source), "XFACTOR", source)
+    yfactor = _factor(_num(block, "YFACTOR", source), "YFACTOR", source)
     firstx = _num(block, "FIRSTX", source)
     lastx = _num(block, "LASTX", source)
     npoints = _num(block, "NPOINTS", source)
     firsty = _num(block, "FIRSTY", source)
+    deltax = _num(block, "DELTAX", source)
+    _check_count(npoints, "NPOINTS", source)
     dec = decode_xy_lines(rec.lines, rec.line_nos, source=source)
-    return _check_and_axis(dec, xfactor, yfactor, firstx, lastx, npoints, firsty, source, rec)
+    return _check_and_axis(dec, xfactor, yfactor, firstx, lastx, npoints, firsty, source, rec,
+                           notes, deltax_header=deltax)
 
 
-def _check_and_axis(dec, xfactor, yfactor, firstx, lastx, npoints, firsty, source, rec):
+def _check_count(npoints: float | None, label: str, source: str) -> None:
+    if npoints is None:
+        return
+    if not np.isfinite(npoints) or npoints < 1 or npoints != round(npoints):
+        raise SpecmatchError(f"{source}: '##{label}= {npoints:g}' is not a positive whole number of points")
+    if npoints > MAX_POINTS:
+        raise SpecmatchError(
+            f"{source}: '##{label}= {npoints:,.0f}' is more than the {MAX_POINTS:,} points specmatch "
+            "reads; export the spectrum at a lower resolution")
+
+
+def _check_and_axis(dec, xfactor, yfactor, firstx, lastx, npoints, firsty, source, rec,
+                    notes: list[str], deltax_header: float | None = None):
+    """Abscissa and ordinates of an ``(X++(Y..Y))`` table, checked as the specification says.
+
+    The abscissa comes from FIRSTX, LASTX and the number of points (DELTAX is a
+    check). The X written at the start of each line is a checkpoint for the
+    point count: successive line X values, in units of the point spacing, must
+    advance by the number of points on the previous line. That comparison is
+    relative, so an exporter's rounding drift or an offset origin of the line X
+    values is reported in `notes`, not refused; a line that advances a whole
+    point more or less than its predecessor's count (points missing or repeated)
+    is refused with its line number.
+    """
     n = len(dec.y)
-    if npoints is not None:
-        want = int(round(npoints))
-        if want < 1:
-            raise SpecmatchError(f"{source}: ##NPOINTS= {npoints:g} is not a positive count")
-    else:
-        want = n
-    # Abscissa step from the header, else from the X written on the lines.
-    if firstx is not None and lastx is not None and want > 1:
-        deltax = (lastx - firstx) / (want - 1)
-    elif len(dec.line_x) > 1 and dec.line_start[-1] > dec.line_start[0]:
-        deltax = float(np.polyfit(dec.line_start, dec.line_x * xfactor, 1)[0])
-        firstx = float(dec.line_x[0] * xfactor - dec.line_start[0] * deltax) if firstx is None else firstx
+    if n > MAX_POINTS:
+        raise SpecmatchError(
+            f"{source}: the table holds {n:,} points, more than the {MAX_POINTS:,} specmatch reads")
+    want = int(npoints) if npoints is not None else n
+    if n < 2:
+        raise SpecmatchError(f"{source}: '{rec.value.strip()}' holds {n} point; a spectrum needs more")
+    with np.errstate(over="ignore", invalid="ignore"):
+        xs = dec.line_x * xfactor
+    if not np.all(np.isfinite(xs)):
+        raise SpecmatchError(
+            f"cannot read '{source}': the line X values times XFACTOR ({xfactor:g}) are not finite "
+            "numbers; the header is damaged")
+    starts = dec.line_start
+    # Abscissa step from the header (over the points the data really hold), else
+    # from the X written on the lines.
+    if firstx is not None and lastx is not None:
+        if firstx == lastx:
+            raise SpecmatchError(f"{source}: ##FIRSTX= and ##LASTX= are equal ({firstx:g}); the axis has no width")
+        # Over the header's count, unless it is one off and the data's own count
+        # agrees with DELTAX (an exporter counting the points wrongly).
+        count = want if want > 1 else n
+        if abs(n - want) == 1:
+            by_data = (lastx - firstx) / (n - 1)
+            by_header = (lastx - firstx) / (want - 1) if want > 1 else by_data
+            ref = deltax_header if deltax_header else None
+            count = want if (ref is not None and abs(by_header - ref) < abs(by_data - ref)) else n
+        deltax = (lastx - firstx) / (count - 1)
+    elif len(xs) > 1 and starts[-1] > starts[0]:
+        deltax = float(np.polyfit(starts, xs, 1)[0])
+        if firstx is None:
+            firstx = float(xs[0] - starts[0] * deltax)
+        notes.append("##FIRSTX= or ##LASTX= missing; the abscissa was fitted to the line X values")
     else:
         raise SpecmatchError(f"{source}: ##FIRSTX= and ##LASTX= are needed to place the points")
-    if firstx is None:
-        firstx = float(dec.line_x[0] * xfactor)
-    # X check: each line's abscissa must match the point it starts with.
-    # Writers round (or truncate) X to the digits they print: allow one step of that.
+    if not np.isfinite(deltax) or deltax == 0:
+        raise SpecmatchError(f"{source}: the abscissa step is not a finite non-zero number")
+    # Rounding of the X written on a line: one unit of its last printed digit.
     x_step = 10.0 ** (-dec.x_decimals) * abs(xfactor)
-    tol = 0.6 * abs(deltax) + 1.01 * x_step + 1e-9 * max(abs(firstx), 1.0)
-    expected = firstx + dec.line_start * deltax
-    off = np.abs(dec.line_x * xfactor - expected) > tol
+    round_pts = x_step / abs(deltax)
+    where = ""
+    opposite = False
+    if len(xs) > 1:
+        steps = np.diff(xs) / deltax
+        want_steps = np.diff(starts).astype(float)
+        # The line X values may count in other units than FIRSTX/LASTX (point indices,
+        # the opposite direction): one scale for all lines, read from the median step.
+        use = want_steps > 0
+        scale = float(np.median(steps[use] / want_steps[use])) if use.any() else 1.0
+        if not np.isfinite(scale) or scale == 0 or abs(scale - 1.0) <= 0.01:
+            scale = 1.0
+        elif abs(scale + 1.0) <= 0.01:
+            scale = -1.0
+        steps = steps / scale
+        # Half a point plus the rounding of two X values plus 0.1% drift per point.
+        tol = 0.5 + round_pts / abs(scale) + 1e-3 * want_steps
+        bad = np.abs(steps - want_steps) > tol
+        if scale != 1.0:
+            opposite = True  # offset and drift against FIRSTX are not meaningful then
+            how = ("run opposite to ##FIRSTX= -> ##LASTX= (they count points)" if scale == -1.0
+                   else f"advance {scale:.4g} times the point spacing per point (other units)")
+            notes.append(f"the line X values {how}; the abscissa follows FIRSTX, LASTX and the "
+                         "point count")
+        if bad.any():
+            k = int(np.argmax(bad))
+            gap = steps[k] - want_steps[k]
+            line = int(dec.line_numbers[k + 1])
+            where = (f"line {line:,}: its X ({dec.line_x[k + 1]:g}) is {abs(gap):.1f} points "
+                     f"{'beyond' if gap > 0 else 'short of'} where the {int(want_steps[k])} points "
+                     f"of the line before put it")
+            if n == want or abs(n - want) > 1:
+                kind = "missing" if gap > 0 else "repeated"
+                raise SpecmatchError(
+                    f"cannot read '{source}': {where}: points are {kind} (or lines out of order); "
+                    "the file is damaged or was edited")
     if n != want:
-        where = ""
-        if off.any():
-            k = int(np.argmax(off))
-            where = (f"line {int(dec.line_numbers[k]):,}: X is {dec.line_x[k]:g} where "
-                     f"{expected[k] / xfactor:g} was expected (points missing or extra before it); ")
-        if n < want:
+        if abs(n - want) == 1 and not where:
+            notes.append(f"##NPOINTS= says {want:,} but the data hold {n:,} points (consistent "
+                         "line by line); read as the data hold")
+        elif n < want:
             raise SpecmatchError(
-                f"cannot read '{source}': {where}'{rec.value.strip()}' data ends after {n:,} of "
-                f"{want:,} points; the export may be truncated")
+                f"cannot read '{source}': {where + '; ' if where else ''}'{rec.value.strip()}' data "
+                f"ends after {n:,} of {want:,} points; the export may be truncated")
+        else:
+            raise SpecmatchError(
+                f"cannot read '{source}': {where + '; ' if where else ''}'{rec.value.strip()}' holds "
+                f"{n:,} points but ##NPOINTS= says {want:,}; the file is damaged or was edited")
+    if deltax_header is not None and np.isfinite(deltax_header) and deltax_header != 0:
+        # DELTAX is a check only: a sign error or a mismatch over the span is noted.
+        span_err = abs(deltax_header - deltax) * (n - 1) / abs(deltax)
+        if span_err > 1.0:
+            notes.append(f"##DELTAX= {deltax_header:g} disagrees with (LASTX - FIRSTX)/(points - 1) = "
+                         f"{deltax:g}; the abscissa follows FIRSTX, LASTX and the point count")
+    # Offset origin and drift of the line X values (in points): reported, not refused.
+    with np.errstate(over="ignore", invalid="ignore"):
+        dev = (xs - (firstx + starts * deltax)) / deltax
+    slack = 0.5 + round_pts
+    if opposite:
+        dev = np.zeros(0)
+    if len(dev) and abs(dev[0]) > slack:
+        notes.append(f"the line X values are offset from ##FIRSTX= by {dev[0]:+,.1f} points (first "
+                     f"line X {xs[0]:g}, FIRSTX {firstx:g}); the abscissa follows FIRSTX, LASTX and "
+                     "the point count")
+    if len(dev) > 1:
+        drift = float(np.max(np.abs(dev - dev[0])))
+        if drift > slack:
+            notes.append(f"the line X values drift by up to {drift:.1f} points from FIRSTX + "
+                         "i x DELTAX (exporter rounding); the abscissa follows FIRSTX, LASTX and "
+                         "the point count")
+    with np.errstate(over="ignore", invalid="ignore"):
+        y = dec.y * yfactor
+    inf = np.isinf(y)
+    if inf.any():
+        k = int(np.argmax(inf))
+        line = int(dec.line_numbers[np.searchsorted(starts, k, side="right") - 1])
         raise SpecmatchError(
-            f"cannot read '{source}': {where}'{rec.value.strip()}' holds {n:,} points but "
-            f"##NPOINTS= says {want:,}; the file is damaged or was edited")
-    if off.any():
-        k = int(np.argmax(off))
-        raise SpecmatchError(
-            f"cannot read '{source}': line {int(dec.line_numbers[k]):,}: X is {dec.line_x[k]:g} "
-            f"but the point it starts with should be at {expected[k] / xfactor:g} "
-            "(from ##FIRSTX=, ##LASTX=, ##NPOINTS=); lines are missing, repeated or out of order")
-    y = dec.y * yfactor
+            f"cannot read '{source}': line {line:,}: an ordinate is infinite (too large for a "
+            "number, or YFACTOR too large); the file is damaged")
     if firsty is not None and np.isfinite(y[0]):
         scale = max(float(np.nanmax(np.abs(y))) if n else 0.0, abs(firsty), 1e-300)
         if abs(y[0] - firsty) > 1e-3 * scale + abs(yfactor):
             raise SpecmatchError(
                 f"cannot read '{source}': ##FIRSTY= {firsty:g} but the first ordinate decodes to "
                 f"{y[0]:g}; YFACTOR or the data lines are damaged")
-    x = firstx + np.arange(n) * deltax
+    with np.errstate(over="ignore", invalid="ignore"):
+        x = firstx + np.arange(n) * deltax
+    if not (np.isfinite(x[0]) and np.isfinite(x[-1])):
+        raise SpecmatchError(
+            f"cannot read '{source}': the abscissa from ##FIRSTX= {firstx:g} to ##LASTX= "
+            f"{lastx if lastx is not None else float('nan'):g} leaves the range of numbers; the header is damaged")
     return x, y
 
 
 def _read_xypoints(block: Block, rec: LDR, source: str) -> tuple[np.ndarray, np.ndarray]:
-    xfactor = _num(block, "XFACTOR", source) or 1.0
-    yfactor = _num(block, "YFACTOR", source) or 1.0
+    xfactor = _factor(_num(block, "XFACTOR", source), "XFACTOR", source)
+    yfactor = _factor(_num(block, "YFACTOR", source), "YFACTOR", source)
+    _check_count(_num(block, "NPOINTS", source), "NPOINTS", source)
     vals = _table_values(rec, 2, source)
     x = vals[:, 0] * xfactor
     y = vals[:, 1] * yfactor
@@ -445,9 +660,18 @@ def _read_peak_table(block: Block, rec: LDR, *, source: str, nucleus: str | None
                      solvent: str | None, src: str, notes: list[str]) -> PeakList:
     kind = re.sub(r"\s", "", rec.value).upper()
     width = 3 if kind.startswith("(XYW") or kind.startswith("(XYM") else 2
+    from .peaklist_io import MAX_PEAKS, SHIFT_RANGE_PPM
+
+    if len(rec.lines) > MAX_PEAKS:
+        raise SpecmatchError(
+            f"{source}: the peak table has {len(rec.lines):,} lines; a peak list may hold at most "
+            f"{MAX_PEAKS:,} peaks")
     vals = _table_values(rec, width, source)
-    xfactor = _num(block, "XFACTOR", source) or 1.0
-    yfactor = _num(block, "YFACTOR", source) or 1.0
+    if len(vals) > MAX_PEAKS:
+        raise SpecmatchError(
+            f"{source}: the peak table lists {len(vals):,} peaks; at most {MAX_PEAKS:,} are read")
+    xfactor = _factor(_num(block, "XFACTOR", source), "XFACTOR", source)
+    yfactor = _factor(_num(block, "YFACTOR", source), "YFACTOR", source)
     x = vals[:, 0] * xfactor
     xunits = (block.get("XUNITS") or "PPM").upper()
     ppm = _to_ppm(block, x, xunits, freq, source)
@@ -456,6 +680,12 @@ def _read_peak_table(block: Block, rec: LDR, *, source: str, nucleus: str | None
     if nucleus is None:
         raise SpecmatchError(
             f"{source}: the peak table does not say which nucleus it is; give --nucleus 1H or 13C")
+    lo_ok, hi_ok = SHIFT_RANGE_PPM.get(nucleus, (-1e3, 1e3))
+    bad = ~((ppm >= lo_ok) & (ppm <= hi_ok))
+    if bad.any():
+        raise SpecmatchError(
+            f"{source}: the peak table lists a shift of {float(ppm[np.argmax(bad)]):g} ppm, outside the "
+            f"{nucleus} range ({lo_ok:g} to {hi_ok:g} ppm); the table is damaged")
     peaks = []
     for i in np.argsort(-ppm):
         wid = None
@@ -467,7 +697,7 @@ def _read_peak_table(block: Block, rec: LDR, *, source: str, nucleus: str | None
                     reference="as given in the file", source=src, warnings=tuple(notes))
 
 
-def _read_ntuples(block: Block, source: str) -> tuple[np.ndarray, np.ndarray, str]:
+def _read_ntuples(block: Block, source: str, notes: list[str]) -> tuple[np.ndarray, np.ndarray, str]:
     """The real page of an NTUPLES block (x in its own units, y scaled)."""
     symbols = _strs(block.get("SYMBOL") or "")
     if not symbols or symbols == [""]:
@@ -505,9 +735,12 @@ def _read_ntuples(block: Block, source: str) -> tuple[np.ndarray, np.ndarray, st
     yi = upper.index(sym) if sym in upper else 1
     def at(lst, i):
         return lst[i] if i < len(lst) else None
+    npoints = at(dims, yi) or at(dims, xi)
+    _check_count(npoints, "VAR_DIM", source)
     dec = decode_xy_lines(rec.lines, rec.line_nos, source=source)
-    x, y = _check_and_axis(dec, at(factors, xi) or 1.0, at(factors, yi) or 1.0, at(firsts, xi),
-                           at(lasts, xi), at(dims, yi) or at(dims, xi), None, source, rec)
+    x, y = _check_and_axis(dec, _factor(at(factors, xi), "FACTOR (X)", source),
+                           _factor(at(factors, yi), f"FACTOR ({sym})", source), at(firsts, xi),
+                           at(lasts, xi), npoints, None, source, rec, notes)
     return x, y, (at(units, xi) or "").upper()
 
 

@@ -25,7 +25,8 @@ class Spectrum:
 @dataclass(frozen=True)
 class Peak:
     """One line. `flag` is None for a compound line, else "solvent", "water",
-    "TMS", "grease" or "impurity:<name>". `hydrogens` is set when DEPT-135 (or a
+    "TMS", "grease", "impurity:<name>", "13C satellite", "spinning sideband" or
+    "trace" (a 1H multiplet below 0.3% of the compound signal). `hydrogens` is set when DEPT-135 (or a
     peak list) says how many H the carbon carries; `sign` is the DEPT-135 phase."""
 
     shift: float
@@ -62,6 +63,9 @@ class PeakList:
     source: str = ""
     experiment: str = "1D"
     warnings: tuple[str, ...] = ()
+    #: what 1H multiplet integrals are: "" as given (typed lists), "percent" of the
+    #: unflagged multiplets (processed spectra), or "H" (scaled to protons)
+    integral_unit: str = ""
 
     def compound_peaks(self) -> tuple[Peak, ...]:
         """Peaks not flagged as solvent, water, TMS, grease or impurity."""

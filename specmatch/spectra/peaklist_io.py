@@ -17,6 +17,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .. import safeio
 from ..errors import SpecmatchError
 from ..prediction.multiplicity import normalise as normalise_multiplicity
 from .model import Multiplet, Peak, PeakList, Spectrum
@@ -36,15 +37,33 @@ _NUM = re.compile(r"^[+-]?(\d+(?:\.\d*)?|\.\d+)([eE][+-]?\d+)?$")
 _MULT_OK = re.compile(r"^(s|br\s?s|d|t|q|quint|sext|sept|hept|m|[dtq]{2,4})$")
 
 
+#: most peaks (rows) a peak list may hold. Real 1H/13C peak lists have tens to a few
+#: hundred lines; longer lists are spectra saved as text, and every later stage
+#: (assignment, mixture fit) is sized for lists of this order.
+MAX_PEAKS = 2000
+#: most points an x,y text spectrum may hold (as for JCAMP-DX, ``jcampdx.MAX_POINTS``)
+MAX_XY_POINTS = 4 * 1024 * 1024
+#: shifts accepted per nucleus (ppm): beyond any 1H/13C signal of an organic compound
+SHIFT_RANGE_PPM = {"1H": (-5.0, 25.0), "13C": (-50.0, 400.0)}
+#: largest integral or intensity accepted (raw areas of processing programs reach ~1e9)
+MAX_INTEGRAL = 1e12
+#: largest coupling constant accepted (1J(CH) is up to about 250 Hz)
+MAX_J_HZ = 300.0
+
+
+def _check_points(n: int, src: str) -> None:
+    if n > MAX_XY_POINTS:
+        raise SpecmatchError(
+            f"'{src}' holds {n:,} x,y points; at most {MAX_XY_POINTS:,} are read. Reduce the "
+            "resolution or export the spectrum as JCAMP-DX")
+
+
 def _text(path_or_text: str | Path | bytes) -> tuple[str, str]:
     if isinstance(path_or_text, bytes):
-        return path_or_text.decode("utf-8-sig", errors="replace"), "peak list"
+        return safeio.decode_text(path_or_text, name="peak list"), "peak list"
     if isinstance(path_or_text, Path) or ("\n" not in str(path_or_text) and Path(str(path_or_text)).exists()):
         p = Path(path_or_text)
-        try:
-            return p.read_bytes().decode("utf-8-sig", errors="replace"), p.name
-        except OSError as exc:
-            raise SpecmatchError(f"cannot read '{p}': {exc.strerror}") from None
+        return safeio.read_text(p, kind="peaklist"), p.name
     return str(path_or_text), "peak list"
 
 
@@ -87,6 +106,7 @@ def read_peak_csv(path_or_text: str | Path | bytes, *, nucleus: str | None = Non
     has_header = not all(_NUM.match(c) for c in header if c)
     if not has_header:
         if all(len(r) == 2 for r in rows) and len(rows) >= 16:
+            _check_points(len(rows), src)
             return _xy_spectrum(rows, src, nucleus)
         header = ["shift", "intensity", "integral"][: len(rows[0])] if len(rows[0]) <= 3 else []
         if not header:
@@ -104,7 +124,14 @@ def read_peak_csv(path_or_text: str | Path | bytes, *, nucleus: str | None = Non
         raise SpecmatchError(
             f"'{src}': no shift column; name it 'shift' (or ppm). Columns found: {', '.join(header)}")
     if has_header and len(header) == 2 and "intensity" in col and len(data) >= 64:
+        _check_points(len(data), src)
         return _xy_spectrum(data, src, nucleus, start_line=2)
+    if len(data) > MAX_PEAKS:
+        raise SpecmatchError(
+            f"'{src}' lists {len(data):,} peaks; a peak list may hold at most {MAX_PEAKS:,}. "
+            "If this is a spectrum saved as text, give it as two columns (ppm, intensity) "
+            "without other columns, or give the spectrum file itself")
+    line_of: list[int] = []
     peaks: list[Peak] = []
     multiplets: list[Multiplet] = []
     for n, r in enumerate(data, start=2 if has_header else 1):
@@ -141,6 +168,13 @@ def read_peak_csv(path_or_text: str | Path | bytes, *, nucleus: str | None = Non
             else:
                 raise SpecmatchError(f"'{src}' line {n}: hydrogens {hyd!r} should be 0-3 or C/CH/CH2/CH3")
         flag = cell("flag") or None
+        if integral is not None and not 0 < integral <= MAX_INTEGRAL:
+            raise SpecmatchError(
+                f"'{src}' line {n}: integral {integral:g} should be a positive number (at most "
+                f"{MAX_INTEGRAL:g}); leave the cell empty if it is not known")
+        if inten is not None and not abs(inten) <= MAX_INTEGRAL:
+            raise SpecmatchError(f"'{src}' line {n}: intensity {inten:g} is not a plausible height")
+        line_of.append(n)
         peaks.append(Peak(shift=shift, intensity=inten, flag=flag, hydrogens=hydrogens))
         mult = cell("multiplicity").lower()
         jtxt = cell("j")
@@ -156,7 +190,11 @@ def read_peak_csv(path_or_text: str | Path | bytes, *, nucleus: str | None = Non
                     continue
                 if not _NUM.match(part):
                     raise SpecmatchError(f"'{src}' line {n}: J value {part!r} is not a number (Hz)")
-                js.append(float(part))
+                jv = float(part)
+                if not 0.0 <= jv <= MAX_J_HZ:
+                    raise SpecmatchError(
+                        f"'{src}' line {n}: J value {part} Hz is outside 0 to {MAX_J_HZ:g} Hz")
+                js.append(jv)
             multiplets.append(Multiplet(shift=shift, range=(lo, hi), integral=integral,
                                         multiplicity=normalise_multiplicity(mult),
                                         j_hz=tuple(js), flag=flag))
@@ -171,6 +209,12 @@ def read_peak_csv(path_or_text: str | Path | bytes, *, nucleus: str | None = Non
         else:
             nucleus = "13C" if max(p.shift for p in peaks) > 20 else "1H"
             warnings.append(f"nucleus not given; {nucleus} assumed from the shift range")
+    lo_ok, hi_ok = SHIFT_RANGE_PPM.get(nucleus, (-1e3, 1e3))
+    for pk, n in zip(peaks, line_of):
+        if not lo_ok <= pk.shift <= hi_ok:
+            raise SpecmatchError(
+                f"'{src}' line {n}: shift {pk.shift:g} ppm is outside the {nucleus} range "
+                f"({lo_ok:g} to {hi_ok:g} ppm); check the number and the column")
     peaks.sort(key=lambda p: -p.shift)
     multiplets.sort(key=lambda m: -m.shift)
     return PeakList(nucleus=nucleus, peaks=tuple(peaks), multiplets=tuple(multiplets) if nucleus == "1H" else (),

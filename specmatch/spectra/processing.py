@@ -28,6 +28,41 @@ WEAK_FRACTION = 0.5  # impurity lines must be weaker than half the median signal
 
 _SPAN = {"1H": (0.0, 35.0), "13C": (25.0, 400.0)}  # nuclei specmatch processes
 
+# Real-data artefacts in 1H spectra (common practice unless a source is named).
+#: 13C satellites sit at +-1J(CH)/2 around their parent line; 1J(CH) runs from about
+#: 115 Hz (sp3) to 270 Hz (sp C-H) (Pretsch, Buehlmann, Badertscher, Structure
+#: Determination of Organic Compounds, 4th ed. 2009, 1J(CH) table; from memory).
+SATELLITE_HALF_J_HZ = (55.0, 135.0)
+#: each satellite carries half of the 1.07% natural abundance of 13C: ~0.55% of
+#: the parent line (wider window for line width and phase differences)
+SATELLITE_FRACTION = (0.0015, 0.015)
+#: the two satellites of a line are centred on it within this (13C isotope shift ~1 Hz)
+SATELLITE_PAIR_TOL_HZ = 3.0
+#: spinning sidebands: a few percent at most, at +-the spinning rate (5-60 Hz)
+SIDEBAND_HZ = (5.0, 60.0)
+SIDEBAND_FRACTION = 0.03
+#: lines below FOOT_FRACTION of a line within FOOT_WINDOW_HZ (and below
+#: FAR_FOOT_FRACTION of one within FAR_FOOT_WINDOW_HZ) are ripples on the foot of
+#: that line (truncation wiggles, line-shape bumps), not signals of their own
+FOOT_FRACTION = 0.015
+FOOT_WINDOW_HZ = 25.0
+FAR_FOOT_FRACTION = 0.004
+FAR_FOOT_WINDOW_HZ = 150.0
+#: a line must stand out from its flanking valleys by this fraction of its height
+MIN_RELATIVE_PROMINENCE = 0.08
+#: lines closer than this (Hz) are one unresolved line for first-order analysis
+UNRESOLVED_HZ = 1.2
+#: finest digitisation (Hz per point) at which 1H lines are picked on a lightly smoothed trace
+SMOOTH_MAX_HZ_PER_POINT = 0.5
+#: largest height ratio of neighbouring lines inside one multiplet (8:1 edge of a nonet, plus slack)
+MAX_NEIGHBOUR_RATIO = 12.0
+#: a named multiplet whose integral exceeds its lines' Lorentzian areas this many times is "m"
+UNEXPLAINED_AREA_RATIO = 1.6
+#: 1H multiplets below this share of the unflagged integral are flagged "trace"
+TRACE_FRACTION = 0.003
+#: most lines analysed per spectrum: the strongest are kept (a noise-picking limit)
+MAX_LINES = 5000
+
 
 # ------------------------------------------------------------------------- array steps
 def baseline_correct(y: np.ndarray, *, segments: int = 64, order: int = 3) -> np.ndarray:
@@ -91,7 +126,10 @@ def pick_peaks(ppm: np.ndarray, y: np.ndarray, *, threshold: float, sigma: float
         s = sign * y
         # Prominence (height above the higher of the two bounding valleys) keeps
         # noise bumps riding on the tail of a big line out of the list.
-        idx, _ = find_peaks(s, height=threshold, prominence=max(0.75 * threshold, 4.0 * sigma, 1e-12))
+        idx, props = find_peaks(s, height=threshold, prominence=max(0.75 * threshold, 4.0 * sigma, 1e-12))
+        # A maximum that stands out by only a few percent of its own height is a
+        # ripple on the flank of a line (point-to-point wiggles of real data).
+        idx = idx[props["prominences"] >= MIN_RELATIVE_PROMINENCE * s[idx]]
         idx = idx[(idx > 0) & (idx < len(s) - 1)]
         idx_parts.append(idx)
     idx = np.sort(np.concatenate(idx_parts)) if idx_parts else np.array([], dtype=int)
@@ -109,30 +147,116 @@ def pick_peaks(ppm: np.ndarray, y: np.ndarray, *, threshold: float, sigma: float
     return PickedPeaks(frac, pos, height, idx)
 
 
-def _merge_shallow(s: np.ndarray, idx: np.ndarray, depth: float) -> np.ndarray:
-    """Drop maxima that are noise on a bigger line: the valley between a maximum and
-    its kept neighbour must be at least `depth` below the smaller of the two."""
-    if len(idx) < 2:
-        return idx
-    # Fast path: consecutive valleys all deep -> nothing to merge.
-    valleys = np.minimum.reduceat(s, idx)[:-1]
-    if not ((np.minimum(s[idx[:-1]], s[idx[1:]]) - valleys) < depth).any():
-        return idx
-    keep: list[int] = [int(idx[0])]
-    for j in idx[1:]:
-        j = int(j)
-        while keep:
-            a = keep[-1]
-            valley = float(s[a:j].min())
-            if min(s[a], s[j]) - valley >= depth:
-                keep.append(j)
-                break
-            if s[j] <= s[a]:
-                break  # j is noise on a's line
-            keep.pop()  # a is noise on j's line; compare j with the one before
-        else:
-            keep.append(j)
-    return np.asarray(keep, dtype=int)
+def _subset(p: PickedPeaks, sel: np.ndarray) -> PickedPeaks:
+    return PickedPeaks(p.index[sel], p.ppm[sel], p.height[sel], p.point[sel])
+
+
+# ------------------------------------------------------------------ real-data artefacts
+def foot_lines(y: np.ndarray, point: np.ndarray, height: np.ndarray, hz_per_point: float) -> np.ndarray:
+    """Mask of lines that are ripples on the foot of a much bigger line nearby.
+
+    A line is a ripple when it is below FOOT_FRACTION of the tallest point within
+    FOOT_WINDOW_HZ, or below FAR_FOOT_FRACTION of the tallest within
+    FAR_FOOT_WINDOW_HZ. Linear time (running maximum over the points).
+    """
+    from scipy.ndimage import maximum_filter1d
+
+    if len(point) == 0:
+        return np.zeros(0, dtype=bool)
+    hz = max(abs(hz_per_point), 1e-9)
+    out = np.zeros(len(point), dtype=bool)
+    for window, frac in ((FOOT_WINDOW_HZ, FOOT_FRACTION), (FAR_FOOT_WINDOW_HZ, FAR_FOOT_FRACTION)):
+        half = int(min(max(1, round(window / hz)), len(y)))
+        local = maximum_filter1d(y, size=2 * half + 1, mode="nearest")[point]
+        out |= np.abs(height) < frac * local
+    return out
+
+
+def satellite_lines(hz: np.ndarray, height: np.ndarray, threshold: float) -> np.ndarray:
+    """Mask of 13C satellites: line pairs at +-J(CH)/2 around a parent line, each
+    SATELLITE_FRACTION of it (one side may hide under another line)."""
+    n = len(hz)
+    out = np.zeros(n, dtype=bool)
+    if n < 3:
+        return out
+    order = np.argsort(hz)
+    x, h = hz[order], np.abs(height[order])
+    lo_j, hi_j = SATELLITE_HALF_J_HZ
+    lo_f, hi_f = SATELLITE_FRACTION
+    parents = np.flatnonzero(h * lo_f * 2 > threshold)
+    parents = parents[np.argsort(-h[parents])][:400]
+    for k in parents:
+        hp = h[k]
+        sides = []
+        for sign in (-1.0, 1.0):
+            a, b = sorted((x[k] + sign * lo_j, x[k] + sign * hi_j))
+            i0, i1 = np.searchsorted(x, a), np.searchsorted(x, b, side="right")
+            idx = np.arange(i0, i1)
+            idx = idx[(h[idx] >= lo_f * hp) & (h[idx] <= hi_f * hp)]
+            sides.append(idx)
+        left, right = sides
+        if len(left) and len(right):
+            d = np.abs((x[right][None, :] - x[k]) - (x[k] - x[left][:, None]))
+            r = h[left][:, None] / h[right][None, :]
+            li, ri = np.nonzero((d <= SATELLITE_PAIR_TOL_HZ) & (r >= 0.4) & (r <= 2.5))
+            if len(li):
+                out[order[left[li]]] = True
+                out[order[right[ri]]] = True
+                continue
+        # One satellite alone: its mirror image must lie under a clearly bigger line.
+        for idx, sign in ((left, 1.0), (right, -1.0)):
+            for i in idx:
+                mirror = 2 * x[k] - x[i]
+                m0, m1 = np.searchsorted(x, mirror - SATELLITE_PAIR_TOL_HZ), \
+                    np.searchsorted(x, mirror + SATELLITE_PAIR_TOL_HZ, side="right")
+                if m1 > m0 and np.max(h[m0:m1]) >= 3.0 * h[i] and not out[order[i]]:
+                    out[order[i]] = True
+    return out
+
+
+def sideband_lines(hz: np.ndarray, height: np.ndarray, threshold: float) -> np.ndarray:
+    """Mask of spinning sidebands: weak symmetric pairs at +-the spinning rate around
+    strong lines; the rate must be seen around two or more parents."""
+    n = len(hz)
+    out = np.zeros(n, dtype=bool)
+    if n < 5:
+        return out
+    order = np.argsort(hz)
+    x, h = hz[order], np.abs(height[order])
+    strong = np.flatnonzero(h * SIDEBAND_FRACTION > threshold)
+    strong = strong[np.argsort(-h[strong])][:20]
+    lo, hi = SIDEBAND_HZ
+    found: list[tuple[float, int]] = []
+    pairs: dict[int, list[tuple[float, int, int]]] = {}
+    for k in strong:
+        hp = h[k]
+        i0, i1 = np.searchsorted(x, x[k] - hi), np.searchsorted(x, x[k] - lo, side="right")
+        j0, j1 = np.searchsorted(x, x[k] + lo), np.searchsorted(x, x[k] + hi, side="right")
+        left = np.arange(i0, i1)
+        left = left[h[left] <= SIDEBAND_FRACTION * hp]
+        right = np.arange(j0, j1)
+        right = right[h[right] <= SIDEBAND_FRACTION * hp]
+        if not (len(left) and len(right)):
+            continue
+        nu_l = x[k] - x[left][:, None]
+        nu_r = x[right][None, :] - x[k]
+        r = h[left][:, None] / h[right][None, :]
+        li, ri = np.nonzero((np.abs(nu_l - nu_r) <= 0.6) & (r >= 1 / 3) & (r <= 3))
+        for a, b in zip(li[:50], ri[:50]):
+            i, j = int(left[a]), int(right[b])
+            nu = 0.5 * (float(nu_l[a, 0]) + float(nu_r[0, b]))
+            found.append((nu, int(k)))
+            pairs.setdefault(int(k), []).append((nu, i, j))
+    if not found:
+        return out
+    for nu, _ in sorted(found):
+        parents = {k for v, k in found if abs(v - nu) <= 0.6}
+        if len(parents) >= 2:
+            for k in parents:
+                for v, i, j in pairs[k]:
+                    if abs(v - nu) <= 0.6:
+                        out[order[i]] = out[order[j]] = True
+    return out
 
 
 # ------------------------------------------------------------------ first-order analysis
@@ -141,6 +265,72 @@ from ..prediction.multiplicity import LETTER_FOR_PARTNERS as _LETTER  # noqa: E4
 
 def first_order(pos_hz: np.ndarray, height: np.ndarray, *, tol_hz: float = 0.5
                 ) -> tuple[str, tuple[float, ...], float]:
+    """First-order multiplicity and couplings of one multiplet (see :func:`_first_order`).
+
+    When no coupling tree explains the lines, a run of equally spaced lines whose
+    heights rise towards the centre is named as the apparent multiplet of that
+    many lines (a "t" whose centre line is short or split by second-order effects).
+    """
+    got = _first_order(pos_hz, height, tol_hz=tol_hz)
+    if got[0] != "m" or len(pos_hz) < 3:
+        return got
+    pos = np.asarray(pos_hz, dtype=float)
+    h = np.abs(np.asarray(height, dtype=float))
+    merged = _merge_unresolved(pos, h)
+    if merged is not None and len(merged[0]) < len(pos):
+        again = _first_order(merged[0], merged[1], tol_hz=tol_hz)
+        if again[0] != "m":
+            return again
+        pos, h = merged
+    apparent = _apparent_multiplet(pos, h, tol_hz)
+    return apparent or got
+
+
+def _merge_unresolved(pos: np.ndarray, h: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+    """Lines closer than UNRESOLVED_HZ merged into one (height-weighted centre, summed height)."""
+    gaps = np.diff(pos)
+    if not (gaps < UNRESOLVED_HZ).any():
+        return None
+    out_p, out_h = [pos[0]], [h[0]]
+    for p, hh, g in zip(pos[1:], h[1:], gaps):
+        if g < UNRESOLVED_HZ:
+            tot = out_h[-1] + hh
+            out_p[-1] = (out_p[-1] * out_h[-1] + p * hh) / tot
+            out_h[-1] = tot
+        else:
+            out_p.append(p)
+            out_h.append(hh)
+    return np.array(out_p), np.array(out_h)
+
+
+def _apparent_multiplet(pos: np.ndarray, h: np.ndarray, tol_hz: float
+                        ) -> tuple[str, tuple[float, ...], float] | None:
+    n = len(pos)
+    if not 3 <= n <= 7:
+        return None
+    gaps = np.diff(pos)
+    j = float(np.mean(gaps))
+    if j < 2 * tol_hz or np.max(np.abs(gaps - j)) > max(tol_hz, 0.12 * j):
+        return None
+    hs = 0.5 * (h + h[::-1])  # the symmetric part (roofing tilts the rest)
+    if np.max(np.abs(h - h[::-1]) / np.maximum(h, h[::-1])) > 0.5:
+        return None
+    half = hs[: (n + 1) // 2]
+    if np.any(np.diff(half) < -0.1 * half[:-1]) or half[-1] < 1.15 * half[0]:
+        return None
+    # Heights within a factor of about 1.6 of the binomial pattern (second-order
+    # effects shorten inner lines; a 1:5:1 is no triplet).
+    from math import comb
+
+    binom = np.array([comb(n - 1, i) for i in range(n)], dtype=float)
+    ratio = (hs / hs[0]) / binom
+    if np.any(ratio < 0.55) or np.any(ratio > 1.6):
+        return None
+    return _LETTER[n - 1], (round(j, 1),), 0.5 * float(pos[0] + pos[-1])
+
+
+def _first_order(pos_hz: np.ndarray, height: np.ndarray, *, tol_hz: float = 0.5
+                 ) -> tuple[str, tuple[float, ...], float]:
     """First-order multiplicity and couplings of one multiplet.
 
     The lines (ascending Hz) are split into intensity units of the outer line;
@@ -266,10 +456,26 @@ def process_spectrum(spectrum: Spectrum, *, solvent: str | None = None, snr: flo
     """
     nucleus = spectrum.nucleus
     check_nucleus_range(spectrum)
-    dept = dept135 or spectrum.experiment == "DEPT-135"
-    if dept and nucleus != "13C":
-        raise SpecmatchError(f"{spectrum.source}: DEPT-135 is a 13C experiment but the spectrum is {nucleus}")
     warnings: list[str] = list(spectrum.meta.get("warnings", ()) if spectrum.meta else ())
+    experiment = spectrum.experiment
+    if dept135 and nucleus != "13C":
+        raise SpecmatchError(f"{spectrum.source}: DEPT-135 is a 13C experiment but the spectrum is {nucleus}")
+    if dept135 and experiment not in ("DEPT-135", "1D"):
+        warnings.append(f"the file records a {experiment} experiment but DEPT-135 was given; read as DEPT-135")
+    if dept135 and experiment == "1D" and spectrum.meta.get("pulse_program"):
+        warnings.append(f"the pulse program '{spectrum.meta['pulse_program']}' is not a DEPT program "
+                        "but DEPT-135 was given; read as DEPT-135")
+    if dept135:
+        experiment = "DEPT-135"
+    if experiment in ("DEPT-90", "DEPT-45"):
+        raise SpecmatchError(
+            f"{spectrum.source}: this is a {experiment} spectrum; specmatch uses 13C and DEPT-135 "
+            "spectra (give a DEPT-135, or --dept135 if the file is one)")
+    dept = experiment == "DEPT-135"
+    both_phases = experiment in ("DEPT-135", "DEPTQ-135")
+    if experiment == "DEPTQ-135":
+        warnings.append("DEPTQ spectrum: lines of both phases are listed; the phases are not used to "
+                        "count H (CH2 and quaternary carbons both point down)")
     solv = canonical_solvent(solvent) if solvent else canonical_solvent(spectrum.solvent, strict=False)
     if spectrum.solvent and not solv and not solvent:
         warnings.append(f"solvent '{spectrum.solvent}' named in the file is not in the solvent table; "
@@ -290,7 +496,7 @@ def process_spectrum(spectrum: Spectrum, *, solvent: str | None = None, snr: flo
     if ppm[0] < ppm[-1]:
         ppm, raw = ppm[::-1], raw[::-1]
     y = baseline_correct(raw)
-    if not dept and -np.min(y) > 2.0 * np.max(y):
+    if not both_phases and -np.min(y) > 2.0 * np.max(y):
         # Mostly negative lines in a 1D spectrum: phased 180 degrees off.
         y = -y
         warnings.append("the spectrum's lines point down (phase 180 degrees off); it was inverted")
@@ -299,12 +505,31 @@ def process_spectrum(spectrum: Spectrum, *, solvent: str | None = None, snr: flo
     if ymax == 0.0:
         raise SpecmatchError(f"{spectrum.source}: the spectrum is empty (all intensities are zero)")
     threshold = max(snr * sigma, 1e-4 * ymax)
-    picked = pick_peaks(ppm, y, threshold=threshold, sigma=sigma, negative=dept)
+    freq = spectrum.frequency_mhz
+    hz_per_point = abs(float(ppm[1] - ppm[0])) * (freq or 400.0)
+    y_pick = y
+    if nucleus == "1H" and hz_per_point <= SMOOTH_MAX_HZ_PER_POINT:
+        # Real traces often alternate point to point (a Nyquist-frequency ripple
+        # from processing); a [1, 2, 1]/4 kernel removes it and moves no line
+        # centre, and at this digitisation it merges no resolved lines.
+        y_pick = np.convolve(y, np.array([0.25, 0.5, 0.25]), mode="same")
+        sigma_pick = noise_level(y_pick)
+        threshold = max(snr * sigma_pick, 1e-4 * ymax)
+        sigma = sigma_pick
+    picked = pick_peaks(ppm, y_pick, threshold=threshold, sigma=sigma, negative=both_phases)
     if len(picked.ppm) == 0:
         raise SpecmatchError(
             f"{spectrum.source}: no peak rises {snr:g} times above the noise; check the file "
             "or lower the threshold")
-    freq = spectrum.frequency_mhz
+    if nucleus == "1H":
+        ripple = foot_lines(y_pick, picked.point, picked.height, hz_per_point)
+        if ripple.any() and not ripple.all():
+            picked = _subset(picked, ~ripple)
+    if len(picked.ppm) > MAX_LINES:
+        keep = np.sort(np.argsort(-np.abs(picked.height))[:MAX_LINES])
+        warnings.append(f"{len(picked.ppm):,} lines rise above the threshold; the {MAX_LINES:,} "
+                        "strongest were kept (raise the threshold to pick fewer)")
+        picked = _subset(picked, keep)
     if solv is None and nucleus == "13C" and not solvent:
         solv = _detect_solvent_13c(picked.ppm, freq)
         if solv:
@@ -312,9 +537,15 @@ def process_spectrum(spectrum: Spectrum, *, solvent: str | None = None, snr: flo
     offset, reference = _reference(picked.ppm, picked.height, nucleus, solv, freq)
     ppm_ref = picked.ppm + offset
     peak_flags = _flag_peaks(ppm_ref, nucleus, solv, freq)
+    if nucleus == "1H" and freq:
+        hz = ppm_ref * freq
+        for mask, label in ((satellite_lines(hz, picked.height, threshold), "13C satellite"),
+                            (sideband_lines(hz, picked.height, threshold), "spinning sideband")):
+            for k in np.flatnonzero(mask):
+                peak_flags[k] = peak_flags[k] or label
     if nucleus == "13C":
         return _carbon_list(spectrum, ppm_ref, picked.height, peak_flags, solv, reference, dept,
-                            warnings)
+                            warnings, experiment=experiment)
     return _proton_list(spectrum, ppm, y, sigma, picked, ppm_ref, offset, peak_flags, solv,
                         reference, total_h, warnings)
 
@@ -325,7 +556,10 @@ def _reference(pos: np.ndarray, height: np.ndarray, nucleus: str, solvent: str |
     hmax = float(np.max(np.abs(height)))
     near0 = np.flatnonzero((np.abs(pos) <= win) & (np.abs(height) >= 0.02 * hmax))
     # TMS: the singlet nearest 0 ppm; in 1H it is the highest-field line.
-    if len(near0) and (nucleus == "13C" or pos[near0].min() <= pos.min() + 1e-9):
+    # (Compared with the significant lines only: TMS's own 13C satellites and
+    # traces lie further upfield.)
+    significant = pos[np.abs(height) >= 0.02 * hmax]
+    if len(near0) and (nucleus == "13C" or pos[near0].min() <= significant.min() + 1e-9):
         k = near0[np.argmin(np.abs(pos[near0]))]
         off = -float(pos[k])
         return off, f"TMS at 0.00 ppm (axis moved by {off:+.3f} ppm)"
@@ -388,9 +622,10 @@ def _flag_peaks(pos: np.ndarray, nucleus: str, solvent: str | None, freq: float 
         for p in pattern_ppm(row, freq):
             for k in np.flatnonzero(np.abs(pos - p) <= tol):
                 flags[k] = "solvent" if row.kind == "solvent" else "TMS"
-    if not any(r.kind == "TMS" for r in lines_for(solvent, nucleus)):
-        for k in np.flatnonzero(np.abs(pos) <= tol):
-            flags[k] = flags[k] or "TMS"
+    # A line at 0.00 is TMS whatever the table says for the solvent (spectra are
+    # often referenced to TMS itself).
+    for k in np.flatnonzero(np.abs(pos) <= tol):
+        flags[k] = flags[k] or "TMS"
     return flags
 
 
@@ -425,7 +660,12 @@ def _impurity_matches(centres: np.ndarray, mults: list[str], sizes: np.ndarray, 
             hit.append(int(ok[np.argmin(np.abs(centres[ok] - row.shift_ppm))]))
         if not hit:
             continue
-        weak = [k for k in hit if abs(sizes[k]) <= WEAK_FRACTION * median]
+        # Weak compared with the other signals (the candidate impurity's own lines
+        # must not set the scale they are compared with).
+        others = free.copy()
+        others[hit] = False
+        ref = float(np.median(np.abs(sizes[others]))) if others.any() else median
+        weak = [k for k in hit if abs(sizes[k]) <= WEAK_FRACTION * ref]
         # With three or more lines, one may hide under (or merge with) a compound signal.
         allowance = 1 if len(rows) >= 3 else 0
         if missing + (len(hit) - len(weak)) <= allowance and weak:
@@ -439,7 +679,8 @@ def _impurity_matches(centres: np.ndarray, mults: list[str], sizes: np.ndarray, 
 
 
 def _carbon_list(spectrum: Spectrum, pos: np.ndarray, height: np.ndarray, flags: list[str | None],
-                 solvent: str | None, reference: str, dept: bool, warnings: list[str]) -> PeakList:
+                 solvent: str | None, reference: str, dept: bool, warnings: list[str],
+                 experiment: str = "1D") -> PeakList:
     imp, notes = _impurity_matches(pos, ["s"] * len(pos), np.abs(height), "13C", solvent, flags)
     compound = [abs(h) for h, f in zip(height, flags) if f is None] or [float(np.max(np.abs(height)))]
     scale = 100.0 / max(compound)
@@ -454,7 +695,7 @@ def _carbon_list(spectrum: Spectrum, pos: np.ndarray, height: np.ndarray, flags:
                           flag=flag, hydrogens=hyd, sign=sign))
     return PeakList(nucleus="13C", peaks=tuple(peaks), multiplets=(), frequency_mhz=spectrum.frequency_mhz,
                     solvent=solvent or spectrum.solvent, reference=reference, source=spectrum.source,
-                    experiment="DEPT-135" if dept else "1D", warnings=tuple(warnings + notes))
+                    experiment="DEPT-135" if dept else experiment, warnings=tuple(warnings + notes))
 
 
 def _proton_list(spectrum: Spectrum, ppm: np.ndarray, y: np.ndarray, sigma: float, picked: PickedPeaks,
@@ -495,6 +736,16 @@ def _proton_list(spectrum: Spectrum, ppm: np.ndarray, y: np.ndarray, sigma: floa
         ints.append(float(np.sum(y[lo:hi + 1])) * dppm)
         bounds.append((lo, hi))
     ints_a = np.array(ints)
+    # A first-order name needs the lines to carry the intensity: much more area
+    # than the picked lines explain means unresolved lines (shoulders) -> "m".
+    hts = picked.height[order]
+    for i, (members, mult, js, c) in enumerate(multiplets):
+        if mult == "m" or len(members) < 2:
+            continue
+        explained = sum(_line_area(y, int(pts[k]), float(hts[k])) for k in members)
+        if explained > 0 and ints_a[i] > UNEXPLAINED_AREA_RATIO * explained * dppm:
+            multiplets[i] = (members, "m", (), float(np.average(pos[order][members],
+                                                                weights=np.abs(hts[members]))))
     centres = np.array([m[3] for m in multiplets])
     mults = [m[1] for m in multiplets]
     mflags: list[str | None] = [flags[int(order[m[0][0]])] for m in multiplets]
@@ -510,20 +761,30 @@ def _proton_list(spectrum: Spectrum, ppm: np.ndarray, y: np.ndarray, sigma: floa
     for k, f in imp.items():
         mflags[k] = f
     compound = np.array([f is None for f in mflags])
+    if compound.sum() > 1:
+        # Traces: far below any proton of the compound (and below what a ratio is quoted for).
+        total = float(np.sum(np.abs(ints_a[compound])))
+        for i in np.flatnonzero(compound & (np.abs(ints_a) < TRACE_FRACTION * total)):
+            mflags[i] = "trace"
+        compound = np.array([f is None for f in mflags])
+    unit = "percent"
     basis = ""
-    if compound.any():
+    comp_total = float(np.sum(ints_a[compound])) if compound.any() else 0.0
+    if compound.any() and comp_total > 0 and np.isfinite(comp_total):
         if total_h:
-            scale = total_h / float(np.sum(ints_a[compound]))
+            scale = total_h / comp_total
+            unit = "H"
             basis = f"integrals scaled to {total_h:g} H for the unflagged multiplets"
         else:
-            # Unit: the smallest unflagged multiplet that is not a trace (>= 2% of the total).
-            comp = np.abs(ints_a[compound])
-            big = comp[comp >= 0.02 * comp.sum()]
-            scale = 1.0 / float(np.min(big if len(big) else comp))
-            basis = ("integrals relative: the smallest unflagged multiplet above 2% of the total is 1 "
-                     "(give the H count to scale them)")
+            # Relative: the unflagged multiplets add up to 100. Whole protons need
+            # the H count of the compound (scale_integrals, --total-h); the smallest
+            # multiplet is not a safe unit (it may be a trace or an OH).
+            scale = 100.0 / comp_total
+            basis = ("integrals relative: percent of the unflagged multiplets (give the compound's "
+                     "H count, --total-h, to scale them to protons)")
     else:
-        scale = 1.0 / float(np.max(np.abs(ints_a)))
+        whole = float(np.sum(np.abs(ints_a)))
+        scale = 100.0 / whole if whole > 0 and np.isfinite(whole) else 1.0
     heights = picked.height[order]
     compound_h = [abs(h) for h, f in zip(heights, [flags[k] for k in order]) if f is None]
     hscale = 100.0 / (max(compound_h) if compound_h else float(np.max(np.abs(heights))))
@@ -544,7 +805,81 @@ def _proton_list(spectrum: Spectrum, ppm: np.ndarray, y: np.ndarray, sigma: floa
         warnings.append(basis)
     return PeakList(nucleus="1H", peaks=tuple(all_peaks), multiplets=tuple(out_m),
                     frequency_mhz=spectrum.frequency_mhz, solvent=solvent or spectrum.solvent,
-                    reference=reference, source=spectrum.source, warnings=tuple(warnings))
+                    reference=reference, source=spectrum.source, warnings=tuple(warnings),
+                    integral_unit=unit)
+
+
+def hydrogen_count(formula_or_smiles: str) -> int:
+    """Number of H atoms of a molecular formula ("C2H5ClO") or a SMILES string.
+
+    Deuterium (D) is not counted: it gives no 1H signal.
+    """
+    import re
+
+    text = formula_or_smiles.strip()
+    if re.fullmatch(r"(?:[A-Z][a-z]?\d*)+", text) and not re.search(r"[a-z]{2}|\(|=|#", text):
+        n = sum(int(c or 1) for c in re.findall(r"H(?![a-z])(\d*)", text))
+        if n:
+            return n
+    from ..structures.molecule import parse_structure
+
+    formula = parse_structure(text).formula
+    return sum(int(c or 1) for c in re.findall(r"H(?![a-z])(\d*)", formula))
+
+
+def scale_integrals(peaklist: PeakList, total_h: float | None = None, *,
+                    formula: str | None = None) -> PeakList:
+    """The peak list with 1H integrals in protons: the unflagged multiplets add up
+    to `total_h`, or to the H count of `formula` (a formula or a SMILES).
+
+    Used by the journal-style peak text for the candidate being shown. Integrals
+    that cannot be scaled (no compound multiplet with an integral) are returned as
+    they are.
+    """
+    from dataclasses import replace
+
+    if total_h is None and formula:
+        total_h = hydrogen_count(formula)
+    if total_h is None:
+        return peaklist
+    if not (np.isfinite(total_h) and 0 < total_h <= 10000):
+        raise SpecmatchError(f"the H count {total_h:g} should be a positive number of protons")
+    comp = [m for m in peaklist.multiplets if m.flag is None and m.integral is not None]
+    total = float(sum(m.integral for m in comp))
+    if not comp or total <= 0:
+        return peaklist
+    k = total_h / total
+    mults = tuple(replace(m, integral=round(m.integral * k, 3)) if m.integral is not None else m
+                  for m in peaklist.multiplets)
+    return replace(peaklist, multiplets=mults, integral_unit="H",
+                   warnings=tuple(w for w in peaklist.warnings if not w.startswith("integrals "))
+                   + (f"integrals scaled to {total_h:g} H for the unflagged multiplets",))
+
+
+def _line_area(y: np.ndarray, k: int, height: float, max_walk: int = 400) -> float:
+    """Area (in point units) of a Lorentzian line of this height and the half width
+    measured on its cleaner side (a side that meets a valley before half height
+    is not used); 0 when neither side reaches half height."""
+    half = 0.5 * height
+    widths = []
+    for step in (-1, 1):
+        j, prev = k, height
+        for _ in range(max_walk):
+            nxt = j + step
+            if nxt < 0 or nxt >= len(y):
+                break
+            v = float(y[nxt])
+            if v < half:
+                # interpolate the crossing between j and nxt
+                frac = (float(y[j]) - half) / max(float(y[j]) - v, 1e-300)
+                widths.append(abs(j - k) + frac)
+                break
+            if v > prev * 1.02:
+                break  # climbing again: a valley before half height
+            j, prev = nxt, v
+    if not widths:
+        return 0.0
+    return float(np.pi * height * min(widths))  # pi/2 x height x FWHM, FWHM = 2 x half width
 
 
 def _group(pos: np.ndarray, height: np.ndarray, flags: list[str | None], freq: float,
@@ -552,11 +887,16 @@ def _group(pos: np.ndarray, height: np.ndarray, flags: list[str | None], freq: f
     """Lines (ppm descending) into candidate multiplets: split at gaps > MAX_J_HZ and
     around lines already flagged as solvent or TMS."""
     groups: list[list[int]] = []
+    h = np.abs(height)
     for k in range(len(pos)):
         if groups:
             prev = groups[-1][-1]
             gap_hz = (pos[prev] - pos[k]) * freq
-            if gap_hz <= MAX_J_HZ and flags[prev] == flags[k]:
+            # Neighbouring lines of one first-order multiplet differ at most n-fold
+            # (binomial n:1 at the edge of an (n+1)-line pattern); a far bigger step
+            # is a weak signal beside a strong one.
+            step = max(h[prev], h[k]) / max(min(h[prev], h[k]), 1e-300)
+            if gap_hz <= MAX_J_HZ and flags[prev] == flags[k] and step <= MAX_NEIGHBOUR_RATIO:
                 groups[-1].append(k)
                 continue
         groups.append([k])

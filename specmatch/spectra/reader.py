@@ -10,27 +10,24 @@ from __future__ import annotations
 import tempfile
 from pathlib import Path
 
+from .. import safeio
 from ..errors import SpecmatchError
 from .model import PeakList, Spectrum
 
+#: largest total size a zip may expand to (its own bombs/entries checks in archive.py)
 MAX_FILE_BYTES = 256 * 1024 * 1024
+_ZIP_MAGIC = (b"PK\x03\x04", b"PK\x05\x06")
 
 
 def _load(path_or_bytes: str | Path | bytes, name: str | None) -> tuple[bytes, str]:
+    """File contents through the guarded reader: a zip under the archive limit,
+    anything else under the spectrum limit (``safeio.LIMITS``)."""
     if isinstance(path_or_bytes, (bytes, bytearray)):
         return bytes(path_or_bytes), name or "upload"
     p = Path(path_or_bytes)
-    if p.is_dir():
-        return b"", str(p)
-    try:
-        size = p.stat().st_size
-        if size > MAX_FILE_BYTES:
-            raise SpecmatchError(f"'{p}' is {size:,} bytes; spectrum files above {MAX_FILE_BYTES:,} are refused")
-        return p.read_bytes(), name or p.name
-    except FileNotFoundError:
-        raise SpecmatchError(f"cannot read '{p}': no such file") from None
-    except OSError as exc:
-        raise SpecmatchError(f"cannot read '{p}': {exc.strerror}") from None
+    head = safeio.read_head(p, 8, kind="archive")
+    kind = "archive" if head.startswith(_ZIP_MAGIC) else "spectrum"
+    return safeio.read_bytes(p, kind=kind), name or p.name
 
 
 def read_spectrum(path_or_bytes: str | Path | bytes, *, name: str | None = None,
@@ -85,7 +82,7 @@ def read_spectrum(path_or_bytes: str | Path | bytes, *, name: str | None = None,
         from .instrument import read_nmrpipe_bytes
 
         return _check_claim(read_nmrpipe_bytes(data, source=src, nucleus=nucleus), nucleus)
-    if b"\x00" in head:
+    if b"\x00" in head and safeio.text_encoding(head) is None:
         raise SpecmatchError(
             f"'{src}' is a binary file specmatch does not recognise; supported: JCAMP-DX (.jdx/.dx), "
             "a zip of the instrument folder, NMRPipe .ft, nmrML, CSV/TSV peak lists, x,y text")
@@ -166,8 +163,9 @@ def peaklist_to_dict(peaklist: PeakList) -> dict:
         ]
     if peaklist.experiment != "1D":
         out["experiment"] = peaklist.experiment
-    if peaklist.warnings:
-        out["warnings"] = list(peaklist.warnings)
+    if peaklist.integral_unit:
+        out["integral_unit"] = peaklist.integral_unit
+    out["warnings"] = list(peaklist.warnings)
     out["source"] = peaklist.source
     return out
 

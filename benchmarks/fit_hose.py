@@ -216,7 +216,7 @@ def corrected(signals, table, k, radius, scale=1.0):
             n, mean, sd = e
             w = n / (n + k)
             corr = w * mean + (1 - w) * corr
-            var = w * sd * sd + (1 - w) * var
+            var = w * (n * sd * sd + var) / (n + 1) + (1 - w) * var  # as HoseTable.correct
             depth = rad
         shifts.append(shift + corr)
         sigmas.append(var ** 0.5 * (scale if depth else 1.0))
@@ -334,13 +334,20 @@ def main() -> None:
     ap.add_argument("--k", default="1,2,4,8", help="shrinkage values to try")
     ap.add_argument("--radii", default="3,4,5", help="largest radii to try")
     ap.add_argument("--min-n", default="1,2", help="minimum counts to try")
+    ap.add_argument("--cache", help="pickle of the loaded records and out-of-fold increments (reused if present)")
     ap.add_argument("--no-oof-increments", action="store_true",
                     help="13C: use the shipped increments in every fold (faster, optimistic)")
     a = ap.parse_args()
     t0 = time.perf_counter()
     print(f"data: {a.data} (nmrshiftdb2, Kuhn & Schlörer, Magn. Reson. Chem. 2015, 53, 582)"
           f"{f', first {a.limit} records' if a.limit else ''}")
-    c13, h1 = load(a.data, a.limit)
+    import pickle
+
+    cached = None
+    if a.cache and os.path.exists(a.cache):
+        with open(a.cache, "rb") as fh:
+            cached = pickle.load(fh)
+    c13, h1 = cached["records"] if cached else load(a.data, a.limit)
     print(f"records: 13C {len(c13)}, 1H {len(h1)}; codes radius 1..{RADII}; {FOLDS} folds by InChIKey block "
           f"({time.perf_counter() - t0:.0f} s)", flush=True)
     grid = [(float(k), int(r), int(m)) for k in a.k.split(",") for r in a.radii.split(",")
@@ -349,7 +356,10 @@ def main() -> None:
     for nucleus, recs in (("13C", c13), ("1H", h1)):
         oof = None
         if nucleus == "13C" and not a.no_oof_increments:
-            oof = oof_increment_shifts(a.data, recs, a.limit)
+            oof = cached["oof"] if cached and cached.get("oof") else oof_increment_shifts(a.data, recs, a.limit)
+            if a.cache and not cached:
+                with open(a.cache, "wb") as fh:
+                    pickle.dump({"records": (c13, h1), "oof": oof}, fh)
         base, results = cross_validate(recs, nucleus, grid, oof)
         unit = "ppm"
         fmt = ".2f" if nucleus == "13C" else ".3f"

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 import json
-from typing import Any
+import sys
 
 from ..errors import SpecmatchError
 from ._common import _open_out, _print_json, _progress, _read_lines
@@ -15,26 +15,7 @@ def cmd_predict(args: argparse.Namespace) -> int:
     from ..reports.prediction_text import prediction_table
 
     if args.batch:
-        if not args.out:
-            raise SpecmatchError("--batch needs --out OUT.jsonl")
-        lines = _read_lines(args.batch)
-        with _open_out(args.out) as out, _progress(len(lines), "predict") as bar:
-            for line in lines:
-                smi = line.strip()
-                if not smi or smi.startswith("#"):
-                    row: dict[str, Any] = {"smiles": line, "ok": False, "error": "empty line"}
-                else:
-                    smi = smi.split()[0]
-                    try:
-                        row = predict(smi).to_dict()
-                        row["smiles"] = smi
-                    except SpecmatchError as exc:
-                        row = {"smiles": smi, "ok": False, "error": str(exc)}
-                    except Exception as exc:  # one bad molecule must not stop a batch
-                        row = {"smiles": smi, "ok": False, "error": f"internal error: {exc}"}
-                out.write(json.dumps(row) + "\n")
-                bar.update()
-        return 0
+        return _batch(args)
     if not args.smiles:
         raise SpecmatchError("give a SMILES, or --batch FILE --out OUT.jsonl")
     pred = predict(args.smiles)
@@ -45,6 +26,42 @@ def cmd_predict(args: argparse.Namespace) -> int:
     return 0
 
 
+def _batch(args: argparse.Namespace) -> int:
+    """Every line gets its row (in order); a one-line summary on stderr; exit 1 if any molecule failed."""
+    from ..prediction.batch import predict_rows
+
+    if not args.out:
+        raise SpecmatchError("--batch needs --out OUT.jsonl")
+    lines = _read_lines(args.batch)
+    n_ok = n_failed = n_skipped = 0
+    first_error = ""
+    with _open_out(args.out) as out, _progress(len(lines), "predict") as bar:
+        for k, row in enumerate(predict_rows(lines, args.workers), start=1):
+            out.write(json.dumps(row) + "\n")
+            if row["ok"]:
+                n_ok += 1
+            elif row.get("skipped"):
+                n_skipped += 1
+            else:
+                n_failed += 1
+                first_error = first_error or f"line {k}: {row['error']}"
+            bar.update()
+    summary = f"predict: {n_ok} predicted, {n_failed} failed, {n_skipped} blank/comment lines -> {args.out}"
+    if first_error:
+        summary += f" (first failure, {first_error})"
+    print(summary, file=sys.stderr)
+    return 1 if n_failed else 0
+
+
+def _workers(text: str) -> int | None:
+    if text == "auto":
+        return None
+    try:
+        return int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a number of processes or 'auto'") from None
+
+
 def register(sub: argparse._SubParsersAction) -> None:
     """Add this module's subcommands to the ``specmatch`` parser."""
     p = sub.add_parser("predict", help="predict 1H and 13C spectra of a structure")
@@ -52,6 +69,9 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--json", action="store_true", help="print JSON")
     p.add_argument("--batch", metavar="FILE", help="one SMILES per line")
     p.add_argument("--out", metavar="OUT.jsonl", help="with --batch: where to write results")
+    p.add_argument("--workers", type=_workers, default=None, metavar="N",
+                   help="with --batch: processes to use (default auto: one for small batches, "
+                        "up to 4 from 1,000 lines)")
     p.add_argument("--frequency", type=float, default=400.0, metavar="MHZ",
                    help="1H frequency for the peak text (default 400)")
     p.add_argument("--solvent", default="CDCl3", help="solvent named in the peak text")

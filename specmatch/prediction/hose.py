@@ -23,13 +23,14 @@ keep the wide increment sigma.
 
 from __future__ import annotations
 
-import csv
 import gzip
 import io
 import math
+import re
 from dataclasses import dataclass
 from functools import lru_cache
 from pathlib import Path
+from typing import NamedTuple
 
 from rdkit import Chem
 
@@ -126,9 +127,12 @@ def rank_tags(keys: list[int], shifts: list[float]) -> list[str]:
     return tags
 
 
-@dataclass(frozen=True)
-class HoseEntry:
-    """Residual statistics of one code: count, mean and standard deviation (ppm)."""
+class HoseEntry(NamedTuple):
+    """Residual statistics of one code: count, mean and standard deviation (ppm).
+
+    Built on lookup (:meth:`HoseTable.entry`), many times per molecule, so a named
+    tuple (fast to build) rather than a dataclass.
+    """
 
     n: int
     mean: float
@@ -141,8 +145,10 @@ class HoseTable:
 
     Attributes
     ----------
-    entries : dict
-        (radius, code) -> :class:`HoseEntry`.
+    rows : dict
+        ``'radius,"code"'`` -> ``"n,mean,sd"``, the file's own text: parsed on
+        lookup (:meth:`entry`), so reading 10^5 rows costs a regular-expression
+        pass instead of 10^5 conversions at start-up.
     shrink : float
         The k of the count shrinkage ``n / (n + k)``.
     max_radius : int
@@ -153,55 +159,63 @@ class HoseTable:
         What the table was fitted on and how (the file's header lines).
     """
 
-    entries: dict[tuple[int, str], HoseEntry]
+    rows: dict[str, str]
     shrink: float
     max_radius: int
     provenance: str
     sigma_scale: float = 1.0
+
+    def entry(self, radius: int, code: str) -> HoseEntry | None:
+        """Statistics of one code at one radius, or None if the code was not seen."""
+        v = self.rows.get(f'{radius},"{code}"')
+        if v is None:
+            return None
+        n, mean, sd = v.split(",")
+        return HoseEntry(int(n), float(mean), float(sd))
 
     def correct(self, codes: list[str], base_sigma: float) -> tuple[float, float, int]:
         """Correction (ppm), sigma (ppm) and the deepest radius found for one atom.
 
         Each radius's mean is shrunk toward the previous radius's corrected value,
         and its variance toward the previous variance (starting from the
-        increment sigma), by the code's count.
+        increment sigma), by the code's count; the code's spread is itself
+        regularised by one pseudo-observation of the previous variance.
         """
         corr = 0.0
         var = base_sigma * base_sigma
         depth = 0
         k = self.shrink
         for r, code in enumerate(codes[: self.max_radius], start=1):
-            e = self.entries.get((r, code))
+            e = self.entry(r, code)
             if e is None:
                 break
             w = e.n / (e.n + k)
             corr = w * e.mean + (1.0 - w) * corr
-            var = w * e.sd * e.sd + (1.0 - w) * var
+            # the code's own spread, itself shrunk toward the previous variance by one
+            # pseudo-observation (a code seen once has no spread of its own)
+            var = w * (e.n * e.sd * e.sd + var) / (e.n + 1) + (1.0 - w) * var
             depth = r
         return corr, math.sqrt(var) * (self.sigma_scale if depth else 1.0), depth
 
 
+_ROW = re.compile(r'^(\d+,"[^"]*"),(.*)$', re.M)
+
+
 def read_table(path: Path) -> HoseTable:
-    """Read a correction table (gzip CSV with ``#`` provenance lines)."""
-    entries: dict[tuple[int, str], HoseEntry] = {}
+    """Read a correction table (gzip CSV with ``#`` provenance lines, written by :func:`write_table`)."""
     head: list[str] = []
     shrink, max_radius, scale = 4.0, MAX_RADIUS, 1.0
     with gzip.open(path, "rt", encoding="utf-8", newline="") as fh:
-        lines = (line for line in fh)
-        for line in lines:
-            if not line.startswith("#"):
-                break
-            head.append(line[1:].strip())
-            if line.startswith("# shrink "):
-                shrink = float(line.split()[2])
-            elif line.startswith("# max_radius "):
-                max_radius = int(line.split()[2])
-            elif line.startswith("# sigma_scale "):
-                scale = float(line.split()[2])
-        for row in csv.reader(lines):
-            r, code, n, mean, sd = row
-            entries[(int(r), code)] = HoseEntry(int(n), float(mean), float(sd))
-    return HoseTable(entries, shrink, max_radius, "\n".join(head), scale)
+        text = fh.read()
+    for line in text[: text.find("\nradius,")].splitlines():
+        head.append(line[1:].strip())
+        if line.startswith("# shrink "):
+            shrink = float(line.split()[2])
+        elif line.startswith("# max_radius "):
+            max_radius = int(line.split()[2])
+        elif line.startswith("# sigma_scale "):
+            scale = float(line.split()[2])
+    return HoseTable(dict(_ROW.findall(text)), shrink, max_radius, "\n".join(head), scale)
 
 
 def write_table(path: Path, rows: list[tuple[int, str, int, float, float]], provenance: list[str],
@@ -212,10 +226,10 @@ def write_table(path: Path, rows: list[tuple[int, str, int, float, float]], prov
             for line in provenance:
                 fh.write(f"# {line}\n")
             fh.write(f"# shrink {shrink:g}\n# max_radius {max_radius}\n# sigma_scale {sigma_scale:.3f}\n")
-            w = csv.writer(fh, lineterminator="\n")
-            w.writerow(["radius", "code", "n", "mean_ppm", "sd_ppm"])
+            # codes are always quoted (they hold commas) and never contain quotes
+            fh.write("radius,code,n,mean_ppm,sd_ppm\n")
             for r, code, n, mean, sd in rows:
-                w.writerow([r, code, n, f"{mean:.3f}", f"{sd:.3f}"])
+                fh.write(f'{r},"{code}",{n},{mean:.3f},{sd:.3f}\n')
 
 
 @lru_cache(maxsize=4)

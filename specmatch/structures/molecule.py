@@ -129,7 +129,7 @@ def _check_size(mol: Chem.Mol, what: str, max_heavy_atoms: int) -> None:
             f"{what} has {len(Chem.GetMolFrags(mol))} disconnected parts; give one molecule "
             "(drop counter-ions and solvent)"
         )
-    odd = sorted({a.GetSymbol() for a in mol.GetAtoms()} - _ALLOWED)
+    odd = sorted({mol.GetAtomWithIdx(i).GetSymbol() for i in range(mol.GetNumAtoms())} - _ALLOWED)
     if odd:
         raise SpecmatchError(f"{what} contains {', '.join(odd)}, which specmatch does not handle")
 
@@ -197,6 +197,7 @@ def _fold_deuterium(mol: Chem.Mol, what: str) -> Chem.Mol:
     out = Chem.RemoveHs(mol, params)
     for old, n in counts.items():
         out.GetAtomWithIdx(new_index[old]).SetIntProp(DEUTERIUM_PROP, n)
+    out.SetIntProp(DEUTERIUM_PROP, sum(counts.values()))
     ranks = list(Chem.CanonicalRankAtoms(out, breakTies=False, includeChirality=False))
     seen: dict[int, int] = {}
     for a in out.GetAtoms():
@@ -211,7 +212,10 @@ def _fold_deuterium(mol: Chem.Mol, what: str) -> Chem.Mol:
 
 
 def deuterium_counts(mol: Chem.Mol) -> tuple[int, ...]:
-    """Per heavy atom, the number of its hydrogens that are D (see :func:`mol_from_text`)."""
+    """Per heavy atom, the number of its hydrogens that are D (see :func:`mol_from_text`);
+    ``()`` for a molecule without D."""
+    if not mol.HasProp(DEUTERIUM_PROP):
+        return ()
     return tuple(a.GetIntProp(DEUTERIUM_PROP) if a.HasProp(DEUTERIUM_PROP) else 0 for a in mol.GetAtoms())
 
 
@@ -250,14 +254,18 @@ def mol_from_text(text: str, *, max_heavy_atoms: int = MAX_HEAVY_ATOMS) -> Chem.
         mol = Chem.MolFromSmiles(stripped)
         if mol is None:
             raise SpecmatchError(f"{what} is not a valid SMILES ({_smiles_problem(stripped)})")
-    numbers = {a.GetAtomicNum() for a in mol.GetAtoms()}  # one pass over the atoms
+    # one pass over the atoms, by index (RDKit's atom sequence wrapper is slow for small molecules)
+    numbers = {mol.GetAtomWithIdx(i).GetAtomicNum() for i in range(mol.GetNumAtoms())}
     if 0 in numbers:
         raise SpecmatchError(f"{what} contains a wildcard atom '*'; give a complete structure")
     if 1 in numbers:
         mol = Chem.RemoveHs(mol)  # keeps isotope-labelled H, folded next
-    if any(a.GetIsotope() for a in mol.GetAtoms()):
-        mol = _fold_deuterium(mol, what)
-    _check_species(mol, what)
+    # isotopes, charges and radicals need a bracket atom in a SMILES: skip the atom
+    # loops for the common plain SMILES
+    if what == "the molfile" or "[" in stripped:
+        if any(mol.GetAtomWithIdx(i).GetIsotope() for i in range(mol.GetNumAtoms())):
+            mol = _fold_deuterium(mol, what)
+        _check_species(mol, what)
     _check_size(mol, what if what != "the molfile" else "the molfile", max_heavy_atoms)
     return mol
 

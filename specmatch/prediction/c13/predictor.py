@@ -53,6 +53,25 @@ def _class_sigma(kind: str, hydrogens: int, coverage: str) -> float:
     return NO_CLASS_SIGMA_PPM
 
 
+#: term -> (value added, support counted or None, missing main term?, unseen correction?),
+#: filled on first use: the same few thousand names recur in every molecule
+_TERM_INFO: dict[str, tuple[float, int | None, bool, bool]] = {}
+
+
+def _term_info(t: str) -> tuple[float, int | None, bool, bool]:
+    v = _VALUE.get(t)
+    corr = is_correction(t)
+    if v is not None:
+        info = (v, None if corr else _SUPPORT[t], False, False)
+    elif corr:
+        info = (0.0, None, False, True)
+    else:
+        alt = nearest_term(t)
+        info = (_VALUE.get(alt, 0.0) if alt else 0.0, 0, True, False)
+    _TERM_INFO[t] = info
+    return info
+
+
 def shift_of_terms(terms: tuple[str, ...]) -> tuple[float, int, list[str], int]:
     """Sum of the increments.
 
@@ -67,24 +86,17 @@ def shift_of_terms(terms: tuple[str, ...]) -> tuple[float, int, list[str], int]:
     min_support = 1 << 30
     missing = []
     unseen = 0
+    get = _TERM_INFO.get
     for t in terms:
-        v = _VALUE.get(t)
-        if v is None:
-            if is_correction(t):
-                unseen += 1
-                continue
-            alt = nearest_term(t)
-            v = _VALUE.get(alt) if alt else None
+        info = get(t) or _term_info(t)
+        total += info[0]
+        s = info[1]
+        if s is not None and s < min_support:
+            min_support = s
+        if info[2]:
             missing.append(t)
-            min_support = 0
-            if v is not None:
-                total += v
-            continue
-        total += v
-        if not is_correction(t):
-            s = _SUPPORT[t]
-            if s < min_support:
-                min_support = s
+        elif info[3]:
+            unseen += 1
     return total, min_support, missing, unseen
 
 
@@ -156,6 +168,7 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
             sets.extend(tuple(v) for v in by_terms.values())
         sets.sort()
     out: list[CarbonShift] = []
+    kinds: list[str] = []  # table class of each entry of out
     warnings: list[str] = []
     for atoms in sets:
         env = envs[atoms[0]]
@@ -179,15 +192,17 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
             for sub, sign in zip(parts, (1.0, -1.0)):
                 out.append(CarbonShift(sub, shift + sign * half, sigma, env.hydrogens,
                                        env.label + ", diastereotopic", fallback))
+                kinds.append(env.kind)
         else:
             out.append(CarbonShift(atoms, shift, sigma, env.hydrogens, env.label, fallback))
+            kinds.append(env.kind)
     table = load_table("13C") if correction else None
     if table is not None and out:
         codes = codes or MolCodes(mol)
         cls = structure.symmetry_classes
         tags = rank_tags([cls[c.atoms[0]] for c in out], [c.shift for c in out])
         for k, (c, tag) in enumerate(zip(out, tags)):
-            if envs[c.atoms[0]].kind == "other":
+            if kinds[k] == "other":
                 continue
             corr, sigma, depth = table.correct([x + tag for x in codes.codes(c.atoms[0], table.max_radius)],
                                                c.sigma)

@@ -87,8 +87,8 @@ class _Graph:
         # nh: protons seen in 1H (D excluded: no signal, no resolved coupling); nh_total: H + D,
         # which decides the increment class (a CHD2 group is typed as a methyl)
         self.nh_total = [a.GetTotalNumHs() for a in atoms]
-        self.nh = [h - (a.GetIntProp(DEUTERIUM_PROP) if a.HasProp(DEUTERIUM_PROP) else 0)
-                   for h, a in zip(self.nh_total, atoms)]
+        self.nh = self.nh_total if not mol.HasProp(DEUTERIUM_PROP) else [
+            h - (a.GetIntProp(DEUTERIUM_PROP) if a.HasProp(DEUTERIUM_PROP) else 0) for h, a in zip(self.nh_total, atoms)]
         self.arom = [a.GetIsAromatic() for a in atoms]
         self.nbrs: list[list[tuple[int, float]]] = [[] for _ in range(n)]
         for k in range(mol.GetNumBonds()):

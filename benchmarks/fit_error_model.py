@@ -199,12 +199,195 @@ def _simplex(x0, steps):
     return np.array(pts)
 
 
+# ------------------------------------------------------ pure/mixture hypotheses
+#: true major fractions of the mixed 1H tasks (peak-list integrals)
+MIX_FRACTIONS = (0.95, 0.9, 0.8, 0.7, 0.6, 0.5)
+#: multiplets of two compounds closer than this (ppm) merge into one observed multiplet;
+#: 13C lines closer than 0.05 ppm are one line (the resolution of the task builder)
+H1_MERGE_PPM = 0.01
+C13_MERGE_PPM = 0.05
+
+
+def connectivity_block(inchikey: str) -> str:
+    return inchikey.split("-")[0]
+
+
+def block_held_back(block: str) -> bool:
+    """The held-back half, by the InChIKey connectivity block (stereoisomers stay together)."""
+    return hashlib.sha256(block.encode()).digest()[0] % 2 == 1
+
+
+def record_index(dev: Path) -> dict[str, dict]:
+    """Canonical SMILES (no stereo) -> the record's distinct 13C lines, 1H groups, block."""
+    import isomer_tasks
+    from rdkit import Chem
+
+    out: dict[str, dict] = {}
+    for line in open(dev):
+        d = json.loads(line)
+        m = Chem.MolFromSmiles(d["smiles"])
+        if m is None:
+            continue
+        key = Chem.MolToSmiles(m, isomericSmiles=False)
+        if key in out:
+            continue
+        n_h = sum(a.GetTotalNumHs() for a in m.GetAtoms())
+        h1 = max(d["h1"], key=len) if d["h1"] else []
+        out[key] = {"c13": isomer_tasks.distinct_shifts(max(d["c13"], key=len)) if d["c13"] else [],
+                    "h1": isomer_tasks.h1_groups(h1) if h1 and len(h1) >= n_h - 1 else [],
+                    "block": connectivity_block(d["inchikey"])}
+    return out
+
+
+def _merge_lines(a: list[float], b: list[float]) -> list[float]:
+    out = list(a)
+    for s in b:
+        if not any(abs(s - o) <= C13_MERGE_PPM for o in out):
+            out.append(s)
+    return sorted(out)
+
+
+def _merge_multiplets(a: list[dict], fa: float, b: list[dict], fb: float) -> list[dict]:
+    rows = sorted([(m["shift"], m["integral"] * fa) for m in a] + [(m["shift"], m["integral"] * fb) for m in b])
+    out: list[list[float]] = []
+    for s, i in rows:
+        if out and s - out[-1][0] <= H1_MERGE_PPM:
+            w = out[-1][1] + i
+            out[-1][0] = (out[-1][0] * out[-1][1] + s * i) / w if w > 0 else s
+            out[-1][1] = w
+        else:
+            out.append([s, i])
+    return [{"shift": round(s, 4), "integral": round(i, 4)} for s, i in out]
+
+
+def hypothesis_tasks(sets: dict[str, list[dict]], index: dict[str, dict], limit: int = 0) -> dict[str, list[dict]]:
+    """Pure and two-component tasks for the hypothesis model, from the isomer-set tasks.
+
+    Pure: the 13C sets (regio, regio_wide) and 1H sets (regio_h1, wide_h1) as they
+    are. Mixed: for each pure task, one other candidate B of the same set that has
+    its own experimental spectrum in the development part (the first by a hash of
+    the task id); 13C: the lines of A and B together; 1H: the multiplets of A and B
+    with integrals scaled by a major fraction from MIX_FRACTIONS (A major), merged
+    within H1_MERGE_PPM. Each task gets a half by the connectivity block of A; a
+    mixture whose components fall in different halves is dropped.
+    """
+    from rdkit import Chem
+
+    out: dict[str, list[dict]] = {}
+    for nucleus, names in (("13C", ("regio", "regio_wide")), ("1H", ("regio_h1", "wide_h1"))):
+        pure, mixed = [], []
+        seen = set()
+        for name in names:
+            for t in sets[name]:
+                truth = Chem.MolToSmiles(Chem.MolFromSmiles(t["truth"]), isomericSmiles=False)
+                if truth not in index or (truth, tuple(t["candidates"])) in seen:
+                    continue
+                seen.add((truth, tuple(t["candidates"])))
+                ra = index[truth]
+                half = "held_back" if block_held_back(ra["block"]) else "fit"
+                pure.append({**t, "truth_components": [truth], "half": half})
+                key = "c13" if nucleus == "13C" else "h1"
+                others = [c for c in t["candidates"] if c != truth and index.get(c, {}).get(key)
+                          and block_held_back(index[c]["block"]) == (half == "held_back")]
+                if not others:
+                    continue
+                h = int(hashlib.sha256(f"{t['id']}:{truth}".encode()).hexdigest(), 16)
+                b = sorted(others)[h % len(others)]
+                if nucleus == "13C":
+                    mixed.append({**t, "id": f"{t['id']}+{b}", "c13": _merge_lines(ra["c13"], index[b]["c13"]),
+                                  "truth_components": [truth, b], "truth_fractions": None, "half": half})
+                else:
+                    fa = MIX_FRACTIONS[(h >> 8) % len(MIX_FRACTIONS)]
+                    mixed.append({**t, "id": f"{t['id']}+{b}", "c13": [],
+                                  "h1": _merge_multiplets(ra["h1"], fa, index[b]["h1"], 1.0 - fa),
+                                  "truth_components": [truth, b], "truth_fractions": [fa, 1.0 - fa],
+                                  "half": half})
+        if limit:
+            pure, mixed = pure[:limit], mixed[:limit]
+        out[f"pure_{nucleus}"], out[f"mixed_{nucleus}"] = pure, mixed
+    return out
+
+
+class HypothesisScorer:
+    """Hypothesis log-likelihoods of a task set, computed once; the priors are applied
+    afterwards (they are what the fit changes)."""
+
+    def __init__(self, tasks: list[dict], model: ErrorModel):
+        from specmatch.identification.hypotheses import score_hypotheses
+
+        self.items = []
+        for t in tasks:
+            try:
+                prep = [(prepare if t.get("h1") else prepare_c13)(c) for c in t["candidates"]]
+            except SpecmatchError:
+                continue
+            canon = [p.prediction.canonical_smiles for p in prep]
+            truth = frozenset(t["truth_components"])
+            if not truth <= set(canon):
+                continue
+            oc, oh = observed_c13(t["c13"]), observed_h1(t.get("h1", []))
+            lc, lh = log_likelihoods(prep, oc, oh, model)
+            raw = score_hypotheses(prep, combined_score(lc, lh, model), None, oc, oh, model)
+            comps = [frozenset(canon[i] for i in h.members) for h in raw]
+            self.items.append((np.array([h.log_likelihood for h in raw]),
+                               np.array([len(h.members) for h in raw]), comps, truth, len(prep), t))
+
+    def outcomes(self, prior_mixture: float) -> list[dict]:
+        """Per task: posterior of the truth, the verdict kind and components, top probability."""
+        out = []
+        for ll, k, comps, truth, n, t in self.items:
+            n_pairs = max(1, int((k == 2).sum()))
+            lp = np.where(k == 1, math.log((1 - prior_mixture) / n), math.log(prior_mixture / n_pairs))
+            post = softmax(ll + lp)
+            order = np.argsort(-post)
+            q1, q2 = post[order[0]], post[order[1]] if post.size > 1 else 0.0
+            top = comps[order[0]]
+            decided = q1 >= 0.8 or q2 <= 0 or q1 / q2 >= 3.0
+            kind = ("pure" if len(top) == 1 else "mixture") if decided else "undecided"
+            out.append({"p_truth": float(sum(p for p, c in zip(post, comps) if c == truth)),
+                        "kind": kind, "top": top, "q1": float(q1), "right": top == truth, "truth": truth})
+        return out
+
+
+def hypothesis_figures(pure: list[dict], mixed: list[dict]) -> dict[str, float]:
+    """The figures of bench_rank: pure called pure and right, mixtures named, pure called
+    mixtures, calibration error of the top hypothesis (10 bins, pure and mixed together)."""
+    f = {"n_pure": len(pure), "n_mixed": len(mixed)}
+    f["pure_called_pure_right"] = float(np.mean([o["kind"] == "pure" and o["right"] for o in pure])) if pure else float("nan")
+    f["pure_called_mixture"] = float(np.mean([o["kind"] == "mixture" for o in pure])) if pure else float("nan")
+    f["mixed_named"] = float(np.mean([o["kind"] == "mixture" and o["right"] for o in mixed])) if mixed else float("nan")
+    allo = pure + mixed
+    bins = [[0, 0.0, 0] for _ in range(10)]
+    for o in allo:
+        b = min(9, int(o["q1"] * 10))
+        bins[b][0] += 1; bins[b][1] += o["q1"]; bins[b][2] += o["right"]
+    f["ece"] = sum(abs(c[1] - c[2]) for c in bins) / max(1, len(allo))
+    f["mean_log_p_truth"] = float(np.mean([math.log(max(o["p_truth"], 1e-300)) for o in allo])) if allo else float("nan")
+    return f
+
+
+def fit_hypotheses(scorers: dict[str, HypothesisScorer]) -> float:
+    """prior_mixture maximising the mean log posterior of the true hypothesis over the
+    fit-half task sets (pure and mixed sets, 13C and 1H, weighted equally)."""
+    def objective(logit):
+        pm = 1.0 / (1.0 + math.exp(-logit))
+        vals = [np.mean([math.log(max(o["p_truth"], 1e-300)) for o in sc.outcomes(pm)])
+                for sc in scorers.values() if sc.items]
+        return -float(np.mean(vals))
+
+    r = optimize.minimize_scalar(objective, bounds=(-6.0, 2.0), method="bounded", options={"xatol": 0.01})
+    return float(1.0 / (1.0 + math.exp(-r.x)))
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--dev", default=str(SHARED / "reference" / "nmrshiftdb2_dev.jsonl"))
     ap.add_argument("--tasks", default=os.path.join(tempfile.gettempdir(), "specmatch_fit_tasks"))
     ap.add_argument("--dry-run", action="store_true", help="print, do not write the TOML")
     ap.add_argument("--max-iter", type=int, default=60)
+    ap.add_argument("--hypotheses-only", action="store_true",
+                    help="keep the shipped error model, refit only the pure/mixture prior")
+    ap.add_argument("--limit", type=int, default=0, help="cap each hypothesis task set (quick runs)")
     a = ap.parse_args()
     t0 = time.perf_counter()
     dev, tdir = Path(a.dev), Path(a.tasks)
@@ -221,6 +404,44 @@ def main() -> None:
     tables_version = predict("CCO").tables_version
     print("prediction tables:", tables_version)
 
+    if a.hypotheses_only:
+        model = load_error_model()
+        calib = dict(model.calibration)
+        n_c = n_h = n_rec = 0
+        n_tasks = {}
+    else:
+        model, calib, (n_c, n_h, n_rec), n_tasks = fit_error_model(a, dev, split, base)
+
+    # 4. pure/mixture hypotheses: the prior of a mixture
+    print("pure/mixture hypotheses:")
+    index = record_index(dev)
+    htasks = hypothesis_tasks(sets, index, a.limit)
+    hs = {(k, half): HypothesisScorer([t for t in v if t["half"] == half], model)
+          for k, v in htasks.items() for half in ("fit", "held_back")}
+    pm = fit_hypotheses({k: sc for (k, half), sc in hs.items() if half == "fit"})
+    model = model.with_params(hypotheses_prior_mixture=pm)
+    print(f"   prior_mixture = {pm:.4f} (bounded search on the fit half; task sets "
+          f"{ {k: len(sc.items) for (k, half), sc in hs.items() if half == 'fit'} })")
+    for nucleus in ("13C", "1H"):
+        for half in ("fit", "held_back"):
+            f = hypothesis_figures(hs[(f"pure_{nucleus}", half)].outcomes(pm), hs[(f"mixed_{nucleus}", half)].outcomes(pm))
+            calib[f"hypotheses_{nucleus}_{half}"] = {kk: round(v, 4) for kk, v in f.items()}
+            print(f"   {nucleus} {half:9s} " + ", ".join(f"{kk}={v:.3f}" if isinstance(v, float) else f"{kk}={v}"
+                                                    for kk, v in f.items()))
+    today = dt.date.today().isoformat()
+    text = render_toml(model, tables_version, today, calib, n_c=n_c, n_h=n_h, n_rec=n_rec, n_tasks=n_tasks,
+                       n_hyp={k: len(sc.items) for (k, half), sc in hs.items() if half == "fit"},
+                       keep_header=a.hypotheses_only)
+    print(f"elapsed {time.perf_counter() - t0:.0f} s")
+    if a.dry_run:
+        print(text)
+    else:
+        OUT.write_text(text, encoding="utf-8")
+        print("written", OUT)
+
+
+def fit_error_model(a, dev, split, base):
+    """Steps 1-3: residual distributions, penalties and temperatures, calibration figures."""
     # 1. residuals of the true structures (fit half)
     fit_ids = {t["id"] for k in SETS for t in split[k][0]}
     zc, zh = residuals(dev, fit_ids)
@@ -275,22 +496,17 @@ def main() -> None:
             calib[f"{k}_{half}"] = {kk: round(v, 4) for kk, v in f.items()}
             print(f"{k:10s} {half:9s} n={f['n']:4d} top1={f['top1']:.3f} ece={f['ece']:.3f} "
                   f"mean log p(true)={f['mean_log_p_true']:.3f}")
-    today = dt.date.today().isoformat()
-    text = render_toml(model, tables_version, today, calib,
-                       n_c=int(allc.size), n_h=int(zh.size), n_rec=len(fit_ids),
-                       n_tasks={k: len(split[k][0]) for k in SETS})
-    print(f"elapsed {time.perf_counter() - t0:.0f} s")
-    if a.dry_run:
-        print(text)
-    else:
-        OUT.write_text(text, encoding="utf-8")
-        print("written", OUT)
+    return model, calib, (int(allc.size), int(zh.size), len(fit_ids)), {k: len(split[k][0]) for k in SETS}
 
 
 def render_toml(m: ErrorModel, tables_version: str, date: str, calib: dict, *, n_c: int, n_h: int,
-                n_rec: int, n_tasks: dict) -> str:
+                n_rec: int, n_tasks: dict, n_hyp: dict, keep_header: bool = False) -> str:
     c, h = m.c13, m.h1
     f = lambda x: f"{x:.4g}"
+    if keep_header:  # only the hypothesis prior was refitted: keep the error model's own notes
+        old = OUT.read_text(encoding="utf-8").splitlines()
+        head = old[:next(i for i, l in enumerate(old) if l.startswith("[meta]"))]
+        n_c, n_h, n_rec, n_tasks = None, None, None, None
     lines = [
         "# Error model for specmatch identification (Student-t per nucleus, DP4-style:",
         "# Smith & Goodman, J. Am. Chem. Soc. 2010, 132, 12946). Written by benchmarks/fit_error_model.py.",
@@ -307,6 +523,16 @@ def render_toml(m: ErrorModel, tables_version: str, date: str, calib: dict, *, n
         "#   + log(200 ppm / 10 ppm) (same impurity rate per line, narrower window; too few 1H tasks to fit).",
         "# Not fitted (common practice, the task data has complete spectra): missing_*, unresolved_logp,",
         "#   dept_mismatch_logp, sigma_floor_ppm, exchangeable_*, multiplicity_mismatch_logp, j_sigma_hz.",
+    ]
+    if keep_header:
+        cut = next((i for i, l in enumerate(head) if l.startswith("# Hypotheses:")), len(head))
+        lines = head[:cut]
+        while lines and not lines[-1].strip():
+            lines.pop()
+    lines += [
+        "# Hypotheses: prior_mixture maximises the mean log posterior of the true hypothesis (bounded",
+        f"#   hypothesis search) over pure and two-component fit-half tasks {n_hyp} (sets weighted",
+        "#   equally; halves by InChIKey connectivity block); prior_three is not fitted (common practice).",
         "",
         "[meta]",
         f'version = "fit-{date}"',
@@ -329,6 +555,9 @@ def render_toml(m: ErrorModel, tables_version: str, date: str, calib: dict, *, n
         f"exchangeable_sigma_ppm = {f(h.exchangeable_sigma_ppm)}",
         f"exchangeable_missing_logp = {f(h.exchangeable_missing_logp)}",
         f"multiplicity_mismatch_logp = {f(h.multiplicity_mismatch_logp)}", f"j_sigma_hz = {f(h.j_sigma_hz)}",
+        "",
+        "[hypotheses]",
+        f"prior_mixture = {f(m.hypotheses.prior_mixture)}", f"prior_three = {f(m.hypotheses.prior_three)}",
         "",
         "# top-1 accuracy, calibration error of the top-1 probability (10 bins) and mean log p(true),",
         "# per task set, on the fit half and on the held-back half",

@@ -75,7 +75,10 @@ def test_cli_rank_batch_end_to_end(tmp_path):
     out = tmp_path / "res.jsonl"
     p = subprocess.run([sys.executable, "-m", "specmatch", "rank", "--batch", str(src), "--out", str(out)],
                        capture_output=True, text=True, timeout=300)
-    assert p.returncode == 0, p.stderr
+    # one task failed: every line is written, a one-line summary on stderr, exit 1
+    assert p.returncode == 1, p.stderr
+    assert p.stderr.strip().splitlines() == [p.stderr.strip()] and "1 failed" in p.stderr
+    assert "Traceback" not in p.stderr
     rows = [json.loads(l) for l in out.read_text().splitlines()]
     assert [r["id"] for r in rows] == ["a", "bad-smiles", "b"]
     _check_ranking(rows[0], GOOD)

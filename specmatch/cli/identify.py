@@ -4,21 +4,28 @@ from __future__ import annotations
 
 import argparse
 
-from ._common import _print_json, _read_lines
+from ..errors import SpecmatchError
+from ._common import _print_json
 
 
 def cmd_identify(args: argparse.Namespace) -> int:
     from ..identification import identify
+    from ..identification.candidates import read_candidates
     from ..reports.result_text import result_text
 
+    if not (args.substrate or args.reagent) and not args.candidates:
+        raise SpecmatchError("give the reaction (--substrate and --reagent), your own candidate list "
+                             "(--candidates FILE), or both")
+    if bool(args.substrate) != bool(args.reagent):
+        raise SpecmatchError("give both --substrate and --reagent, or neither (with --candidates FILE)")
     extra: list[str] = []
     if args.candidates:
-        extra = [ln.split()[0] for ln in _read_lines(args.candidates)
-                 if ln.strip() and not ln.lstrip().startswith("#")]
+        extra = [c.smiles for c in read_candidates(args.candidates)]
     result = identify(
         substrate=args.substrate, reagent=args.reagent, alcohol=args.alcohol,
         c13=args.c13, h1=args.h1, dept135=args.dept135, solvent=args.solvent,
         candidates=extra, mixture=args.mixture, use_prior=not args.no_prior,
+        max_components=args.max_components,
     )
     if args.report:
         from ..reports.html import write_report
@@ -56,16 +63,24 @@ def cmd_mixture(args: argparse.Namespace) -> int:
 
 def register(sub: argparse._SubParsersAction) -> None:
     """Add this module's subcommands to the ``specmatch`` parser."""
-    p = sub.add_parser("identify", help="the whole job: reaction + spectra -> verdict")
-    p.add_argument("--substrate", required=True, metavar="SMILES")
-    p.add_argument("--reagent", required=True, metavar="TEXT")
+    p = sub.add_parser(
+        "identify", help="the whole job: reaction (or your candidate list) + spectra -> verdict",
+        description="Which product, pure or a mixture? Candidates come from the reaction "
+                    "(--substrate and --reagent), from your own list (--candidates FILE: one SMILES "
+                    "per line, optionally followed by a name; '#' starts a comment at the start of a "
+                    "line or after a space), or both.")
+    p.add_argument("--substrate", metavar="SMILES")
+    p.add_argument("--reagent", metavar="TEXT")
     p.add_argument("--alcohol", metavar="SMILES")
     p.add_argument("--c13", metavar="FILE")
     p.add_argument("--h1", metavar="FILE")
     p.add_argument("--dept135", metavar="FILE")
     p.add_argument("--solvent", metavar="NAME")
-    p.add_argument("--candidates", metavar="FILE", help="extra candidate SMILES, one per line")
+    p.add_argument("--candidates", metavar="FILE",
+                   help="candidate SMILES, one per line (added to the reaction's, or alone)")
     p.add_argument("--mixture", action="store_true", help="also estimate the product ratio from 1H")
+    p.add_argument("--max-components", type=int, choices=(1, 2, 3), default=2,
+                   help="largest mixture considered (default 2; 1: assume a pure sample)")
     p.add_argument("--no-prior", action="store_true", help="verdict from the spectra alone")
     p.add_argument("--report", metavar="OUT.html", help="write a self-contained HTML report")
     p.add_argument("--save", action="store_true", help="save the analysis (inputs, files, verdict) in the store")

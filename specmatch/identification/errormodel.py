@@ -22,7 +22,7 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["ErrorModel", "NucleusModel", "load_error_model", "t_logpdf", "tables_digest"]
+__all__ = ["ErrorModel", "HypothesisModel", "NucleusModel", "load_error_model", "t_logpdf", "tables_digest"]
 
 
 def _t_const(df: float) -> float:
@@ -101,6 +101,23 @@ class NucleusModel:
 
 
 @dataclass(frozen=True)
+class HypothesisModel:
+    """Priors of the pure/mixture hypotheses (see :mod:`.hypotheses`).
+
+    Attributes
+    ----------
+    prior_mixture : float
+        Prior probability that a sample is a two-component mixture (the Occam
+        factor of the second component).
+    prior_three : float
+        Prior probability of a three-component mixture (used only when asked).
+    """
+
+    prior_mixture: float = 0.2
+    prior_three: float = 0.02
+
+
+@dataclass(frozen=True)
 class ErrorModel:
     """Both nuclei plus where the numbers came from."""
 
@@ -111,14 +128,17 @@ class ErrorModel:
     tables_version: str = ""
     tables_sha256: str = ""  # digest of the prediction tables the model was fitted with
     calibration: dict[str, Any] = field(default_factory=dict, compare=False)
+    hypotheses: HypothesisModel = field(default_factory=HypothesisModel)
 
     def with_params(self, **kw: Any) -> "ErrorModel":
-        """A copy with some parameters changed, e.g. ``c13_df=3`` or ``h1_temperature=2``."""
-        c, h = {}, {}
+        """A copy with some parameters changed, e.g. ``c13_df=3``, ``h1_temperature=2`` or
+        ``hypotheses_prior_mixture=0.1``."""
+        c, h, hy = {}, {}, {}
         for k, v in kw.items():
             nuc, _, name = k.partition("_")
-            (c if nuc == "c13" else h)[name] = v
-        return replace(self, c13=replace(self.c13, **c), h1=replace(self.h1, **h))
+            {"c13": c, "h1": h, "hypotheses": hy}[nuc][name] = v
+        return replace(self, c13=replace(self.c13, **c), h1=replace(self.h1, **h),
+                       hypotheses=replace(self.hypotheses, **hy))
 
 
 def _nucleus(d: dict[str, Any]) -> NucleusModel:
@@ -141,6 +161,8 @@ def load_error_model() -> ErrorModel:
         tables_version=str(meta.get("tables_version", "")),
         tables_sha256=str(meta.get("tables_sha256", "")),
         calibration=d.get("calibration", {}),
+        hypotheses=HypothesisModel(**{k: float(v) for k, v in d.get("hypotheses", {}).items()
+                                      if k in HypothesisModel.__dataclass_fields__}),
     )
 
 

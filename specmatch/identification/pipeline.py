@@ -9,13 +9,15 @@ from __future__ import annotations
 
 import hashlib
 import os
-from importlib import import_module
+from dataclasses import replace
 from typing import Any, Sequence
 
 from .. import __version__
 from ..errors import SpecmatchError
+from ..spectra.model import Peak, PeakList
 from .errormodel import ErrorModel, load_error_model
-from .ranking import rank
+from .mixture import MixtureEstimate, estimate_mixture
+from .ranking import Ranking, rank
 from .result import Result
 
 __all__ = ["identify", "merge_dept", "sha256_file"]
@@ -115,9 +117,29 @@ def merge_dept(c13: Any, dept: Any, tol_ppm: float = DEPT_MATCH_PPM) -> list[dic
     return out
 
 
+def _c13_peaklist(c13: Any, source: str) -> PeakList | None:
+    """A 13C PeakList from a PeakList or a list of ppm values / line dicts (API input)."""
+    if c13 is None or isinstance(c13, PeakList):
+        return c13
+    peaks = []
+    for p in c13:
+        if isinstance(p, Peak):
+            peaks.append(p)
+        elif isinstance(p, dict):
+            if "shift" not in p:
+                raise SpecmatchError("a 13C line given as a dict needs a 'shift' (ppm)")
+            peaks.append(Peak(float(p["shift"]), p.get("intensity"), None, p.get("hydrogens"), p.get("sign")))
+        else:
+            try:
+                peaks.append(Peak(float(p)))
+            except (TypeError, ValueError):
+                raise SpecmatchError(f"13C line {p!r} is not a number (ppm)") from None
+    return PeakList(nucleus="13C", peaks=tuple(peaks), source=source)
+
+
 def _h1_peaklist(h1: Any):
     """A 1H PeakList for the mixture module, from a PeakList or a list of multiplet dicts."""
-    from ..spectra import Multiplet, PeakList
+    from ..spectra import Multiplet
 
     if h1 is None or isinstance(h1, PeakList):
         return h1
@@ -127,10 +149,32 @@ def _h1_peaklist(h1: Any):
             mults.append(m)
             continue
         d = m if isinstance(m, dict) else {"shift": m}
+        if "shift" not in d:
+            raise SpecmatchError("a 1H multiplet given as a dict needs a 'shift' (ppm)")
         sh = float(d["shift"])
         mults.append(Multiplet(shift=sh, range=(sh + 0.02, sh - 0.02), integral=d.get("integral"),
                                multiplicity=d.get("multiplicity") or "m", j_hz=tuple(d.get("j_hz") or ())))
     return PeakList(nucleus="1H", peaks=(), multiplets=tuple(mults), source="peak list given to identify")
+
+
+#: a component at or above this mole fraction in the 1H ratio counts as present
+PRESENT_FRACTION = 0.02
+
+
+def reconcile(ranking: Ranking, mix: MixtureEstimate) -> Ranking:
+    """Make the verdict agree with the 1H ratio.
+
+    The ratio is the quantitative measurement; the hypotheses only say which
+    account of the sample is most probable. When the best hypothesis is a
+    mixture, its fractions are replaced by the ratio's (renormalised over its
+    components). When the ratio finds a second candidate at PRESENT_FRACTION or
+    more while the verdict says "pure", the verdict names the mixture the ratio
+    measured (with the probability of the best mixture hypothesis made of those
+    components), so a candidate at >0 in the ratio is never called absent.
+    """
+    from .ranking import reconciled_verdict
+
+    return replace(ranking, verdict=reconciled_verdict(ranking, mix, PRESENT_FRACTION))
 
 
 def _candidate_smiles(text: str) -> str:
@@ -142,7 +186,7 @@ def _candidate_smiles(text: str) -> str:
 def identify(substrate: str | None = None, reagent: str | None = None, *, alcohol: str | None = None,
              c13: Any = None, h1: Any = None, dept135: Any = None, solvent: str | None = None,
              candidates: Sequence[str] = (), mixture: bool = False, use_prior: bool = True,
-             max_shifts: int = 2, model: ErrorModel | None = None) -> Result:
+             max_shifts: int = 2, max_components: int = 2, model: ErrorModel | None = None) -> Result:
     """Which isomer was made? Enumerate, read, predict, rank.
 
     Parameters
@@ -161,10 +205,13 @@ def identify(substrate: str | None = None, reagent: str | None = None, *, alcoho
     candidates : sequence of str
         The chemist's own candidate SMILES, added to the enumerated ones.
     mixture : bool
-        Also estimate the product ratio from the 1H spectrum (hook: needs
-        ``specmatch.identification.mixture``).
+        Also estimate the product ratio from the 1H spectrum.
     use_prior : bool
         Base the verdict on the with-prior probability (default) or the spectra alone.
+    max_shifts : int
+        Longest chain of 1,2-shifts the enumeration follows.
+    max_components : int
+        Largest mixture scored as a hypothesis (1: pure samples only, 2, or 3).
 
     Returns
     -------
@@ -185,9 +232,10 @@ def identify(substrate: str | None = None, reagent: str | None = None, *, alcoho
     if substrate is not None or reagent is not None:
         if not substrate or not reagent:
             raise SpecmatchError("give both --substrate and --reagent (or only --candidates)")
-        reactions = import_module("specmatch.reactions")
-        enumeration = reactions.enumerate_products(substrate, reagent, alcohol=alcohol, max_shifts=max_shifts)
-        safety = tuple(getattr(enumeration, "safety", ()) or getattr(enumeration.reagent, "safety", ()))
+        from ..reactions import enumerate_products
+
+        enumeration = enumerate_products(substrate, reagent, alcohol=alcohol, max_shifts=max_shifts)
+        safety = tuple(enumeration.safety or enumeration.reagent.safety)
         cautions += list(enumeration.warnings)
         items = list(enumeration.candidates)
     seen = {_candidate_smiles(c.smiles) for c in items}
@@ -205,16 +253,20 @@ def identify(substrate: str | None = None, reagent: str | None = None, *, alcoho
     h1_spec, h1_pl = _read(h1, "1H", solvent)
     _, dept_pl = _read(dept135, "13C", solvent, dept=True)
     for pl in (c13_pl, h1_pl, dept_pl):
-        cautions += list(getattr(pl, "warnings", ()) or ())
-    if h1_pl is not None and getattr(h1_pl, "nucleus", "1H") != "1H":
+        if isinstance(pl, PeakList):
+            cautions += list(pl.warnings)
+    if isinstance(h1_pl, PeakList) and h1_pl.nucleus != "1H":
         raise SpecmatchError(f"the --h1 file holds a {h1_pl.nucleus} spectrum; give it as --c13")
-    if c13_pl is not None and getattr(c13_pl, "nucleus", "13C") != "13C":
+    if isinstance(c13_pl, PeakList) and c13_pl.nucleus != "13C":
         raise SpecmatchError(f"the --c13 file holds a {c13_pl.nucleus} spectrum; give it as --h1")
     c13_lines: Any = c13_pl
     if dept_pl is not None:
         c13_lines = merge_dept(c13_pl, dept_pl)
         cautions.append("DEPT-135: 13C lines without a DEPT counterpart are taken as quaternary carbons")
-    ranking = rank(items, c13=c13_lines, h1=h1_pl, use_prior=use_prior, model=model)
+    if max_components not in (1, 2, 3):
+        raise SpecmatchError(f"max_components must be 1, 2 or 3, got {max_components!r}")
+    ranking = rank(items, c13=c13_lines, h1=h1_pl, use_prior=use_prior, model=model,
+                   max_components=max_components)
     from .errormodel import tables_digest
 
     if model.tables_sha256 and model.tables_sha256 != tables_digest():
@@ -222,26 +274,19 @@ def identify(substrate: str | None = None, reagent: str | None = None, *, alcoho
                         "installed: the probabilities may be less well calibrated (rerun "
                         "benchmarks/fit_error_model.py)")
 
-    mix = None
+    mix: MixtureEstimate | None = None
     if mixture:
-        # HOOK: the product-ratio estimate lives in specmatch.identification.mixture
-        # (written separately); it is called when that module is installed.
-        try:
-            mixmod = import_module("specmatch.identification.mixture")
-        except ImportError:
-            mixmod = None
-            cautions.append("the mixture estimate is not available in this installation")
-        if mixmod is not None:
-            if h1_pl is None:
-                cautions.append("the mixture estimate needs a 1H spectrum (--h1)")
-            elif len(ranking.candidates) < 2:
-                cautions.append("the mixture estimate needs at least two candidates")
-            else:
-                names = _mixture_candidates(ranking)
-                mix = mixmod.estimate_mixture(
-                    names, spectrum=h1_spec, peaklist=_h1_peaklist(h1_pl), solvent=solvent,
-                    names=[next((c.label or c.smiles) for c in ranking.candidates if c.smiles == n)
-                           for n in names])
+        if h1_pl is None:
+            cautions.append("the mixture estimate needs a 1H spectrum (--h1)")
+        elif len(ranking.candidates) < 2:
+            cautions.append("the mixture estimate needs at least two candidates")
+        else:
+            names = _mixture_candidates(ranking)
+            mix = estimate_mixture(
+                names, spectrum=h1_spec, peaklist=_h1_peaklist(h1_pl), solvent=solvent,
+                names=[next((c.label or c.smiles) for c in ranking.candidates if c.smiles == n)
+                       for n in names])
+            ranking = reconcile(ranking, mix)
 
     pred_versions = sorted({c.tables_version for c in ranking.candidates if c.tables_version})
     import numpy, rdkit, scipy
@@ -252,7 +297,7 @@ def identify(substrate: str | None = None, reagent: str | None = None, *, alcoho
         "error_model": model.version,
         "error_model_fitted_on": model.fitted_on,
         "prediction_tables_sha256": tables_digest(),
-        "reaction_model": getattr(enumeration, "model", "") if enumeration is not None else "",
+        "reaction_model": enumeration.model if enumeration is not None else "",
         "rdkit": rdkit.__version__, "numpy": numpy.__version__, "scipy": scipy.__version__,
     }
     inputs = {
@@ -260,9 +305,12 @@ def identify(substrate: str | None = None, reagent: str | None = None, *, alcoho
         "reagent_name": enumeration.reagent.name if enumeration is not None else None,
         "alcohol": alcohol, "solvent": solvent,
         "user_candidates": list(candidates),
-        "options": {"mixture": mixture, "use_prior": use_prior, "max_shifts": max_shifts},
+        "options": {"mixture": mixture, "use_prior": use_prior, "max_shifts": max_shifts,
+                    "max_components": max_components},
         "files": files,
     }
     return Result(ranking=ranking, inputs=inputs, versions=versions, safety_notes=safety,
-                  cautions=tuple(dict.fromkeys(cautions)), mixture=mix, c13=c13_pl, h1=h1_pl,
-                  dept135=dept_pl, enumeration=enumeration, c13_spectrum=c13_spec, h1_spectrum=h1_spec)
+                  cautions=tuple(dict.fromkeys(cautions)), mixture=mix,
+                  c13=_c13_peaklist(c13_pl, "13C lines given to identify"), h1=_h1_peaklist(h1_pl),
+                  dept135=_c13_peaklist(dept_pl, "DEPT-135 lines given to identify"),
+                  enumeration=enumeration, c13_spectrum=c13_spec, h1_spectrum=h1_spec)

@@ -19,26 +19,36 @@ the top candidate, p2 for the runner-up):
 
 The thresholds are conventions of this tool (the probabilities are calibrated,
 so "likely" means right about 8 to 9 times in 10 on the development tasks).
+
+Pure or mixture (:mod:`.hypotheses`): besides the candidates, the ranking scores
+hypotheses "pure A" and "A + B" (and "A + B + C" when asked). The verdict is
+about the best *hypothesis*: its ``kind`` is "pure" or "mixture" when the words
+above apply to that hypothesis's posterior, "undecided" when the top two
+hypotheses are closer than 3:1 (or there are no data). ``CandidateScore.probability``
+stays the probability that the candidate is the product *if the sample is pure*
+(it sums to 1 over the candidates); ``CandidateScore.p_present`` is the
+probability that the candidate is in the sample at all.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from typing import Any, Mapping, Sequence
 
 import numpy as np
 
 from ..errors import SpecmatchError
 from .errormodel import ErrorModel, load_error_model
+from .hypotheses import HypothesisScore, score_hypotheses
 from .scoring import (
     ObservedC13, ObservedH1, PreparedCandidate, SignalRow, c13_table, h1_table,
     observed_c13, observed_h1, prepare, score_c13, score_h1,
 )
 
 __all__ = [
-    "CandidateScore", "DiscriminatingSignal", "Ranking", "Verdict",
-    "THRESHOLDS", "rank", "log_likelihoods", "softmax",
+    "CandidateScore", "DiscriminatingSignal", "Hypothesis", "Ranking", "Verdict",
+    "THRESHOLDS", "VERDICT_KINDS", "rank", "log_likelihoods", "softmax", "percent",
 ]
 
 #: verdict thresholds (see the module docstring)
@@ -46,6 +56,63 @@ THRESHOLDS = {"decisive": 0.95, "likely": 0.80, "tentative_odds": 3.0}
 
 #: a top candidate whose own fit is this poor gets a "none may fit" caution
 POOR_FIT_SIGMA = 4.0
+
+#: what the verdict says about the sample
+VERDICT_KINDS = ("pure", "mixture", "undecided")
+
+
+def percent(p: float) -> str:
+    """A probability as a percentage for people: "99.8%", "<0.1%", ">99.9%"."""
+    if p < 0.0005:
+        return "<0.1%"
+    if p > 0.9995:
+        return ">99.9%"
+    return f"{100 * p:.1f}%"
+
+
+def _tuple(x: Any) -> tuple:
+    return tuple(x) if x is not None else ()
+
+
+@dataclass(frozen=True)
+class Hypothesis:
+    """One account of the sample: a pure candidate or a mixture of candidates.
+
+    Attributes
+    ----------
+    components : tuple of str
+        Canonical SMILES of the components (major first).
+    fractions : tuple of float
+        Mole fractions (sum 1), in the order of `components`; equal shares when
+        the data carry no quantitative information (``quantified`` False).
+    probability : float
+        Posterior probability among all hypotheses scored.
+    log_evidence : float
+        Tempered log marginal likelihood plus log prior (nats, up to a constant
+        shared by every hypothesis of the ranking).
+    quantified : bool
+        Whether the fractions come from the data (1H integrals, 13C heights).
+    """
+
+    components: tuple[str, ...]
+    fractions: tuple[float, ...]
+    probability: float
+    log_evidence: float
+    quantified: bool = True
+
+    @property
+    def kind(self) -> str:
+        return "pure" if len(self.components) == 1 else "mixture"
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"components": list(self.components), "fractions": [float(f) for f in self.fractions],
+                "probability": float(self.probability), "log_evidence": float(self.log_evidence),
+                "quantified": self.quantified}
+
+    @classmethod
+    def from_dict(cls, d: Mapping[str, Any]) -> "Hypothesis":
+        return cls(tuple(d["components"]), tuple(float(f) for f in d["fractions"]),
+                   float(d["probability"]), float(d["log_evidence"]), bool(d.get("quantified", True)))
 
 
 @dataclass(frozen=True)
@@ -68,6 +135,7 @@ class CandidateScore:
     h1_table: tuple[SignalRow, ...] = ()
     warnings: tuple[str, ...] = ()
     tables_version: str = ""
+    p_present: float = 0.0  # posterior probability that the candidate is in the sample
 
     @property
     def unexplained(self) -> int:
@@ -79,22 +147,40 @@ class CandidateScore:
         return max(d) if d else 0.0
 
     def to_dict(self, tables: bool = True) -> dict[str, Any]:
+        # full precision: from_dict(to_dict()) gives the same object back
         d: dict[str, Any] = {
             "smiles": self.smiles, "canonical_smiles": self.canonical_smiles,
-            "probability": round(self.probability, 6),
-            "probability_spectra": round(self.probability_spectra, 6),
-            "probability_with_prior": None if self.probability_with_prior is None
-            else round(self.probability_with_prior, 6),
+            "probability": self.probability,
+            "probability_spectra": self.probability_spectra,
+            "probability_with_prior": self.probability_with_prior,
+            "p_present": self.p_present,
             "prior": self.prior, "label": self.label, "pathway": self.pathway, "role": self.role,
-            "log_likelihood_c13": round(self.log_likelihood_c13, 4),
-            "log_likelihood_h1": round(self.log_likelihood_h1, 4),
-            "score": round(self.score, 4),
+            "log_likelihood_c13": self.log_likelihood_c13,
+            "log_likelihood_h1": self.log_likelihood_h1,
+            "score": self.score,
+            "tables_version": self.tables_version,
         }
         if tables:
             d["c13_table"] = [r.to_dict() for r in self.c13_table]
             d["h1_table"] = [r.to_dict() for r in self.h1_table]
             d["warnings"] = list(self.warnings)
         return d
+
+    @classmethod
+    def from_dict(cls, d: Mapping[str, Any]) -> "CandidateScore":
+        opt = lambda k: None if d.get(k) is None else float(d[k])
+        return cls(
+            smiles=d["smiles"], canonical_smiles=d["canonical_smiles"],
+            probability=float(d["probability"]), probability_spectra=float(d["probability_spectra"]),
+            probability_with_prior=opt("probability_with_prior"),
+            log_likelihood_c13=float(d["log_likelihood_c13"]), log_likelihood_h1=float(d["log_likelihood_h1"]),
+            score=float(d["score"]), prior=opt("prior"), label=d.get("label") or "",
+            pathway=d.get("pathway") or "", role=d.get("role") or "",
+            c13_table=tuple(SignalRow.from_dict(r) for r in d.get("c13_table") or ()),
+            h1_table=tuple(SignalRow.from_dict(r) for r in d.get("h1_table") or ()),
+            warnings=_tuple(d.get("warnings")), tables_version=d.get("tables_version") or "",
+            p_present=float(d.get("p_present") or 0.0),
+        )
 
 
 @dataclass(frozen=True)
@@ -111,13 +197,19 @@ class DiscriminatingSignal:
     text: str
 
     def to_dict(self) -> dict[str, Any]:
-        r = lambda x, n: None if x is None else round(float(x), n)
-        return {"nucleus": self.nucleus, "observed_ppm": r(self.observed_ppm, 3),
-                "top_predicted_ppm": r(self.top_predicted_ppm, 2),
-                "top_deviation_sigma": r(self.top_deviation_sigma, 2),
-                "second_predicted_ppm": r(self.second_predicted_ppm, 2),
-                "second_deviation_sigma": r(self.second_deviation_sigma, 2),
-                "weight": round(self.weight, 3), "text": self.text}
+        r = lambda x: None if x is None else float(x)
+        return {"nucleus": self.nucleus, "observed_ppm": r(self.observed_ppm),
+                "top_predicted_ppm": r(self.top_predicted_ppm),
+                "top_deviation_sigma": r(self.top_deviation_sigma),
+                "second_predicted_ppm": r(self.second_predicted_ppm),
+                "second_deviation_sigma": r(self.second_deviation_sigma),
+                "weight": float(self.weight), "text": self.text}
+
+    @classmethod
+    def from_dict(cls, d: Mapping[str, Any]) -> "DiscriminatingSignal":
+        r = lambda k: None if d.get(k) is None else float(d[k])
+        return cls(d["nucleus"], r("observed_ppm"), r("top_predicted_ppm"), r("top_deviation_sigma"),
+                   r("second_predicted_ppm"), r("second_deviation_sigma"), float(d["weight"]), d["text"])
 
 
 @dataclass(frozen=True)
@@ -132,12 +224,25 @@ class Verdict:
     p_top: float
     p_second: float
     advice: str = ""
+    kind: str = "undecided"  # one of VERDICT_KINDS
+    components: tuple[str, ...] = ()  # canonical SMILES of the best hypothesis
+    fractions: tuple[float, ...] = ()  # its mole fractions (the 1H ratio when one was estimated)
+    p_hypothesis: float = 0.0  # posterior of the best hypothesis
 
     def to_dict(self) -> dict[str, Any]:
         return {"word": self.word, "text": self.text, "basis": self.basis, "top": self.top,
-                "runner_up": self.runner_up, "p_top": round(self.p_top, 6),
-                "p_second": round(self.p_second, 6), "advice": self.advice,
+                "runner_up": self.runner_up, "p_top": float(self.p_top),
+                "p_second": float(self.p_second), "advice": self.advice,
+                "kind": self.kind, "components": list(self.components),
+                "fractions": [float(f) for f in self.fractions], "p_hypothesis": float(self.p_hypothesis),
                 "thresholds": dict(THRESHOLDS)}
+
+    @classmethod
+    def from_dict(cls, d: Mapping[str, Any]) -> "Verdict":
+        return cls(d["word"], d["text"], d["basis"], d.get("top"), d.get("runner_up"),
+                   float(d["p_top"]), float(d["p_second"]), d.get("advice") or "",
+                   d.get("kind") or "undecided", _tuple(d.get("components")),
+                   tuple(float(f) for f in d.get("fractions") or ()), float(d.get("p_hypothesis") or 0.0))
 
 
 @dataclass(frozen=True)
@@ -151,7 +256,7 @@ class Ranking:
     has_dept: bool
     error_model_version: str
     cautions: tuple[str, ...] = ()
-    extra: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
+    hypotheses: tuple[Hypothesis, ...] = ()  # best first: pure candidates and mixtures
 
     @property
     def best(self) -> CandidateScore:
@@ -162,10 +267,24 @@ class Ranking:
             "nuclei": list(self.nuclei), "dept": self.has_dept,
             "verdict": self.verdict.to_dict(),
             "candidates": [c.to_dict(tables) for c in self.candidates],
+            "hypotheses": [h.to_dict() for h in self.hypotheses],
             "discriminating_signals": [d.to_dict() for d in self.discriminating],
             "cautions": list(self.cautions),
             "error_model": self.error_model_version,
         }
+
+    @classmethod
+    def from_dict(cls, d: Mapping[str, Any]) -> "Ranking":
+        """The inverse of :meth:`to_dict` (with tables)."""
+        return cls(
+            candidates=tuple(CandidateScore.from_dict(c) for c in d["candidates"]),
+            verdict=Verdict.from_dict(d["verdict"]),
+            discriminating=tuple(DiscriminatingSignal.from_dict(x) for x in d.get("discriminating_signals") or ()),
+            nuclei=_tuple(d.get("nuclei")), has_dept=bool(d.get("dept")),
+            error_model_version=d.get("error_model") or "",
+            cautions=_tuple(d.get("cautions")),
+            hypotheses=tuple(Hypothesis.from_dict(h) for h in d.get("hypotheses") or ()),
+        )
 
     def to_frame(self):
         """The candidate table as a pandas DataFrame (one row per candidate)."""
@@ -175,7 +294,7 @@ class Ranking:
         for i, c in enumerate(self.candidates, 1):
             rows.append({
                 "rank": i, "smiles": c.smiles, "label": c.label, "pathway": c.pathway,
-                "prior": c.prior, "probability": c.probability,
+                "prior": c.prior, "probability": c.probability, "p_present": c.p_present,
                 "probability_spectra": c.probability_spectra,
                 "probability_with_prior": c.probability_with_prior,
                 "log_likelihood_c13": c.log_likelihood_c13, "log_likelihood_h1": c.log_likelihood_h1,
@@ -279,35 +398,65 @@ def _advice(nuclei: tuple[str, ...], has_dept: bool, a: PreparedCandidate, b: Pr
             "(HSQC/HMBC) or compare with an authentic sample")
 
 
+def _describe(h: Hypothesis, names: Mapping[str, str], percentages: bool = True) -> str:
+    """ "pure A", "mixture of A (about 70%) and B", "mixture of A and B (no ratio from these data)"."""
+    if len(h.components) == 1:
+        return f"pure {names[h.components[0]]}"
+    parts = [names[c] for c in h.components]
+    if percentages and h.quantified:
+        head = f"{parts[0]} (about {5 * round(20 * h.fractions[0]):.0f}%)"
+        if len(parts) == 2:
+            return f"mixture of {head} and {parts[1]}"
+        rest = ", ".join(f"{p} (about {5 * round(20 * f):.0f}%)" for p, f in zip(parts[1:-1], h.fractions[1:-1]))
+        return f"mixture of {head}, {rest} and {parts[-1]}"
+    return "mixture of " + ", ".join(parts[:-1]) + f" and {parts[-1]}" + (
+        "" if h.quantified else " (no ratio from these data: 1H integrals give one)")
+
+
 def _verdict(scores: list[CandidateScore], prepared: list[PreparedCandidate], basis: str,
-             nuclei: tuple[str, ...], has_dept: bool) -> Verdict:
+             nuclei: tuple[str, ...], has_dept: bool, hyps: Sequence[Hypothesis]) -> Verdict:
+    names = {c.canonical_smiles: _name(c) for c in reversed(scores)}
+    top = scores[0]
     if not nuclei:
         return Verdict("no data", "no spectra given: the ranking is the mechanism prior alone"
                        if basis != "spectra only" else "no spectra given: nothing to decide on",
-                       basis, scores[0].smiles, scores[1].smiles if len(scores) > 1 else None,
-                       scores[0].probability, scores[1].probability if len(scores) > 1 else 0.0)
-    top = scores[0]
+                       basis, top.smiles, scores[1].smiles if len(scores) > 1 else None,
+                       top.probability, scores[1].probability if len(scores) > 1 else 0.0, kind="undecided")
     if len(scores) == 1:
         return Verdict("only candidate", f"{_name(top)} is the only candidate; its fit is shown below",
-                       basis, top.smiles, None, 1.0, 0.0)
+                       basis, top.smiles, None, 1.0, 0.0, kind="pure", components=(top.canonical_smiles,),
+                       fractions=(1.0,), p_hypothesis=1.0)
     sec = scores[1]
-    p1, p2 = top.probability, sec.probability
-    advice = ""
-    if p1 >= THRESHOLDS["decisive"]:
-        word = "decisive"
-        text = f"decisive: {_name(top)} (p = {p1:.3f}, {basis})"
-    elif p1 >= THRESHOLDS["likely"]:
-        word = "likely"
-        text = f"likely {_name(top)} (p = {p1:.2f}, {basis}); next {_name(sec)} (p = {p2:.2f})"
-    elif p2 <= 0 or p1 / p2 >= THRESHOLDS["tentative_odds"]:
-        word = "tentative"
-        text = (f"tentative: {_name(top)} (p = {p1:.2f}, {basis}) ahead of {_name(sec)} "
-                f"(p = {p2:.2f}); more data advisable")
+    h1, h2 = hyps[0], hyps[1]
+    q1, q2 = h1.probability, h2.probability
+    common = dict(basis=basis, top=top.smiles, runner_up=sec.smiles, p_top=top.probability,
+                  p_second=sec.probability, components=h1.components, fractions=h1.fractions,
+                  p_hypothesis=q1)
+    d1, d2 = _describe(h1, names), _describe(h2, names)
+    kind = h1.kind
+    if q1 >= THRESHOLDS["decisive"]:
+        return Verdict("decisive", f"decisive: {d1} (p = {percent(q1)}, {basis})", kind=kind, **common)
+    if q1 >= THRESHOLDS["likely"]:
+        return Verdict("likely", f"likely {d1} (p = {percent(q1)}, {basis}); next {d2} (p = {percent(q2)})",
+                       kind=kind, **common)
+    if q2 <= 0 or q1 / q2 >= THRESHOLDS["tentative_odds"]:
+        return Verdict("tentative", f"tentative: {d1} (p = {percent(q1)}, {basis}) ahead of {d2} "
+                       f"(p = {percent(q2)}); more data advisable", kind=kind, **common)
+    # the two leading accounts differ in a candidate: advise on the first two distinct ones
+    index = {c.canonical_smiles: i for i, c in reversed(list(enumerate(scores)))}
+    ia = index[h1.components[0]]
+    other = [c for c in h2.components if c not in h1.components] or \
+        [c for c in h1.components[1:]] or [sec.canonical_smiles]
+    ib = index.get(other[0], 1)
+    if ib == ia:
+        ib = 1 if ia == 0 else 0
+    advice = _advice(nuclei, has_dept, prepared[ia], prepared[ib])
+    if h1.kind == h2.kind == "pure":
+        text = f"{names[h1.components[0]]} (p = {percent(q1)}) and {names[h2.components[0]]} (p = {percent(q2)}): {advice}"
     else:
-        word = "cannot tell apart"
-        advice = _advice(nuclei, has_dept, prepared[0], prepared[1])
-        text = f"{_name(top)} (p = {p1:.2f}) and {_name(sec)} (p = {p2:.2f}): {advice}"
-    return Verdict(word, text, basis, top.smiles, sec.smiles, p1, p2, advice)
+        text = (f"cannot tell pure from mixture: {d1} (p = {percent(q1)}) or {d2} (p = {percent(q2)}): "
+                f"{advice}")
+    return Verdict("cannot tell apart", text, advice=advice, kind="undecided", **common)
 
 
 def _name(c: CandidateScore) -> str:
@@ -404,8 +553,26 @@ def _cautions(top: CandidateScore, nuclei: tuple[str, ...]) -> list[str]:
     return out
 
 
+def hypothesis_posterior(raw: Sequence[HypothesisScore], canonical: Sequence[str]
+                         ) -> tuple[tuple[Hypothesis, ...], np.ndarray]:
+    """Normalised hypotheses (best first, components major first) and p_present per candidate."""
+    ev = np.array([h.log_evidence for h in raw])
+    post = softmax(ev)
+    present = np.zeros(len(canonical))
+    out = []
+    for h, p in zip(raw, post):
+        present[list(h.members)] += p
+        order = sorted(range(len(h.members)), key=lambda k: (-h.fractions[k], k))
+        out.append(Hypothesis(tuple(canonical[h.members[k]] for k in order),
+                              tuple(float(h.fractions[k]) for k in order), float(p), float(h.log_evidence),
+                              h.quantified))
+    out.sort(key=lambda h: (-h.probability, len(h.components)))
+    return tuple(out), np.minimum(present, 1.0)
+
+
 def rank(candidates: Sequence[Any], c13: Any = None, h1: Any = None, priors: Any = None, *,
-         use_prior: bool = True, model: ErrorModel | None = None, details: bool = True) -> Ranking:
+         use_prior: bool = True, model: ErrorModel | None = None, details: bool = True,
+         max_components: int = 2) -> Ranking:
     """Rank candidate structures against observed spectra.
 
     Parameters
@@ -427,6 +594,8 @@ def rank(candidates: Sequence[Any], c13: Any = None, h1: Any = None, priors: Any
         Defaults to the fitted model shipped with specmatch.
     details : bool
         Build per-signal tables and discriminating signals (False for speed).
+    max_components : int
+        Largest mixture scored as a hypothesis: 1 (pure samples only), 2 or 3.
 
     Returns
     -------
@@ -449,6 +618,10 @@ def rank(candidates: Sequence[Any], c13: Any = None, h1: Any = None, priors: Any
     with_prior = use_prior and p_prior is not None
     p_use = p_prior if with_prior else p_spec
     basis = "spectra and mechanism prior" if with_prior else "spectra only"
+    canonical = [pr.prediction.canonical_smiles for pr in prepared]
+    raw = score_hypotheses(prepared, score, pri if with_prior else None, oc, oh, model,
+                           max_components=max_components if nuclei else 1)
+    hyps, present = hypothesis_posterior(raw, canonical)
     rows = []
     for i, (s, f) in enumerate(parsed):
         pr = prepared[i]
@@ -462,17 +635,65 @@ def rank(candidates: Sequence[Any], c13: Any = None, h1: Any = None, priors: Any
             c13_table=tuple(c13_table(pr, oc, model.c13)) if details else (),
             h1_table=tuple(h1_table(pr, oh, model.h1)) if details else (),
             warnings=pr.prediction.warnings, tables_version=pr.prediction.tables_version,
+            p_present=float(present[i]),
         ))
     order = sorted(range(len(rows)), key=lambda i: (-rows[i].probability, -rows[i].score, i))
     ranked = [rows[i] for i in order]
     prep_sorted = [prepared[i] for i in order]
-    verdict = _verdict(ranked, prep_sorted, basis, nuclei, oc.has_dept)
+    verdict = _verdict(ranked, prep_sorted, basis, nuclei, oc.has_dept, hyps)
     disc = _discriminating(ranked[0], ranked[1], model) if details and len(ranked) > 1 and nuclei else ()
     cautions: tuple[str, ...] = ()
     if details and nuclei:
-        hint = _mixture_hint(ranked) if "13C" in nuclei else None
+        # the hint names leftover lines another candidate explains; when the verdict
+        # already says "mixture" it would only repeat it
+        hint = _mixture_hint(ranked) if "13C" in nuclei and verdict.kind != "mixture" else None
         cautions = tuple(_cautions(ranked[0], nuclei) + ([hint] if hint else []))
-        if hint and verdict.word in ("decisive", "likely", "tentative"):
-            verdict = replace(verdict, text=verdict.text + "; as the main component of what looks "
-                              "like a mixture (see cautions)")
-    return Ranking(tuple(ranked), verdict, disc, nuclei, oc.has_dept, model.version, cautions)
+    return Ranking(tuple(ranked), verdict, disc, nuclei, oc.has_dept, model.version, cautions, hyps)
+
+
+def reconciled_verdict(ranking: Ranking, mix: Any, present_fraction: float) -> Verdict:
+    """The verdict made consistent with a measured 1H ratio (see ``pipeline.reconcile``).
+
+    ``mix`` is a :class:`~specmatch.identification.mixture.MixtureEstimate` over
+    some of the ranking's candidates (SMILES as given).
+    """
+    v = ranking.verdict
+    canon = {c.smiles: c.canonical_smiles for c in ranking.candidates}
+    names = {c.canonical_smiles: _name(c) for c in reversed(ranking.candidates)}
+    frac = {canon[s]: float(f) for s, f in zip(mix.candidates, mix.fractions) if s in canon}
+    lows = {canon[s]: float(lo) for s, (lo, _) in zip(mix.candidates, mix.interval_95) if s in canon}
+    present = sorted((c for c, f in frac.items() if f >= present_fraction), key=lambda c: -frac[c])
+    if not present:
+        return v
+    tot = sum(frac[c] for c in present)
+    comps = tuple(present)
+    fracs = tuple(frac[c] / tot for c in comps)
+    same = next((h for h in ranking.hypotheses if set(h.components) == set(comps)), None)
+    q = same.probability if same is not None else 0.0
+    h = Hypothesis(comps, fracs, q, same.log_evidence if same is not None else float("-inf"), True)
+    desc = _describe(h, names)
+    ratio = f"1H ratio {mix.ratio_text}" if len(comps) == len(frac) else "1H ratio"
+    if len(comps) == 1:
+        if v.kind == "mixture":
+            # the lines suggest a mixture that the 1H integrals do not show
+            return Verdict("cannot tell apart",
+                           f"cannot tell pure from mixture: the {ratio} shows only {names[comps[0]]}, the lines "
+                           f"favour {_describe(ranking.hypotheses[0], names, False)} (p = {percent(v.p_hypothesis)})",
+                           v.basis, v.top, v.runner_up, v.p_top, v.p_second, v.advice, "undecided",
+                           comps, (1.0,), v.p_hypothesis)
+        return v
+    detected = all(lows.get(c, 0.0) > 0.0 for c in comps)
+    if set(v.components) == set(comps) and v.kind == "mixture":
+        word = v.word
+        text = f"{word}: {desc} (p = {percent(q)}, {v.basis}; {ratio})" if word != "likely" else \
+            f"likely {desc} (p = {percent(q)}, {v.basis}; {ratio})"
+    elif detected:
+        word = ("decisive" if q >= THRESHOLDS["decisive"] else "likely" if q >= THRESHOLDS["likely"]
+                else "tentative")
+        text = (f"{word}: {desc} ({ratio}; the line evidence alone gives this mixture p = {percent(q)}, "
+                f"{v.basis})")
+    else:
+        return replace(v, kind="undecided", components=comps, fractions=fracs, word="cannot tell apart",
+                       text=f"cannot tell pure from mixture: the {ratio} puts {desc[len('mixture of '):]} "
+                       "but the minor component's 95% interval reaches 0")
+    return replace(v, word=word, text=text, kind="mixture", components=comps, fractions=fracs, p_hypothesis=q)

@@ -296,18 +296,33 @@ class SignalRow:
     multiplicity: str = ""
     log_likelihood: float = 0.0
 
+    def __post_init__(self) -> None:
+        # a multiplet without an integral is None, never NaN: NaN is not JSON and
+        # is not equal to itself (the Result round trip compares rows)
+        if self.observed_integral is not None and not math.isfinite(self.observed_integral):
+            object.__setattr__(self, "observed_integral", None)
+
     def to_dict(self) -> dict[str, Any]:
-        r = lambda x, n: None if x is None else round(float(x), n)
+        r = lambda x: None if x is None else float(x)
         i = lambda x: None if x is None else int(x)
         return {
             "nucleus": self.nucleus, "status": self.status,
-            "observed_ppm": r(self.observed_ppm, 3), "predicted_ppm": r(self.predicted_ppm, 3),
-            "sigma_ppm": r(self.sigma_ppm, 3), "deviation_sigma": r(self.deviation_sigma, 2),
+            "observed_ppm": r(self.observed_ppm), "predicted_ppm": r(self.predicted_ppm),
+            "sigma_ppm": r(self.sigma_ppm), "deviation_sigma": r(self.deviation_sigma),
             "atoms": [int(a) for a in self.atoms], "hydrogens": i(self.hydrogens), "protons": i(self.protons),
-            "observed_integral": r(self.observed_integral, 2), "multiplicity": self.multiplicity,
+            "observed_integral": r(self.observed_integral), "multiplicity": self.multiplicity,
             "environment": self.environment, "observed_index": i(self.observed_index),
-            "log_likelihood": round(self.log_likelihood, 3),
+            "log_likelihood": float(self.log_likelihood),
         }
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any]) -> "SignalRow":
+        r = lambda k: None if d.get(k) is None else float(d[k])
+        i = lambda k: None if d.get(k) is None else int(d[k])
+        return cls(d["nucleus"], r("observed_ppm"), r("predicted_ppm"), r("sigma_ppm"), r("deviation_sigma"),
+                   tuple(int(a) for a in d.get("atoms") or ()), i("hydrogens"), d.get("environment") or "",
+                   d.get("status") or "assigned", i("observed_index"), i("protons"), r("observed_integral"),
+                   d.get("multiplicity") or "", float(d.get("log_likelihood") or 0.0))
 
 
 # ---------------------------------------------------------------------- 13C score

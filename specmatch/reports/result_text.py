@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from typing import Any
 
+from ..identification.ranking import percent
+
 __all__ = ["result_text", "signal_table_text"]
 
 
@@ -41,13 +43,25 @@ def result_text(result: Any) -> str:
                      + (f" (alcohol {inputs['alcohol']})" if inputs.get("alcohol") else ""))
     lines.append(f"Data: {', '.join(ranking.nuclei) or 'none'}{' + DEPT' if ranking.has_dept else ''}")
     lines.append("")
-    lines.append(f"{'#':>2} {'p':>7} {'p spectra':>9} {'p w/prior':>9} {'prior':>6}  candidate")
+    if ranking.hypotheses:
+        names = {c.canonical_smiles: (c.label or c.smiles) for c in reversed(ranking.candidates)}
+        lines.append("What the sample is (posterior over pure samples and mixtures):")
+        for h in ranking.hypotheses[:5]:
+            if len(h.components) == 1:
+                what = f"pure {names.get(h.components[0], h.components[0])}"
+            else:
+                what = " + ".join(names.get(c, c) + (f" ({100 * f:.0f}%)" if h.quantified else "")
+                                  for c, f in zip(h.components, h.fractions))
+            lines.append(f"  {percent(h.probability):>7}  {what}")
+        lines.append("")
+    lines.append(f"{'#':>2} {'present':>8} {'p if pure':>9} {'p spectra':>9} {'prior':>6}  candidate")
     for i, c in enumerate(ranking.candidates, 1):
-        pw = "-" if c.probability_with_prior is None else f"{c.probability_with_prior:.3f}"
         pr = "-" if c.prior is None else f"{c.prior:.3f}"
         label = f"{c.label}: " if c.label else ""
-        lines.append(f"{i:>2} {c.probability:>7.3f} {c.probability_spectra:>9.3f} {pw:>9} {pr:>6}  "
-                     f"{label}{c.smiles}")
+        lines.append(f"{i:>2} {percent(c.p_present):>8} {percent(c.probability):>9} "
+                     f"{percent(c.probability_spectra):>9} {pr:>6}  {label}{c.smiles}")
+    lines.append("  (present: probability that the candidate is in the sample; p if pure: that it is "
+                 "the product if the sample is one compound)")
     if ranking.discriminating:
         lines += ["", "Signals that tell the top two apart:"]
         lines += [f"  - {d.text}" for d in ranking.discriminating]
@@ -58,13 +72,9 @@ def result_text(result: Any) -> str:
                       signal_table_text(rows, nucleus)]
     mix = getattr(result, "mixture", None)
     if mix is not None:
-        lines += ["", "Mixture estimate:"]
-        try:
-            from .mixture_text import mixture_text
+        from .mixture_text import mixture_text
 
-            lines.append(mixture_text(mix))
-        except ImportError:
-            lines.append(str(mix))
+        lines += ["", "Mixture estimate:", mixture_text(mix)]
     cautions = list(ranking.cautions) + (list(getattr(result, "cautions", ()) or ()) if result is not ranking else [])
     if cautions:
         lines += ["", "Cautions:"] + [f"  - {c}" for c in cautions]

@@ -17,7 +17,6 @@ from .estimate import (
     estimate_mixture,
     mixture_from_files,
     ratio_text,
-    read_candidates,
     selectivity_words,
 )
 
@@ -28,6 +27,5 @@ __all__ = [
     "estimate_mixture",
     "mixture_from_files",
     "ratio_text",
-    "read_candidates",
     "selectivity_words",
 ]

@@ -50,14 +50,17 @@ include that. An estimate is advisory, like every identification.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any, Mapping
 
 import numpy as np
 
 from ...errors import SpecmatchError
 from ...prediction.multiplicity import partners_of
+
+if TYPE_CHECKING:  # the fit module is heavy; only its type is needed here
+    from .spectrum_fit import SpectrumFit
 
 #: (minimum major fraction, word), checked in order; common practice
 SELECTIVITY_THRESHOLDS: tuple[tuple[float, str], ...] = (
@@ -111,12 +114,19 @@ class CarryingSignal:
 
     def to_dict(self) -> dict[str, Any]:
         return {
-            "candidate": self.candidate,
-            "range_ppm": [round(self.range_ppm[0], 3), round(self.range_ppm[1], 3)],
-            "protons": self.protons,
+            "candidate": int(self.candidate),
+            "range_ppm": [float(self.range_ppm[0]), float(self.range_ppm[1])],
+            "protons": int(self.protons),
             "groups": self.groups,
-            "purity": round(self.purity, 3),
+            "purity": float(self.purity),
+            "amount": None if self.amount is None else float(self.amount),
         }
+
+    @classmethod
+    def from_dict(cls, d: Mapping[str, Any]) -> "CarryingSignal":
+        lo, hi = d["range_ppm"]
+        return cls(int(d["candidate"]), (float(lo), float(hi)), int(d["protons"]), d["groups"],
+                   float(d["purity"]), None if d.get("amount") is None else float(d["amount"]))
 
 
 @dataclass(frozen=True)
@@ -130,11 +140,16 @@ class IntegralRatio:
 
     def to_dict(self) -> dict[str, Any]:
         return {
-            "fractions": [round(f, 4) for f in self.fractions],
-            "uncertainties": [round(u, 4) for u in self.uncertainties],
+            "fractions": [float(f) for f in self.fractions],
+            "uncertainties": [float(u) for u in self.uncertainties],
             "ratio_text": self.ratio_text,
             "signals": [s.to_dict() for s in self.signals],
         }
+
+    @classmethod
+    def from_dict(cls, d: Mapping[str, Any]) -> "IntegralRatio":
+        return cls(tuple(float(f) for f in d["fractions"]), tuple(float(u) for u in d["uncertainties"]),
+                   d["ratio_text"], tuple(CarryingSignal.from_dict(x) for x in d["signals"]))
 
 
 @dataclass(frozen=True)
@@ -170,6 +185,11 @@ class MixtureEstimate:
     warnings : tuple of str
     source : str
         The spectrum or peak list used.
+    details : dict
+        Fit statistics (numbers and words only: width, reduced chi-square, ...).
+    fit : SpectrumFit or None
+        The whole-spectrum fit itself (for overlays), when one was made; not
+        part of the dict form and not compared.
     """
 
     candidates: tuple[str, ...]
@@ -190,17 +210,18 @@ class MixtureEstimate:
     selectivity_note: str = ""
     thresholds: tuple[tuple[float, str], ...] = SELECTIVITY_THRESHOLDS
     details: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
+    fit: "SpectrumFit | None" = field(default=None, compare=False, repr=False)
 
     def to_dict(self) -> dict[str, Any]:
-        """JSON form used by ``specmatch mixture --json``."""
+        """JSON form used by ``specmatch mixture --json`` (full precision; see :meth:`from_dict`)."""
         return {
             "candidates": [
                 {
                     "smiles": s,
                     "name": n,
-                    "fraction": round(f, 4),
-                    "uncertainty": round(u, 4),
-                    "interval_95": [round(lo, 4), round(hi, 4)],
+                    "fraction": float(f),
+                    "uncertainty": float(u),
+                    "interval_95": [float(lo), float(hi)],
                 }
                 for s, n, f, u, (lo, hi) in zip(self.candidates, self.names, self.fractions,
                                                 self.uncertainties, self.interval_95)
@@ -217,8 +238,30 @@ class MixtureEstimate:
             "disagreement": self.disagreement,
             "warnings": list(self.warnings),
             "source": self.source,
-            "details": {k: v for k, v in self.details.items() if isinstance(v, (int, float, str, bool))},
+            "details": {k: (float(v) if isinstance(v, (float, np.floating)) else v)
+                        for k, v in self.details.items() if isinstance(v, (int, float, str, bool, np.floating))},
         }
+
+    @classmethod
+    def from_dict(cls, d: Mapping[str, Any]) -> "MixtureEstimate":
+        """The inverse of :meth:`to_dict` (the fit itself is not kept)."""
+        cands = d["candidates"]
+        ir = d.get("integral_ratio")
+        return cls(
+            candidates=tuple(c["smiles"] for c in cands), names=tuple(c["name"] for c in cands),
+            fractions=tuple(float(c["fraction"]) for c in cands),
+            uncertainties=tuple(float(c["uncertainty"]) for c in cands),
+            interval_95=tuple((float(c["interval_95"][0]), float(c["interval_95"][1])) for c in cands),
+            ratio_text=d["ratio_text"], selectivity=d["selectivity"], major=int(d["major"]),
+            method=d["method"], uncertainty_method=d["uncertainty_method"],
+            carrying_signals=tuple(CarryingSignal.from_dict(x) for x in d.get("carrying_signals") or ()),
+            integral_ratio=None if ir is None else IntegralRatio.from_dict(ir),
+            disagreement=bool(d.get("disagreement")), warnings=tuple(d.get("warnings") or ()),
+            source=d.get("source") or "", selectivity_note=d.get("selectivity_note") or "",
+            thresholds=tuple((float(t["major_fraction_min"]), t["word"]) for t in d["thresholds"])
+            if d.get("thresholds") else SELECTIVITY_THRESHOLDS,
+            details=dict(d.get("details") or {}),
+        )
 
 
 # ------------------------------------------------------------------------ wording
@@ -746,10 +789,8 @@ def estimate_mixture(
 
 
 def _try_process(spectrum, solvent, warnings):
-    try:
-        from ...spectra import process_spectrum
-    except (ImportError, AttributeError):
-        return None
+    from ...spectra import process_spectrum
+
     try:
         return process_spectrum(spectrum, solvent=solvent)
     except SpecmatchError as exc:
@@ -802,8 +843,7 @@ def _from_spectrum(cands, spectrum, peaklist, solvent, f_mhz, warnings, src) -> 
     est = _finish(cands, fit.weights, fit.weights_cov, fit.regions, method=method, uncertainty_method=unc,
                   warnings=warnings, source=src, fitted=fitted, group_keys=group_keys, details=details,
                   undetected=fit.undetected, observed=observed)
-    object.__setattr__(est, "details", {**details, "fit": fit})
-    return est
+    return replace(est, fit=fit)
 
 
 def _from_peaklist(cands, peaklist, warnings, src) -> MixtureEstimate:
@@ -854,36 +894,14 @@ def _from_peaklist(cands, peaklist, warnings, src) -> MixtureEstimate:
                    warnings=warnings, source=src, fitted={}, group_keys=group_keys, details=details)
 
 
-def read_candidates(path: str | Path) -> tuple[list[str], list[str]]:
-    """Candidate file: one SMILES per line, optionally followed by a name; '#' starts a comment."""
-    p = Path(path)
-    try:
-        text = p.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise SpecmatchError(f"candidate file '{path}' not found") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise SpecmatchError(f"cannot read candidate file '{path}': {exc}") from None
-    smiles, names = [], []
-    for line in text.splitlines():
-        line = line.split("#", 1)[0].strip() if not line.lstrip().startswith("#") else ""
-        if not line:
-            continue
-        parts = line.split(None, 1)
-        smiles.append(parts[0])
-        names.append(parts[1].strip() if len(parts) > 1 else parts[0])
-    if not smiles:
-        raise SpecmatchError(f"candidate file '{path}' lists no structures; write one SMILES per line")
-    return smiles, names
-
-
 def mixture_from_files(h1_path: str | Path, candidates_path: str | Path, *, solvent: str | None = None
                        ) -> MixtureEstimate:
     """``specmatch mixture``: read the 1H file (spectrum or CSV peak list) and the candidates."""
-    smiles, names = read_candidates(candidates_path)
-    try:
-        from ...spectra import read_spectrum
-    except (ImportError, AttributeError):
-        raise SpecmatchError("reading spectrum files is not available in this installation") from None
+    from ...spectra import read_spectrum
+    from ..candidates import read_candidates
+
+    lines = read_candidates(candidates_path)
+    smiles, names = [c.smiles for c in lines], [c.name for c in lines]
     obj = read_spectrum(str(h1_path))
     if getattr(obj, "nucleus", "1H") != "1H":
         raise SpecmatchError(

@@ -185,7 +185,7 @@ def cross_validated(a) -> None:
                         _, pred, y = fh.residuals_c13(rec, sh)
                     else:
                         _, pred, y = fh.residuals_h1(rec, sh)
-                    e = [abs(p - o) for p, o in zip(pred, y)]
+                    e = [abs(p - o) for p, o in zip(pred, y) if o == o]  # unpaired (NaN) left out
                     which["wide"] += e
                     if rec["core"]:
                         which["core"] += e
@@ -194,6 +194,8 @@ def cross_validated(a) -> None:
                     _, pred, y = fh.residuals_c13(rec, shifts)
                     atoms = [x for sg in rec["signals"] for x in sg[0]]
                     for atom, p, o in zip(atoms, pred, y):
+                        if o != o:
+                            continue
                         for c in carbon_class(mol, atom):
                             per_class.setdefault(c, []).append(abs(p - o))
         fmt = ".2f" if nucleus == "13C" else ".3f"

@@ -46,7 +46,7 @@ sys.path.insert(0, os.path.join(ROOT, "benchmarks"))
 from specmatch.errors import SpecmatchError  # noqa: E402
 from specmatch.prediction.c13.predictor import predict_carbons  # noqa: E402
 from specmatch.prediction.h1.predictor import predict_protons  # noqa: E402
-from specmatch.prediction.hose import TABLE_DIR, MolCodes, rank_tags, write_table  # noqa: E402
+from specmatch.prediction.hose import TABLE_DIR, MolCodes, fold_of_block, rank_tags, write_table  # noqa: E402
 from specmatch.structures import parse_structure  # noqa: E402
 
 H_OF = {"S": 0, "D": 1, "T": 2, "Q": 3}
@@ -56,9 +56,7 @@ FOLDS = 5
 
 
 def fold_of(block: str) -> int:
-    import hashlib
-
-    return int(hashlib.md5(block.encode()).hexdigest(), 16) % FOLDS
+    return fold_of_block(block)
 
 
 def is_core(rec, mol) -> bool:
@@ -171,12 +169,13 @@ def residuals_h1(rec, shifts=None):
     return {k: float(np.mean(v)) for k, v in acc.items()}, pred, y
 
 
-def build(recs, nucleus, resid_of):
-    """(radius, code) -> [n, sum, sumsq] of clipped residuals."""
+def build(recs, nucleus, resid_of, by_fold: bool = False):
+    """(radius, code) -> [n, sum, sumsq] of clipped residuals (plus per-fold sums if asked)."""
     clip = CLIP[nucleus]
-    stats: dict[tuple[int, str], list[float]] = {}
+    stats: dict[tuple[int, str], list] = {}
     for rec in recs:
         res = resid_of(rec)
+        f = rec["fold"]
         for k, r in res.items():
             if not np.isfinite(r):
                 continue
@@ -184,18 +183,32 @@ def build(recs, nucleus, resid_of):
             for rad, code in enumerate(rec["signals"][k][4], start=1):
                 e = stats.get((rad, code))
                 if e is None:
-                    stats[(rad, code)] = [1, r, r * r]
-                else:
-                    e[0] += 1
-                    e[1] += r
-                    e[2] += r * r
+                    e = stats[(rad, code)] = [0, 0.0, 0.0, {}]
+                e[0] += 1
+                e[1] += r
+                e[2] += r * r
+                if by_fold:
+                    ef = e[3].setdefault(f, [0, 0.0, 0.0])
+                    ef[0] += 1
+                    ef[1] += r
+                    ef[2] += r * r
     return stats
+
+
+def fold_text(folds) -> str:
+    """Per-fold statistics as written in the table: fold:n:mean:sd joined by ';'."""
+    out = []
+    for f in sorted(folds):
+        n, s, ss = folds[f]
+        m = s / n
+        out.append(f"{f}:{n}:{m:.4f}:{max(ss / n - m * m, 0.0) ** 0.5:.4f}")
+    return ";".join(out)
 
 
 def finish(stats, min_n):
     """(radius, code) -> (n, mean, sd) for codes seen at least min_n times."""
     out = {}
-    for key, (n, s, ss) in stats.items():
+    for key, (n, s, ss, _) in stats.items():
         if n >= min_n:
             mean = s / n
             var = max(ss / n - mean * mean, 0.0)
@@ -382,8 +395,10 @@ def main() -> None:
         for nucleus, recs in (("13C", c13), ("1H", h1)):
             (k, radius, min_n), scale, cv_core, cv_wide = chosen[nucleus]
             resid_of = (lambda r: residuals_c13(r)[0]) if nucleus == "13C" else (lambda r: residuals_h1(r)[0])
-            table = finish(build(recs, nucleus, resid_of), min_n)
-            rows = sorted((r, code, n, mean, sd) for (r, code), (n, mean, sd) in table.items() if r <= radius)
+            stats = build(recs, nucleus, resid_of, by_fold=True)
+            table = finish(stats, min_n)
+            rows = sorted((r, code, n, mean, sd, fold_text(stats[(r, code)][3]))
+                          for (r, code), (n, mean, sd) in table.items() if r <= radius)
             name = "hose_c13.csv.gz" if nucleus == "13C" else "hose_h1.csv.gz"
             prov = [f"{nucleus} environment-code correction table (HOSE-style codes, Bremser, Anal. Chim. Acta 1978, 103, 355)",
                     f"fitted on the nmrshiftdb2 development part (../shared/reference/nmrshiftdb2_dev.jsonl; "
@@ -391,7 +406,10 @@ def main() -> None:
                     "rows: residual (measured minus increment prediction, specbench pairing) per code: count, "
                     f"mean, sd; residuals clipped at +-{CLIP[nucleus]:g} ppm; codes seen >= {min_n} times",
                     f"chosen by 5-fold cross-validation grouped by InChIKey block: MAE core {cv_core:.3f}, "
-                    f"wide {cv_wide:.3f} ppm", "rebuilt by: python benchmarks/fit_hose.py "
+                    f"wide {cv_wide:.3f} ppm",
+                    "by_fold: the same statistics per development fold (md5 of the InChIKey block mod 5), "
+                    "used with SPECMATCH_CROSS_VALIDATED=1 to correct development molecules out of fold",
+                    "rebuilt by: python benchmarks/fit_hose.py "
                     "../shared/reference/nmrshiftdb2_dev.jsonl --write"]
             write_table(TABLE_DIR / name, rows, prov, k, radius, scale)
             size = os.path.getsize(TABLE_DIR / name)

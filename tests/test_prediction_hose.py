@@ -45,8 +45,8 @@ def test_different_environments_get_different_codes():
 
 
 def test_shrinkage_walks_outward_and_stops_at_an_unknown_code():
-    table = HoseTable({'1,"a"': "3,2.0,0.5", '2,"b"': "1,10.0,0.1"}, shrink=1.0, max_radius=3,
-                      provenance="test")
+    table = HoseTable({'1,"a"': "3,2.0,0.5,0:3:2.0:0.5", '2,"b"': "1,10.0,0.1,3:1:10.0:0.1"},
+                      shrink=1.0, max_radius=3, provenance="test")
     assert table.entry(1, "a") == HoseEntry(3, 2.0, 0.5) and table.entry(1, "b") is None
     corr, sigma, depth = table.correct(["a", "b", "unknown"], base_sigma=2.0)
     # radius 1: w = 3/4 -> 1.5; radius 2: w = 1/2 -> 0.5*10 + 0.5*1.5 = 5.75
@@ -57,6 +57,17 @@ def test_shrinkage_walks_outward_and_stops_at_an_unknown_code():
     assert sigma == pytest.approx(var2 ** 0.5)
     # an unknown first code leaves the increments alone
     assert table.correct(["x", "b"], base_sigma=2.0) == (0.0, 2.0, 0)
+
+
+def test_leaving_a_fold_out_removes_its_contribution():
+    # cross-validated mode: statistics without fold 3 are those of fold 0 alone
+    # (residuals 1, 2 in fold 0 and 3 in fold 3: all three have mean 2, sd 0.8165)
+    table = HoseTable({'1,"a"': "3,2.0,0.8165,0:2:1.5:0.5;3:1:3.0:0.0", '2,"b"': "1,10.0,0.1,3:1:10.0:0.1"},
+                      shrink=1.0, max_radius=3, provenance="test")
+    e = table.entry(1, "a", exclude_fold=3)
+    assert e.n == 2 and e.mean == pytest.approx(1.5) and e.sd == pytest.approx(0.5, abs=1e-3)
+    assert table.entry(2, "b", exclude_fold=3) is None  # seen only in the left-out fold
+    assert table.entry(1, "a", exclude_fold=1) == table.entry(1, "a")
 
 
 def test_rank_tags_only_for_repeated_classes():

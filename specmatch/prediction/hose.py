@@ -19,13 +19,22 @@ shrinks each radius's mean toward the previous radius by its count
 barely does, an unknown one stops the walk and the increments stand. The
 variance is shrunk the same way from the increment sigma, so rare environments
 keep the wide increment sigma.
+
+Cross-validated mode. Each row also keeps its statistics per development fold
+(5 folds by InChIKey connectivity block, the folds of the fitting scripts). With
+the environment variable ``SPECMATCH_CROSS_VALIDATED=1`` a molecule is corrected
+with the table minus its own fold's contribution, so fitting the identification
+error model or benchmarking on the development data sees out-of-fold errors
+rather than the table's memory of those very molecules. Users never need it.
 """
 
 from __future__ import annotations
 
 import gzip
+import hashlib
 import io
 import math
+import os
 import re
 from dataclasses import dataclass
 from functools import lru_cache
@@ -36,6 +45,21 @@ from rdkit import Chem
 
 TABLE_DIR = Path(__file__).resolve().parent / "tables"
 MAX_RADIUS = 4
+FOLDS = 5
+#: correct development molecules with their own fold left out (see the module docstring)
+CROSS_VALIDATED = os.environ.get("SPECMATCH_CROSS_VALIDATED", "") == "1"
+
+
+def fold_of_block(block: str) -> int:
+    """Development fold of an InChIKey connectivity block (as the fitting scripts split)."""
+    return int(hashlib.md5(block.encode()).hexdigest(), 16) % FOLDS
+
+
+def fold_of_mol(mol: Chem.Mol) -> int | None:
+    """The fold of a molecule in cross-validated mode, None otherwise."""
+    if not CROSS_VALIDATED:
+        return None
+    return fold_of_block(Chem.MolToInchiKey(mol).split("-")[0])
 
 _BOND = {Chem.BondType.SINGLE: "-", Chem.BondType.DOUBLE: "=", Chem.BondType.TRIPLE: "#",
          Chem.BondType.AROMATIC: ":"}
@@ -165,15 +189,32 @@ class HoseTable:
     provenance: str
     sigma_scale: float = 1.0
 
-    def entry(self, radius: int, code: str) -> HoseEntry | None:
-        """Statistics of one code at one radius, or None if the code was not seen."""
+    def entry(self, radius: int, code: str, exclude_fold: int | None = None) -> HoseEntry | None:
+        """Statistics of one code at one radius, or None if the code was not seen.
+
+        With ``exclude_fold`` the statistics leave out that development fold.
+        """
         v = self.rows.get(f'{radius},"{code}"')
         if v is None:
             return None
-        n, mean, sd = v.split(",")
-        return HoseEntry(int(n), float(mean), float(sd))
+        n_t, mean_t, sd_t, folds = v.split(",")
+        n, mean, sd = int(n_t), float(mean_t), float(sd_t)
+        if exclude_fold is None:
+            return HoseEntry(n, mean, sd)
+        for part in folds.split(";"):
+            f, nf_t, mf_t, sf_t = part.split(":")
+            if int(f) == exclude_fold:
+                nf, mf, sf = int(nf_t), float(mf_t), float(sf_t)
+                rest = n - nf
+                if rest <= 0:
+                    return None
+                m = (n * mean - nf * mf) / rest
+                ss = n * (sd * sd + mean * mean) - nf * (sf * sf + mf * mf)
+                return HoseEntry(rest, m, math.sqrt(max(ss / rest - m * m, 0.0)))
+        return HoseEntry(n, mean, sd)
 
-    def correct(self, codes: list[str], base_sigma: float) -> tuple[float, float, int]:
+    def correct(self, codes: list[str], base_sigma: float, exclude_fold: int | None = None
+                ) -> tuple[float, float, int]:
         """Correction (ppm), sigma (ppm) and the deepest radius found for one atom.
 
         Each radius's mean is shrunk toward the previous radius's corrected value,
@@ -186,7 +227,7 @@ class HoseTable:
         depth = 0
         k = self.shrink
         for r, code in enumerate(codes[: self.max_radius], start=1):
-            e = self.entry(r, code)
+            e = self.entry(r, code, exclude_fold)
             if e is None:
                 break
             w = e.n / (e.n + k)
@@ -218,18 +259,19 @@ def read_table(path: Path) -> HoseTable:
     return HoseTable(dict(_ROW.findall(text)), shrink, max_radius, "\n".join(head), scale)
 
 
-def write_table(path: Path, rows: list[tuple[int, str, int, float, float]], provenance: list[str],
+def write_table(path: Path, rows: list[tuple[int, str, int, float, float, str]], provenance: list[str],
                 shrink: float, max_radius: int, sigma_scale: float) -> None:
-    """Write a correction table: provenance lines, then radius, code, n, mean, sd per row."""
+    """Write a correction table: provenance lines, then radius, code, n, mean, sd and the
+    per-fold statistics (``fold:n:mean:sd`` joined by ``;``) per row."""
     with gzip.GzipFile(path, "wb", mtime=0) as raw:  # mtime 0: same bytes for the same table
         with io.TextIOWrapper(raw, encoding="utf-8", newline="") as fh:
             for line in provenance:
                 fh.write(f"# {line}\n")
             fh.write(f"# shrink {shrink:g}\n# max_radius {max_radius}\n# sigma_scale {sigma_scale:.3f}\n")
             # codes are always quoted (they hold commas) and never contain quotes
-            fh.write("radius,code,n,mean_ppm,sd_ppm\n")
-            for r, code, n, mean, sd in rows:
-                fh.write(f'{r},"{code}",{n},{mean:.3f},{sd:.3f}\n')
+            fh.write("radius,code,n,mean_ppm,sd_ppm,by_fold\n")
+            for r, code, n, mean, sd, folds in rows:
+                fh.write(f'{r},"{code}",{n},{mean:.4f},{sd:.4f},{folds}\n')
 
 
 @lru_cache(maxsize=4)

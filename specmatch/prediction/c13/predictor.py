@@ -19,7 +19,7 @@ from rdkit.Chem import BondType
 
 from ...structures import Structure
 from ...structures.molecule import deuterium_counts
-from ..hose import MolCodes, load_table, rank_tags
+from ..hose import MolCodes, fold_of_mol, load_table, rank_tags
 from ..model import CarbonShift
 from .environment import carbon_environments, is_correction, nearest_term
 from .tables import SIGMA as _SIGMA, SUPPORT as _SUPPORT, TABLES_VERSION, VALUE as _VALUE
@@ -200,12 +200,13 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
     if table is not None and out:
         codes = codes or MolCodes(mol)
         cls = structure.symmetry_classes
+        fold = fold_of_mol(structure.mol)  # None unless SPECMATCH_CROSS_VALIDATED=1
         tags = rank_tags([cls[c.atoms[0]] for c in out], [c.shift for c in out])
         for k, (c, tag) in enumerate(zip(out, tags)):
             if kinds[k] == "other":
                 continue
             corr, sigma, depth = table.correct([x + tag for x in codes.codes(c.atoms[0], table.max_radius)],
-                                               c.sigma)
+                                               c.sigma, fold)
             if depth:
                 out[k] = replace(c, shift=c.shift + corr, sigma=sigma)
     if any(deuterium_counts(mol)):

@@ -15,7 +15,7 @@ from dataclasses import replace
 from ...errors import SpecmatchError
 from ...structures import Structure
 from ...structures.molecule import deuterium_counts
-from ..hose import MolCodes, load_table, rank_tags
+from ..hose import MolCodes, fold_of_mol, load_table, rank_tags
 from ..model import ProtonGroup
 from ..multiplicity import multiplicity
 from .environment import proton_sites
@@ -87,10 +87,11 @@ def predict_protons(structure: Structure, *, correction: bool = True, codes: Mol
     if table is not None and groups:
         codes = codes or MolCodes(structure.mol)
         cls = structure.symmetry_classes
+        fold = fold_of_mol(structure.mol)  # None unless SPECMATCH_CROSS_VALIDATED=1
         tags = rank_tags([cls[g.atoms[0]] for g in groups], [g.shift for g in groups])
         for k, (g, tag) in enumerate(zip(groups, tags)):
             corr, sigma, depth = table.correct([x + tag for x in codes.codes(g.atoms[0], table.max_radius)],
-                                               g.sigma)
+                                               g.sigma, fold)
             if depth:
                 groups[k] = replace(g, shift=g.shift + corr, sigma=sigma)
     return groups, warnings

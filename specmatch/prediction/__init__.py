@@ -22,8 +22,11 @@ def predict_structure(structure: Structure) -> Prediction:
     from .c13.predictor import TABLES_VERSION as C_VERSION, predict_carbons
     from .h1.predictor import TABLES_VERSION as H_VERSION, predict_protons
 
-    carbons, c_warn = predict_carbons(structure)
-    protons, h_warn = predict_protons(structure)
+    from .hose import MolCodes
+
+    codes = MolCodes(structure.mol)  # one code builder for both nuclei
+    carbons, c_warn = predict_carbons(structure, codes=codes)
+    protons, h_warn = predict_protons(structure, codes=codes)
     return Prediction(
         smiles=structure.smiles,
         canonical_smiles=structure.canonical_smiles,

@@ -38,6 +38,7 @@ import os
 import re
 from dataclasses import dataclass
 from functools import lru_cache
+from collections.abc import Iterable, Iterator
 from pathlib import Path
 from typing import NamedTuple
 
@@ -89,6 +90,11 @@ class MolCodes:
 
     def codes(self, centre: int, max_radius: int = MAX_RADIUS) -> list[str]:
         """Codes of radius 1..max_radius around one atom (index r-1 is radius r)."""
+        return list(self.iter_codes(centre, max_radius))
+
+    def iter_codes(self, centre: int, max_radius: int = MAX_RADIUS) -> Iterator[str]:
+        """The codes of radius 1, 2, ... one at a time: a lookup that stops at an unknown
+        code never pays for the larger spheres."""
         nbrs, token = self.nbrs, self.token
         # distances from the centre by breadth-first search, up to max_radius
         d = {centre: 0}
@@ -125,11 +131,9 @@ class MolCodes:
             memo[key] = s
             return s
 
-        out = []
         head = token[centre]
         for r in range(1, max_radius + 1):
-            out.append(head + branch(centre, r))
-        return out
+            yield head + branch(centre, r)
 
 
 def rank_tags(keys: list[int], shifts: list[float]) -> list[str]:
@@ -213,7 +217,7 @@ class HoseTable:
                 return HoseEntry(rest, m, math.sqrt(max(ss / rest - m * m, 0.0)))
         return HoseEntry(n, mean, sd)
 
-    def correct(self, codes: list[str], base_sigma: float, exclude_fold: int | None = None
+    def correct(self, codes: Iterable[str], base_sigma: float, exclude_fold: int | None = None
                 ) -> tuple[float, float, int]:
         """Correction (ppm), sigma (ppm) and the deepest radius found for one atom.
 
@@ -226,7 +230,9 @@ class HoseTable:
         var = base_sigma * base_sigma
         depth = 0
         k = self.shrink
-        for r, code in enumerate(codes[: self.max_radius], start=1):
+        for r, code in enumerate(codes, start=1):
+            if r > self.max_radius:
+                break
             e = self.entry(r, code, exclude_fold)
             if e is None:
                 break

@@ -205,10 +205,10 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
         for k, (c, tag) in enumerate(zip(out, tags)):
             if kinds[k] == "other":
                 continue
-            corr, sigma, depth = table.correct([x + tag for x in codes.codes(c.atoms[0], table.max_radius)],
+            corr, sigma, depth = table.correct((x + tag for x in codes.iter_codes(c.atoms[0], table.max_radius)),
                                                c.sigma, fold)
             if depth:
-                out[k] = replace(c, shift=c.shift + corr, sigma=sigma)
+                out[k] = CarbonShift(c.atoms, c.shift + corr, sigma, c.hydrogens, c.environment, c.fallback)
     if any(deuterium_counts(mol)):
         out = _deuterated(out, deuterium_counts(mol), warnings)
     return out, warnings

@@ -21,7 +21,7 @@ from ..multiplicity import multiplicity
 from .environment import proton_sites
 from .tables import load_tables
 
-TABLES_VERSION = "h1-2026.12-1"
+TABLES_VERSION = "h1-2026.12-1+codes-2026-12-02"
 
 
 def _check_deuterium(structure: Structure) -> None:
@@ -90,7 +90,7 @@ def predict_protons(structure: Structure, *, correction: bool = True, codes: Mol
         fold = fold_of_mol(structure.mol)  # None unless SPECMATCH_CROSS_VALIDATED=1
         tags = rank_tags([cls[g.atoms[0]] for g in groups], [g.shift for g in groups])
         for k, (g, tag) in enumerate(zip(groups, tags)):
-            corr, sigma, depth = table.correct([x + tag for x in codes.codes(g.atoms[0], table.max_radius)],
+            corr, sigma, depth = table.correct((x + tag for x in codes.iter_codes(g.atoms[0], table.max_radius)),
                                                g.sigma, fold)
             if depth:
                 groups[k] = replace(g, shift=g.shift + corr, sigma=sigma)

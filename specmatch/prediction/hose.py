@@ -62,6 +62,7 @@ def fold_of_mol(mol: Chem.Mol) -> int | None:
         return None
     return fold_of_block(Chem.MolToInchiKey(mol).split("-")[0])
 
+
 _BOND = {Chem.BondType.SINGLE: "-", Chem.BondType.DOUBLE: "=", Chem.BondType.TRIPLE: "#",
          Chem.BondType.AROMATIC: ":"}
 
@@ -69,9 +70,9 @@ _BOND = {Chem.BondType.SINGLE: "-", Chem.BondType.DOUBLE: "=", Chem.BondType.TRI
 class MolCodes:
     """Per-molecule arrays for code building (read once from RDKit)."""
 
-    __slots__ = ("n", "token", "nbrs", "dist")
+    __slots__ = ("n", "token", "nbrs")
 
-    def __init__(self, mol: Chem.Mol, dist=None):
+    def __init__(self, mol: Chem.Mol):
         n = self.n = mol.GetNumAtoms()
         token = []
         for i in range(n):
@@ -79,14 +80,15 @@ class MolCodes:
             s = a.GetSymbol()
             token.append((s.lower() if a.GetIsAromatic() else s) + str(a.GetTotalNumHs()))
         self.token = token
-        nbrs: list[list[tuple[int, str]]] = [[] for _ in range(n)]
-        for b in mol.GetBonds():
+        # per atom: (neighbour, bond symbol, bond symbol + neighbour token), strings built once
+        nbrs: list[list[tuple[int, str, str]]] = [[] for _ in range(n)]
+        for k in range(mol.GetNumBonds()):
+            b = mol.GetBondWithIdx(k)
             i, j = b.GetBeginAtomIdx(), b.GetEndAtomIdx()
             sym = _BOND.get(b.GetBondType(), "~")
-            nbrs[i].append((j, sym))
-            nbrs[j].append((i, sym))
+            nbrs[i].append((j, sym, sym + token[j]))
+            nbrs[j].append((i, sym, sym + token[i]))
         self.nbrs = nbrs
-        self.dist = dist
 
     def codes(self, centre: int, max_radius: int = MAX_RADIUS) -> list[str]:
         """Codes of radius 1..max_radius around one atom (index r-1 is radius r)."""
@@ -102,7 +104,7 @@ class MolCodes:
         for r in range(1, max_radius + 1):
             nxt = []
             for x in frontier:
-                for y, _ in nbrs[x]:
+                for y, _, _ in nbrs[x]:
                     if y not in d:
                         d[y] = r
                         nxt.append(y)
@@ -119,12 +121,12 @@ class MolCodes:
                 return got
             dx = d[x]
             parts = []
-            for y, b in nbrs[x]:
+            for y, b, bt in nbrs[x]:
                 dy = d.get(y)
                 if dy is None:
                     continue
                 if dy == dx + 1:
-                    parts.append(b + (token[y] if depth == 1 else token[y] + branch(y, depth - 1)))
+                    parts.append(bt if depth == 1 else bt + branch(y, depth - 1))
                 elif dy == dx and dx > 0:
                     parts.append(b + "&")
             s = "(" + ",".join(sorted(parts)) + ")" if parts else ""

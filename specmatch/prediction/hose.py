@@ -36,7 +36,7 @@ import io
 import math
 import os
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from functools import lru_cache
 from collections.abc import Iterable, Iterator
 from pathlib import Path
@@ -194,19 +194,27 @@ class HoseTable:
     max_radius: int
     provenance: str
     sigma_scale: float = 1.0
+    #: parsed entries met so far (common codes recur in almost every molecule)
+    _parsed: dict[str, HoseEntry | None] = field(default_factory=dict, compare=False, repr=False)
 
     def entry(self, radius: int, code: str, exclude_fold: int | None = None) -> HoseEntry | None:
         """Statistics of one code at one radius, or None if the code was not seen.
 
         With ``exclude_fold`` the statistics leave out that development fold.
         """
-        v = self.rows.get(f'{radius},"{code}"')
+        key = f'{radius},"{code}"'
+        if exclude_fold is None:
+            got = self._parsed.get(key, False)
+            if got is not False:
+                return got
+        v = self.rows.get(key)
         if v is None:
             return None
         n_t, mean_t, sd_t, folds = v.split(",")
         n, mean, sd = int(n_t), float(mean_t), float(sd_t)
         if exclude_fold is None:
-            return HoseEntry(n, mean, sd)
+            e = self._parsed[key] = HoseEntry(n, mean, sd)
+            return e
         for part in folds.split(";"):
             f, nf_t, mf_t, sf_t = part.split(":")
             if int(f) == exclude_fold:

@@ -11,6 +11,7 @@ import hashlib
 import os
 import time
 
+from specmatch import __version__
 from specmatch.errors import SpecmatchError
 
 
@@ -37,7 +38,7 @@ def echo_runner(row: dict, base_dir: str) -> dict:
     return {
         "inputs": {"substrate": row["substrate"], "reagent": row["reagent"],
                    "solvent": row.get("solvent") or None},
-        "versions": {"specmatch": "test", "tables": "none (test runner)"},
+        "versions": {"specmatch": __version__, "prediction_tables": "none (test runner)"},
         "candidates": [{"smiles": s, "probability": 1.0 / len(cands)} for s in cands],
         "verdict": {"word": "tentative", "top": cands[0], "p_top": 1.0 / len(cands)},
         "files_seen": digest,

@@ -6,10 +6,6 @@ import json
 import subprocess
 import sys
 
-import pytest
-
-from specmatch.errors import SpecmatchError
-from specmatch.prediction.batch import AUTO_PARALLEL_MIN, predict_rows, resolve_workers
 
 
 def run(*args: str) -> subprocess.CompletedProcess:
@@ -37,18 +33,16 @@ def test_clean_batch_exits_0(tmp_path):
     assert p.returncode == 0 and "2 predicted, 0 failed" in p.stderr
 
 
-def test_workers_give_the_same_rows_in_the_same_order():
-    lines = ["CCO", "CC(C)Br", "bad(", "C=CC", "OC1CCCCC1", "CC#N"] * 30
-    one = list(predict_rows(lines, workers=1))
-    two = list(predict_rows(lines, workers=2))
-    assert one == two and len(one) == len(lines)
-
-
-def test_worker_policy():
-    assert resolve_workers(None, AUTO_PARALLEL_MIN - 1) == 1
-    assert resolve_workers(3, 10) == 3
-    with pytest.raises(SpecmatchError):
-        resolve_workers(0, 10)
+def test_workers_give_the_same_rows_in_the_same_order(tmp_path):
+    src = tmp_path / "in.smi"
+    src.write_text("CCO\nCC(C)Br\nbad(\nC=CC\nOC1CCCCC1\nCC#N\n" * 5, encoding="utf-8")
+    outs = []
+    for workers in ("0", "2"):
+        out = tmp_path / f"out{workers}.jsonl"
+        p = run("--batch", str(src), "--out", str(out), "--workers", workers)
+        assert p.returncode == 1  # the bad lines
+        outs.append(out.read_text(encoding="utf-8").splitlines())
+    assert outs[0] == outs[1] and len(outs[0]) == 30
 
 
 def test_bad_workers_option_is_a_usage_error(tmp_path):

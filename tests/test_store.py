@@ -202,6 +202,9 @@ def test_save_refuses_data_that_is_not_json(sqlite_url):
         assert st.count() == 0
 
 
+OLD_DATA = json.dumps({"inputs": {"substrate": "C=CC"}})
+
+
 def _make_v1_store(url: str) -> str:
     """A store as the first schema version left it, with one analysis in it."""
     from specmatch.store.store import Store, _make_engine
@@ -215,8 +218,9 @@ def _make_v1_store(url: str) -> str:
             "tool_version, tables_version, note, data_json, data_sha256) VALUES "
             "('00000000000000000000000000000001', '00000000000000000000000000000001', NULL, 1, "
             "'analysis', :t, 'old user', 'OLD-1', 'C=CC', 'C=CC', 'HBr', 'likely', 'CC(C)Br', "
-            "0.9, '0.0.9', 'v0', NULL, :d, 'x')"),
-            {"t": dt.datetime(2026, 1, 5, 9, 30), "d": json.dumps({"inputs": {"substrate": "C=CC"}})})
+            "0.9, '0.0.9', 'v0', NULL, :d, :h)"),
+            {"t": dt.datetime(2026, 1, 5, 9, 30), "d": OLD_DATA,
+             "h": hashlib.sha256(OLD_DATA.encode()).hexdigest()})
     with st.engine.connect() as conn:
         assert migrations.current_version(conn) == 1
         cols = [r[0] for r in conn.execute(text("SELECT * FROM analyses")).cursor.description]
@@ -240,8 +244,8 @@ def test_upgrade_from_v1_keeps_old_analyses(store_url):
             with raw.begin() as conn:
                 conn.exec_driver_sql("UPDATE analyses SET verdict = 'x'")
         raw.dispose()
-        new = st.save(result_dict(), FILES, input_key="k" * 64, sample_id="NEW")
-        assert st.find_done("NEW", "k" * 64) == new
+        new = st.save(result_dict(), FILES, input_key="c" * 64, sample_id="NEW")
+        assert st.find_done("NEW", "c" * 64) == new
     with open_store(store_url) as st:  # opening again is a no-op
         assert st.schema_version == SCHEMA_VERSION and st.count() == 2
 

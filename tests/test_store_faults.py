@@ -18,19 +18,20 @@ import pytest
 from sqlalchemy.exc import OperationalError
 from test_store_support import result_dict, sqlite_url, store_url  # noqa: F401 (fixtures)
 
+from specmatch.errors import SpecmatchError
 from specmatch.store import open_store
 from specmatch.store import store as store_mod
 
 SAVE_LOOP = textwrap.dedent("""
     import hashlib, os, sys
     from specmatch.store import open_store
+    from test_store_support import result_dict
     st = open_store(sys.argv[1])
     i = int(sys.argv[2])
     while True:
         payload = os.urandom(256 * 1024)   # a fresh blob every time: each save writes pages
         print("begin", i, flush=True)
-        aid = st.save({"inputs": {"substrate": "C=CC", "reagent": "HBr"}, "n": i,
-                       "payload_sha256": hashlib.sha256(payload).hexdigest()},
+        aid = st.save(dict(result_dict(), n=i, payload_sha256=hashlib.sha256(payload).hexdigest()),
                       {"spectrum_%d.bin" % i: payload}, sample_id="K%d" % i)
         print("saved", i, aid, flush=True)
         i += 1
@@ -45,10 +46,11 @@ CONCURRENT = textwrap.dedent("""
     while not go.exists():
         time.sleep(0.002)
     from specmatch.store import open_store
+    from test_store_support import result_dict
     st = open_store(url)           # both may create the schema at the same moment
     shared = b"shared invented spectrum\\n" * 2000
     for i in range(n):
-        st.save({"inputs": {"substrate": "C=CC", "reagent": "HBr"}, "tag": tag, "n": i},
+        st.save(dict(result_dict(), tag=tag, n=i),
                 {"shared.jdx": shared, "%s-%d.txt" % (tag, i): ("%s %d" % (tag, i)).encode()},
                 sample_id="%s-%d" % (tag, i))
     print("ok", n)
@@ -58,7 +60,8 @@ CONCURRENT = textwrap.dedent("""
 def _env() -> dict[str, str]:
     env = dict(os.environ)
     root = str(Path(__file__).resolve().parents[1])
-    env["PYTHONPATH"] = root + os.pathsep + env.get("PYTHONPATH", "")
+    env["PYTHONPATH"] = os.pathsep.join([root, str(Path(__file__).parent),
+                                         env.get("PYTHONPATH", "")])
     return env
 
 
@@ -173,8 +176,8 @@ def test_locked_database_is_retried(sqlite_url, monkeypatch):
         aid = st.save(result_dict(), {})
         assert calls["n"] == 3 and st.get(aid).verdict == "likely"
 
-        calls["n"] = -100  # a lock that never goes away ends in the error, after the attempts
-        with pytest.raises(OperationalError, match="locked"):
+        calls["n"] = -100  # a lock that never goes away ends in a clear error, after the attempts
+        with pytest.raises(SpecmatchError, match="stayed locked"):
             st.save(result_dict(), {})
         assert calls["n"] == -100 + store_mod.WRITE_ATTEMPTS
 
@@ -184,6 +187,6 @@ def test_locked_database_is_retried(sqlite_url, monkeypatch):
 
         calls["n"] = 0
         monkeypatch.setattr(st, "_begin_write", broken)
-        with pytest.raises(OperationalError, match="disk I/O"):
+        with pytest.raises(SpecmatchError, match="disk I/O"):
             st.save(result_dict(), {})
         assert calls["n"] == 1  # other errors are not retried

@@ -80,11 +80,13 @@ def result_dict(substrate: str = "C=CC(C)C", reagent: str = "HBr", *,
 
     The chemistry in it is invented for the tests; only its shape matters here.
     """
+    from specmatch import __version__
+
     other = "CC(Br)C(C)C" if top != "CC(Br)C(C)C" else "CC(C)(Br)CC"
     return {
         "inputs": {"substrate": substrate, "reagent": reagent, "solvent": "CDCl3",
                    "alcohol": None, "candidates": []},
-        "versions": {"specmatch": "0.1.0", "tables": "13C test-1; 1H test-1",
+        "versions": {"specmatch": __version__, "prediction_tables": "13C test-1; 1H test-1",
                      "error_model": "test"},
         "candidates": [
             {"smiles": top, "canonical_smiles": top, "probability": p_top, "label": "rearranged"},

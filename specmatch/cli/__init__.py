@@ -21,7 +21,7 @@ from ..errors import SpecmatchError
 EXIT_USER_ERROR = 2
 
 #: modules with a ``register(sub)`` function, in the order ``--help`` lists them
-_COMMAND_MODULES = ("predict", "enumerate", "peaks", "rank", "identify", "history")
+_COMMAND_MODULES = ("predict", "enumerate", "peaks", "rank", "identify", "history", "app")
 
 
 def build_parser() -> argparse.ArgumentParser:

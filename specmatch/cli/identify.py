@@ -31,20 +31,23 @@ def cmd_identify(args: argparse.Namespace) -> int:
         from ..reports.html import write_report
 
         write_report(result, args.report)
-    saved_id = None
-    if args.save:
-        from ..store import save_run
-
-        saved_id = save_run(result, {"c13": args.c13, "h1": args.h1, "dept135": args.dept135},
-                            store=args.store, sample_id=args.sample_id, user=args.user)
+    # the verdict first: a save that fails (read-only store, full disk) must not hide it
     if args.json:
         _print_json(result.to_dict())
     else:
         print(result_text(result))
         if args.report:
             print(f"\nreport written to {args.report}")
-        if saved_id:
-            print(f"saved as analysis {saved_id} (see 'specmatch history show {saved_id[:12]}')")
+    if args.save:
+        import sys
+
+        from ..store import save_run
+
+        sys.stdout.flush()
+        saved_id = save_run(result, {"c13": args.c13, "h1": args.h1, "dept135": args.dept135},
+                            store=args.store, sample_id=args.sample_id, user=args.user)
+        print(f"saved as analysis {saved_id} (see 'specmatch history show {saved_id[:12]}')",
+              file=sys.stderr if args.json else sys.stdout)
     return 0
 
 

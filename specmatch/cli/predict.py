@@ -9,6 +9,10 @@ import sys
 from ..errors import SpecmatchError
 from ._common import _open_out, _print_json, _progress, _read_lines
 
+#: molecules that pay for a worker's start-up (a prediction takes a few milliseconds,
+#: a spawned worker about a second to import RDKit and read the tables)
+PER_WORKER = 200
+
 
 def cmd_predict(args: argparse.Namespace) -> int:
     from ..prediction import predict
@@ -27,39 +31,38 @@ def cmd_predict(args: argparse.Namespace) -> int:
 
 
 def _batch(args: argparse.Namespace) -> int:
-    """Every line gets its row (in order); a one-line summary on stderr; exit 1 if any molecule failed."""
-    from ..prediction.batch import predict_rows
+    """Every line gets its row (in order, on the shared executor); a one-line summary on
+    stderr; exit 1 if any molecule failed."""
+    from contextlib import closing
+
+    from ..executor import plan_workers, run_tasks
+    from ..prediction.batch import predict_row
 
     if not args.out:
         raise SpecmatchError("--batch needs --out OUT.jsonl")
     lines = _read_lines(args.batch)
+    plan = plan_workers(len(lines), args.workers, per_worker=PER_WORKER)
     n_ok = n_failed = n_skipped = 0
     first_error = ""
-    with _open_out(args.out) as out, _progress(len(lines), "predict") as bar:
-        for k, row in enumerate(predict_rows(lines, args.workers), start=1):
-            out.write(json.dumps(row) + "\n")
-            if row["ok"]:
-                n_ok += 1
-            elif row.get("skipped"):
-                n_skipped += 1
-            else:
-                n_failed += 1
-                first_error = first_error or f"line {k}: {row['error']}"
-            bar.update()
+    with _open_out(args.out) as out, _progress(len(lines), "predict") as bar, \
+            closing(run_tasks(predict_row, lines, plan, ordered=True, chunk=64)) as outcomes:
+        for group in outcomes:
+            for o in group:
+                row = o.value if o.ok else {"smiles": lines[o.index], "ok": False, "error": o.error}
+                out.write(json.dumps(row) + "\n")
+                if row["ok"]:
+                    n_ok += 1
+                elif row.get("skipped"):
+                    n_skipped += 1
+                else:
+                    n_failed += 1
+                    first_error = first_error or f"line {o.index + 1}: {row['error']}"
+                bar.update()
     summary = f"predict: {n_ok} predicted, {n_failed} failed, {n_skipped} blank/comment lines -> {args.out}"
     if first_error:
         summary += f" (first failure, {first_error})"
     print(summary, file=sys.stderr)
     return 1 if n_failed else 0
-
-
-def _workers(text: str) -> int | None:
-    if text == "auto":
-        return None
-    try:
-        return int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"'{text}' is not a number of processes or 'auto'") from None
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -69,9 +72,9 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--json", action="store_true", help="print JSON")
     p.add_argument("--batch", metavar="FILE", help="one SMILES per line")
     p.add_argument("--out", metavar="OUT.jsonl", help="with --batch: where to write results")
-    p.add_argument("--workers", type=_workers, default=None, metavar="N",
-                   help="with --batch: processes to use (default auto: one for small batches, "
-                        "up to 4 from 1,000 lines)")
+    p.add_argument("--workers", type=int, default=None, metavar="N",
+                   help="with --batch: 0 = this process, N = N worker processes "
+                        "(default: $SPECMATCH_WORKERS, else automatic for large batches)")
     p.add_argument("--frequency", type=float, default=400.0, metavar="MHZ",
                    help="1H frequency for the peak text (default 400)")
     p.add_argument("--solvent", default="CDCl3", help="solvent named in the peak text")

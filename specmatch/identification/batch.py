@@ -6,9 +6,7 @@ The formats (also printed by ``specmatch rank --help``) are in :data:`FORMATS`.
 from __future__ import annotations
 
 import json
-import multiprocessing as mp
-import os
-from contextlib import nullcontext
+from contextlib import closing, nullcontext
 from typing import Any, Callable
 
 import numpy as np
@@ -127,19 +125,13 @@ def _row(item: tuple[int, str, int]) -> dict[str, Any]:
         return {"id": tid, "ok": False, "error": f"internal error: {type(exc).__name__}: {exc}"}
 
 
-#: batches at least this long are spread over worker processes
-PARALLEL_MIN_TASKS = 300
+#: tasks that pay for a worker's start-up (a task takes a few milliseconds)
+PER_WORKER = 150
 
 
-def _workers(n_tasks: int, workers: int | None) -> int:
-    if workers is not None:
-        return max(1, workers)
-    env = os.environ.get("SPECMATCH_WORKERS")
-    if env and env.isdigit():
-        return max(1, int(env))
-    if n_tasks < PARALLEL_MIN_TASKS:
-        return 1
-    return max(1, min(4, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1))
+def _warm() -> None:
+    """Worker initializer: read the error model once per worker."""
+    load_error_model()
 
 
 def rank_batch(in_path: str, out_path: str, progress: Callable[[int, str], Any] | None = None,
@@ -148,10 +140,12 @@ def rank_batch(in_path: str, out_path: str, progress: Callable[[int, str], Any] 
     """Rank every task of a JSON-lines file; returns the number of failed tasks
     (with ``count``: failed and total).
 
-    Long batches run in worker processes (at most 4, at most the CPUs available;
-    ``workers`` or the environment variable ``SPECMATCH_WORKERS`` override this);
-    the result lines keep the task order.
+    The tasks run through :func:`specmatch.executor.run_tasks` under its worker policy
+    (``workers`` or ``$SPECMATCH_WORKERS``, else automatic); the result lines keep the
+    task order.
     """
+    from ..executor import plan_workers, run_tasks
+
     try:
         with open(in_path, encoding="utf-8") as fh:
             lines = [ln for ln in fh.read().splitlines() if ln.strip()]
@@ -159,29 +153,22 @@ def rank_batch(in_path: str, out_path: str, progress: Callable[[int, str], Any] 
         raise SpecmatchError(f"cannot read '{in_path}': {exc.strerror}") from None
     except UnicodeDecodeError:
         raise SpecmatchError(f"cannot read '{in_path}': it is not UTF-8 text") from None
-    load_error_model()  # read once here, so forked workers inherit it
     try:
         out = open(out_path, "w", encoding="utf-8")
     except OSError as exc:
         raise SpecmatchError(f"cannot write '{out_path}': {exc.strerror}") from None
-    n_work = _workers(len(lines), workers)
-    pool = None
-    if n_work > 1 and "fork" in mp.get_all_start_methods():
-        # fork: the workers inherit the imported modules and tables, so start-up is cheap
-        pool = mp.get_context("fork").Pool(n_work)
+    plan = plan_workers(len(lines), workers, per_worker=PER_WORKER)
     items = [(n, line, max_components) for n, line in enumerate(lines, 1)]
-    rows = pool.imap(_row, items, chunksize=8) if pool else map(_row, items)
     failed = 0
-    try:
-        bar_cm = progress(len(lines), "rank") if progress else nullcontext()
-        with out, bar_cm as bar:
-            for row in rows:
+    bar_cm = progress(len(lines), "rank") if progress else nullcontext()
+    with out, bar_cm as bar, closing(run_tasks(_row, items, plan, ordered=True, chunk=16,
+                                                initializer=_warm)) as outcomes:
+        for group in outcomes:
+            for o in group:
+                # _row turns every error into a row; a lost worker still gives one
+                row = o.value if o.ok else {"id": None, "ok": False, "error": o.error}
                 failed += not row["ok"]
                 out.write(json.dumps(row) + "\n")
                 if bar is not None:
                     bar.update()
-    finally:
-        if pool is not None:
-            pool.close()
-            pool.join()
     return (failed, len(lines)) if count else failed

@@ -1,9 +1,11 @@
-"""Saved analyses with an audit trail, and resumable batches.
+"""Saved analyses with a tamper-evident audit trail, and resumable batches.
 
 ``open_store()`` opens the store (SQLite by default, any SQLAlchemy URL); every
-analysis is saved whole and immutable, corrections and notes become new versions.
-``specmatch.store.batch`` runs a manifest of samples on a process pool or a Dask
-cluster, saving each finished sample at once.
+analysis is saved whole and immutable, corrections and notes become new versions,
+each a link of a hash chain checked on every read (``Store.verify()`` checks all).
+``specmatch.store.batch`` runs a manifest of samples through the one batch runner
+(:mod:`specmatch.executor`), saving each finished sample at once. The store only
+persists: it runs no chemistry.
 """
 
 from __future__ import annotations
@@ -18,6 +20,9 @@ _LAZY = {
     "save_run": "specmatch.store.store",
     "default_store_url": "specmatch.store.store",
     "resolve_store_url": "specmatch.store.store",
+    "Viewer": "specmatch.store.store",
+    "VerifyReport": "specmatch.store.store",
+    "Problem": "specmatch.store.store",
     "AnalysisRecord": "specmatch.store.records",
     "input_key": "specmatch.store.records",
     "records_frame": "specmatch.store.records",

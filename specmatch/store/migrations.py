@@ -107,10 +107,93 @@ def _v3_immutability_triggers(conn: Connection) -> None:
     # other servers: immutability is enforced by the store code alone
 
 
+# ------------------------------------------------------------------------------ v4
+def _v4_audit_chain(conn: Connection) -> None:
+    """The hash chain over every version, sharing groups, and triggers against REPLACE.
+
+    The chain lives in a table of its own (insert-only like the others), so the rows
+    saved before it need no update: each gets its link here, computed from its stored
+    content, in the order it was saved, with ``origin = 'migration'``.
+    """
+    from .chain import GENESIS, link_hash, row_content
+
+    dialect = conn.dialect.name
+    conn.execute(text("ALTER TABLE analyses ADD COLUMN groups TEXT"))
+    conn.execute(text(
+        "CREATE TABLE audit_chain (seq INTEGER PRIMARY KEY, "
+        "analysis_id VARCHAR(32) NOT NULL UNIQUE REFERENCES analyses (id), "
+        "prev_hash VARCHAR(64) NOT NULL, row_hash VARCHAR(64) NOT NULL, "
+        "origin VARCHAR(16) NOT NULL)"))
+    # link what is there, oldest first (versions of one analysis in version order)
+    rows = list(conn.execute(text("SELECT * FROM analyses ORDER BY created_at, root_id, version, id"))
+                .mappings())
+    files: dict[str, list[tuple[str, str]]] = {}
+    for r in conn.execute(text("SELECT analysis_id, name, sha256 FROM analysis_files")).mappings():
+        files.setdefault(r["analysis_id"], []).append((r["name"], r["sha256"]))
+    prev = GENESIS
+    links = []
+    for seq, r in enumerate(rows, start=1):
+        row = dict(r)
+        row["groups"] = None
+        if isinstance(row["created_at"], str):  # SQLite hands back text outside the ORM types
+            row["created_at"] = UTCDateTime().process_result_value(
+                _dt.datetime.fromisoformat(row["created_at"]), conn.dialect)
+        elif row["created_at"].tzinfo is None:
+            row["created_at"] = row["created_at"].replace(tzinfo=_dt.timezone.utc)
+        h = link_hash(row_content(row, files.get(row["id"], [])), prev, seq, "migration")
+        links.append({"seq": seq, "analysis_id": row["id"], "prev_hash": prev, "row_hash": h,
+                      "origin": "migration"})
+        prev = h
+    if links:
+        conn.execute(text("INSERT INTO audit_chain (seq, analysis_id, prev_hash, row_hash, origin) "
+                          "VALUES (:seq, :analysis_id, :prev_hash, :row_hash, :origin)"), links)
+    if dialect == "sqlite":
+        for event in ("UPDATE", "DELETE"):
+            conn.exec_driver_sql(
+                f"CREATE TRIGGER audit_chain_no_{event.lower()} BEFORE {event} ON audit_chain "
+                f"BEGIN SELECT RAISE(ABORT, '{_MESSAGE}'); END")
+        # INSERT OR REPLACE deletes the old row without firing delete triggers (unless
+        # a connection turns recursive_triggers on): refuse a second row under a key
+        for table, key in (("analyses", "id = NEW.id"),
+                           ("analysis_files", "analysis_id = NEW.analysis_id AND name = NEW.name"),
+                           ("audit_chain", "seq = NEW.seq OR analysis_id = NEW.analysis_id")):
+            conn.exec_driver_sql(
+                f"CREATE TRIGGER {table}_no_replace BEFORE INSERT ON {table} "
+                f"WHEN EXISTS (SELECT 1 FROM {table} WHERE {key}) "
+                f"BEGIN SELECT RAISE(ABORT, '{_MESSAGE}'); END")
+        # a blob is its hash: a second insert of the same key is skipped, never replaces
+        conn.exec_driver_sql(
+            "CREATE TRIGGER blobs_keep_first BEFORE INSERT ON blobs "
+            "WHEN EXISTS (SELECT 1 FROM blobs WHERE sha256 = NEW.sha256) "
+            "BEGIN SELECT RAISE(IGNORE); END")
+    elif dialect == "postgresql":
+        conn.exec_driver_sql(
+            "CREATE TRIGGER audit_chain_immutable BEFORE UPDATE OR DELETE ON audit_chain "
+            "FOR EACH ROW EXECUTE FUNCTION specmatch_immutable()")
+        # TRUNCATE skips row triggers
+        for table in (*_IMMUTABLE_TABLES, "audit_chain"):
+            conn.exec_driver_sql(
+                f"CREATE TRIGGER {table}_no_truncate BEFORE TRUNCATE ON {table} "
+                "FOR EACH STATEMENT EXECUTE FUNCTION specmatch_immutable()")
+
+
+def expected_triggers(dialect: str) -> tuple[str, ...]:
+    """Names of the guard triggers a store at the current version must have."""
+    if dialect == "sqlite":
+        names = [f"{t}_no_{e}" for t in (*_IMMUTABLE_TABLES, "audit_chain") for e in ("update", "delete")]
+        names += [f"{t}_no_replace" for t in ("analyses", "analysis_files", "audit_chain")]
+        return (*names, "blobs_keep_first")
+    if dialect == "postgresql":
+        tables = (*_IMMUTABLE_TABLES, "audit_chain")
+        return (*(f"{t}_immutable" for t in tables), *(f"{t}_no_truncate" for t in tables))
+    return ()
+
+
 MIGRATIONS: tuple[Migration, ...] = (
     Migration(1, "analyses, blobs, files, schema version", _v1_base_tables),
     Migration(2, "input key for resumable batches", _v2_input_key),
     Migration(3, "immutability triggers", _v3_immutability_triggers),
+    Migration(4, "audit hash chain, sharing groups, no-replace triggers", _v4_audit_chain),
 )
 assert [m.version for m in MIGRATIONS] == list(range(1, SCHEMA_VERSION + 1))
 

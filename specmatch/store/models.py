@@ -20,6 +20,10 @@ Layout
     copies of a few fields for searching.
 ``analysis_files``
     Which blobs an analysis version was based on, under the names they were given.
+``audit_chain``
+    One link per analysis version, in the order they were saved: the hash of the
+    version's content and files and of the link before it (see
+    :mod:`specmatch.store.chain`). Insert-only, like the tables above.
 """
 
 from __future__ import annotations
@@ -30,7 +34,7 @@ from sqlalchemy import (Column, Float, ForeignKey, Integer, LargeBinary, MetaDat
                         Table, Text)
 from sqlalchemy.types import DateTime, TypeDecorator
 
-SCHEMA_VERSION = 3
+SCHEMA_VERSION = 4
 """Schema version this release writes (the last entry of ``migrations.MIGRATIONS``)."""
 
 
@@ -98,6 +102,8 @@ analyses = Table(
     Column("data_sha256", String(64), nullable=False),
     # added in schema v2: SHA-256 of the inputs, the key batches resume by
     Column("input_key", String(64), nullable=True),
+    # added in schema v4: groups the analysis is shared with, as "|group a|group b|"
+    Column("groups", Text, nullable=True),
 )
 
 analysis_files = Table(
@@ -105,4 +111,13 @@ analysis_files = Table(
     Column("analysis_id", String(32), ForeignKey("analyses.id"), primary_key=True),
     Column("name", String(500), primary_key=True),
     Column("sha256", String(64), ForeignKey("blobs.sha256"), nullable=False),
+)
+
+audit_chain = Table(
+    "audit_chain", metadata,
+    Column("seq", Integer, primary_key=True, autoincrement=False),
+    Column("analysis_id", String(32), ForeignKey("analyses.id"), nullable=False, unique=True),
+    Column("prev_hash", String(64), nullable=False),
+    Column("row_hash", String(64), nullable=False),
+    Column("origin", String(16), nullable=False),  # saved | migration
 )

@@ -2,9 +2,8 @@
 
 The identification stage hands over ``Result.to_dict()``: a JSON-able dict with the
 inputs, versions, candidates with probabilities and the verdict. The store keeps
-that dict whole and copies a few fields into columns for searching; the readers
-below accept the few spellings such a dict may use, so the store does not break
-when the result grows a field.
+that dict whole and copies a few fields, read by their exact keys, into columns for
+searching.
 """
 
 from __future__ import annotations
@@ -54,22 +53,10 @@ def input_key(sample_id: str | None, inputs: Mapping[str, Any],
     return sha256_hex(canonical_json(payload).encode("utf-8"))
 
 
-def _first(mapping: Mapping[str, Any], *keys: str) -> Any:
-    for key in keys:
-        value = mapping.get(key)
-        if value not in (None, ""):
-            return value
-    return None
-
-
 def _probability(cand: Mapping[str, Any]) -> float | None:
-    p = _first(cand, "probability", "probability_used", "probability_with_prior", "p")
-    if isinstance(p, Mapping):  # {"spectra": .., "with_prior": .., "used": ..}
-        p = _first(p, "used", "with_prior", "spectra")
-    try:
-        return None if p is None else float(p)
-    except (TypeError, ValueError):
-        return None
+    """A candidate's probability (``candidates[i]["probability"]`` of ``Result.to_dict()``)."""
+    p = cand.get("probability")
+    return None if p is None else float(p)
 
 
 @dataclass(frozen=True)
@@ -86,45 +73,23 @@ class Summary:
 
 
 def summarise(data: Mapping[str, Any]) -> Summary:
-    """Read substrate, reagent, verdict, top candidate and versions from a result dict."""
-    inputs = data.get("inputs") if isinstance(data.get("inputs"), Mapping) else {}
-    substrate = _first(inputs, "substrate", "substrate_smiles") or _first(data, "substrate")
-    reagent = _first(inputs, "reagent") or _first(data, "reagent")
+    """The searchable fields of ``Result.to_dict()``, read by their exact keys.
 
-    cands = _first(data, "candidates", "ranking") or []
-    cands = [c for c in cands if isinstance(c, Mapping)]
-    top = None
-    if cands:
-        scored = [c for c in cands if _probability(c) is not None]
-        top = max(scored, key=_probability) if scored else cands[0]
-
-    verdict = data.get("verdict")
-    verdict_smiles = None
-    if isinstance(verdict, Mapping):
-        verdict_smiles = _first(verdict, "smiles", "top_smiles", "top")
-        verdict = _first(verdict, "word", "text", "words", "label", "status", "summary")
-    top_smiles = verdict_smiles or (top and _first(top, "smiles", "canonical_smiles"))
-
-    versions = data.get("versions") if isinstance(data.get("versions"), Mapping) else {}
-    tool = _first(versions, "specmatch", "tool") or _first(data, "tool_version")
-    tables = (_first(versions, "tables", "tables_version", "prediction_tables")
-              or _first(data, "tables_version"))
-    if isinstance(tables, str) and versions.get("error_model"):
-        tables = f"{tables}; error model {versions['error_model']}"
-    if tables is None and versions:
-        rest = {k: v for k, v in versions.items() if k not in ("specmatch", "tool")}
-        tables = canonical_json(rest) if rest else None
-    elif tables is not None and not isinstance(tables, str):
-        tables = canonical_json(tables)
+    ``inputs.substrate``/``inputs.reagent`` (None when only candidates were scored),
+    ``verdict.word``/``verdict.top``/``verdict.p_top``, ``versions.specmatch`` and
+    ``versions.prediction_tables`` with ``versions.error_model``. The store checks the
+    layout before it saves (``store._check_record``), so the keys are there.
+    """
+    inputs, verdict, versions = data["inputs"], data["verdict"], data["versions"]
+    tables = versions.get("prediction_tables")
+    if versions.get("error_model"):
+        tables = f"{tables or '-'}; error model {versions['error_model']}"
+    p_top = verdict.get("p_top")
     return Summary(
-        substrate=None if substrate is None else str(substrate),
-        reagent=None if reagent is None else str(reagent),
-        verdict=None if verdict is None else str(verdict),
-        top_smiles=None if not top_smiles else str(top_smiles),
-        top_probability=_probability(top) if top else None,
-        tool_version=None if tool is None else str(tool),
-        tables_version=tables,
-    )
+        substrate=inputs.get("substrate"), reagent=inputs.get("reagent"),
+        verdict=verdict["word"], top_smiles=verdict.get("top") or None,
+        top_probability=None if p_top is None else float(p_top),
+        tool_version=versions["specmatch"], tables_version=tables)
 
 
 @dataclass(frozen=True)
@@ -156,6 +121,12 @@ class AnalysisRecord:
     tables_version: str | None = None
     data_sha256: str | None = None
     files: dict[str, str] = field(default_factory=dict)
+    groups: tuple[str, ...] = ()
+    problems: tuple[str, ...] = ()
+    """What the audit check found wrong with this version when it was read (empty: sound)."""
+    chain_hash: str | None = None
+    chain_origin: str | None = None
+    """"saved" (linked when saved) or "migration" (saved before the chain, linked at upgrade)."""
 
     @property
     def short_id(self) -> str:
@@ -173,6 +144,8 @@ class AnalysisRecord:
             "top_probability": self.top_probability,
             "tool_version": self.tool_version, "tables_version": self.tables_version,
             "input_key": self.input_key, "data_sha256": self.data_sha256,
+            "groups": list(self.groups), "chain_hash": self.chain_hash,
+            "chain_origin": self.chain_origin, "problems": list(self.problems),
             "files": dict(self.files), "data": self.data,
         }
 

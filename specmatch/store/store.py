@@ -1,4 +1,4 @@
-"""The analysis store: saved analyses with an audit trail, behind SQLAlchemy 2.
+"""The analysis store: saved analyses with a tamper-evident audit trail, behind SQLAlchemy 2.
 
 ``open_store()`` picks the database from one setting: the ``url`` argument (the CLI's
 ``--store``), else the environment variable ``SPECMATCH_STORE``, else a SQLite file
@@ -6,9 +6,12 @@ in the user's data directory. Any SQLAlchemy URL works for a shared server
 (PostgreSQL is tested: ``postgresql+psycopg://user@host/db``).
 
 Nothing saved is ever changed: a note or a correction is a new version that points
-at the one it amends. SQLite runs in WAL mode with a busy timeout, writes take the
-write lock up front (``BEGIN IMMEDIATE``) and are retried when another process
-holds it, so several processes can save into one file.
+at the one it amends. Every version is a link of a hash chain
+(:mod:`specmatch.store.chain`) checked whenever it is read; :meth:`Store.verify`
+checks the whole store. SQLite runs in WAL mode with a busy timeout, writes take the
+write lock up front (``BEGIN IMMEDIATE``) and are retried when another process holds
+it, so several processes can save into one file. A store opened ``read_only`` (what
+``specmatch history`` does to look) works on a read-only file or file system.
 """
 
 from __future__ import annotations
@@ -25,8 +28,8 @@ import re
 import time
 import uuid
 from contextlib import contextmanager
-from pathlib import Path
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any, Iterator, Mapping, Sequence
 
 from sqlalchemy import and_, create_engine, event, func, or_, select
@@ -35,7 +38,8 @@ from sqlalchemy.exc import ArgumentError, DBAPIError, NoSuchModuleError, Operati
 
 from ..errors import SpecmatchError
 from . import migrations
-from .models import SCHEMA_VERSION, analyses, analysis_files, blobs
+from .chain import GENESIS, link_hash, row_content
+from .models import SCHEMA_VERSION, analyses, analysis_files, audit_chain, blobs
 from .records import AnalysisRecord, canonical_json, sha256_hex, summarise
 
 ENV_STORE = "SPECMATCH_STORE"
@@ -44,6 +48,8 @@ BUSY_TIMEOUT_S = 30.0
 """How long SQLite waits for another writer before giving up on one attempt."""
 WRITE_ATTEMPTS = 8
 """Attempts of a write that found the database locked (after the busy timeout)."""
+MAX_GROUPS = 50
+"""Most sharing groups one analysis may name."""
 
 
 def default_store_url() -> str:
@@ -78,6 +84,47 @@ def current_user(name: str | None = None) -> str:
     return _os_user()
 
 
+@dataclass(frozen=True)
+class Viewer:
+    """Who is looking: they see their own analyses and those shared with their groups.
+
+    ``name`` is matched against the user recorded with the first version of an
+    analysis (with sign-in: the signed-in identity); ``everyone`` lifts the filter
+    (a reviewer's or administrator's view).
+    """
+
+    name: str
+    groups: tuple[str, ...] = ()
+    everyone: bool = False
+
+
+def _clean_groups(groups: Sequence[str] | str | None) -> tuple[str, ...]:
+    if not groups:
+        return ()
+    if isinstance(groups, str):
+        groups = [g for g in re.split(r"[,;]", groups)]
+    out = []
+    for g in groups:
+        g = str(g).strip()
+        if not g:
+            continue
+        if "|" in g or len(g) > 100:
+            raise SpecmatchError(f"'{g[:40]}' is not a group name: at most 100 characters, no '|'")
+        out.append(g)
+    out = sorted(set(out))
+    if len(out) > MAX_GROUPS:
+        raise SpecmatchError(f"{len(out)} groups given; an analysis is shared with at most {MAX_GROUPS}")
+    return tuple(out)
+
+
+def _groups_text(groups: tuple[str, ...]) -> str | None:
+    return "|" + "|".join(groups) + "|" if groups else None
+
+
+def _groups_tuple(text: str | None) -> tuple[str, ...]:
+    return tuple(g for g in (text or "").split("|") if g)
+
+
 def _now() -> _dt.datetime:
     return _dt.datetime.now(_dt.timezone.utc)
 
@@ -92,37 +139,55 @@ def _is_locked(exc: BaseException) -> bool:
     return "database is locked" in msg or "database is busy" in msg or "deadlock detected" in msg
 
 
+def _first_line(exc: BaseException) -> str:
+    text = str(getattr(exc, "orig", None) or exc).strip()
+    return text.splitlines()[0] if text else type(exc).__name__
+
+
 def _canonical_smiles(text: str | None) -> str | None:
     if not text:
         return None
-    try:
-        from ..structures import parse_structure
+    from ..structures import parse_structure
 
+    try:
         return parse_structure(text).canonical_smiles
-    except Exception:  # an unparsable substrate is still saved and found by its text
+    except SpecmatchError:  # an unparsable substrate is still saved and found by its text
         return text
 
 
-_GUARDED = re.compile(r"^\s*(UPDATE|DELETE\s+FROM|DROP\s+TABLE|ALTER\s+TABLE|TRUNCATE)\s+"
-                      r"(?:\w+\.)?\"?(analyses|analysis_files|blobs)\b", re.IGNORECASE)
+_TABLES = r"(?:analyses|analysis_files|blobs|audit_chain|schema_version)"
+_GUARDED = re.compile(
+    r"^\s*(?:UPDATE\s+(?:OR\s+\w+\s+)?|DELETE\s+FROM\s+|DROP\s+TABLE\s+(?:IF\s+EXISTS\s+)?|"
+    r"ALTER\s+TABLE\s+|TRUNCATE\s+(?:TABLE\s+)?|(?:INSERT\s+OR\s+REPLACE|REPLACE)\s+INTO\s+)"
+    rf"(?:\w+\.)?\"?{_TABLES}\b|^\s*DROP\s+TRIGGER\b|^\s*PRAGMA\s+(?:\w+\.)?writable_schema",
+    re.IGNORECASE)
 
 
 def _guard_immutable(engine: Engine) -> None:
     """Refuse statements that would change saved analyses through this engine.
 
-    The database triggers (schema v3) do the same on SQLite and PostgreSQL; this
-    guard covers every other server. Migrations may alter tables and pass
-    ``specmatch_migration=True`` as an execution option.
+    The database triggers do the same on SQLite and PostgreSQL; this guard covers
+    every other server and the statements triggers cannot see (REPLACE, DROP
+    TRIGGER). Migrations pass ``specmatch_migration=True`` as an execution option.
     """
 
     @event.listens_for(engine, "before_cursor_execute")
     def _check(conn, cursor, statement, parameters, context, executemany):  # pragma: no cover
         if _GUARDED.match(statement) and not conn.get_execution_options().get("specmatch_migration"):
             raise SpecmatchError("saved analyses are immutable: add a note or a correction "
-                                 "instead (the store refused: " + statement.split()[0] + ")")
+                                 "instead (the store refused: " + " ".join(statement.split()[:2]) + ")")
 
 
-def _make_engine(url: str) -> Engine:
+def _sqlite_path(parsed) -> Path | None:
+    database = parsed.database
+    if not database or database == ":memory:" or parsed.query.get("mode") == "memory":
+        return None
+    if database.startswith("file:"):
+        database = database[5:].split("?")[0]
+    return Path(database).expanduser()
+
+
+def _make_engine(url: str, *, read_only: bool = False) -> Engine:
     try:
         parsed = make_url(url)
     except ArgumentError:
@@ -132,9 +197,16 @@ def _make_engine(url: str) -> Engine:
     backend = parsed.get_backend_name()
     try:
         if backend == "sqlite":
-            engine = _sqlite_engine(parsed)
+            engine = _sqlite_engine(parsed, read_only=read_only)
         else:
             engine = create_engine(parsed, pool_pre_ping=True)
+            if read_only and backend == "postgresql":
+                @event.listens_for(engine, "connect")
+                def _ro(dbapi_conn, _record):  # pragma: no cover - needs a server
+                    cur = dbapi_conn.cursor()
+                    cur.execute("SET SESSION CHARACTERISTICS AS TRANSACTION READ ONLY")
+                    cur.close()
+                    dbapi_conn.commit()
         _guard_immutable(engine)
         return engine
     except NoSuchModuleError:
@@ -146,16 +218,29 @@ def _make_engine(url: str) -> Engine:
                              f"({exc}); for PostgreSQL install 'specmatch[postgres]'") from None
 
 
-def _sqlite_engine(parsed) -> Engine:
+def _sqlite_engine(parsed, *, read_only: bool = False, immutable: bool = False) -> Engine:
     from sqlalchemy.pool import StaticPool
 
-    database = parsed.database
-    memory = not database or database == ":memory:"
+    path = _sqlite_path(parsed)
+    memory = path is None
     if memory:
         engine = create_engine(parsed, poolclass=StaticPool,
                                connect_args={"check_same_thread": False})
+    elif read_only:
+        if not path.is_file():
+            raise SpecmatchError(f"there is no analysis store at '{path}' yet; save an analysis "
+                                 "first (identify --save, batch) or give its place with --store")
+        # immutable=1: no -shm/-wal files needed, for a store on a read-only file system
+        mode = "ro&immutable=1" if immutable else "ro"
+        engine = create_engine(f"sqlite:///file:{path.resolve()}?mode={mode}&uri=true",
+                               connect_args={"timeout": BUSY_TIMEOUT_S})
     else:
-        Path(database).expanduser().parent.mkdir(parents=True, exist_ok=True)
+        try:
+            path.parent.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise SpecmatchError(
+                f"cannot create the folder '{path.parent}' for the analysis store: "
+                f"{exc.strerror}; give a writable place with --store or SPECMATCH_STORE") from None
         engine = create_engine(parsed, connect_args={"timeout": BUSY_TIMEOUT_S})
 
     @event.listens_for(engine, "connect")
@@ -166,7 +251,9 @@ def _sqlite_engine(parsed) -> Engine:
         cur = dbapi_conn.cursor()
         cur.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
         cur.execute("PRAGMA foreign_keys = ON")
-        if not memory:
+        # REPLACE then fires the delete triggers too (a second guard beside no_replace)
+        cur.execute("PRAGMA recursive_triggers = ON")
+        if not memory and not read_only:
             cur.execute("PRAGMA journal_mode = WAL")
             # FULL: a committed analysis survives a power cut, not only a killed process
             cur.execute("PRAGMA synchronous = FULL")
@@ -190,19 +277,52 @@ class _Pending:
     skip_if_done: bool
 
 
+@dataclass(frozen=True)
+class Problem:
+    """One break in the audit trail: which analysis version, and what is wrong."""
+
+    analysis_id: str | None
+    version: int | None
+    text: str
+
+    def __str__(self) -> str:
+        where = (f"analysis {self.analysis_id[:12]} v{self.version}" if self.analysis_id
+                 else "store")
+        return f"{where}: {self.text}"
+
+
+@dataclass(frozen=True)
+class VerifyReport:
+    """The outcome of :meth:`Store.verify`."""
+
+    versions: int
+    links: int
+    head_hash: str
+    problems: tuple[Problem, ...]
+    migrated: int = 0
+
+    @property
+    def ok(self) -> bool:
+        return not self.problems
+
+
 class Store:
     """Saved analyses in one database. Create with :func:`open_store`."""
 
-    def __init__(self, engine: Engine, url: str):
+    def __init__(self, engine: Engine, url: str, *, read_only: bool = False):
         self.engine = engine
         self.url = url
         self.dialect = engine.dialect.name
+        self.read_only = read_only
 
     # ----------------------------------------------------------------- plumbing
     @contextmanager
     def _begin_write(self, lock: str | None = "specmatch-store", *,
                      migration: bool = False) -> Iterator[Connection]:
         """One write transaction holding the database's write lock."""
+        if self.read_only:
+            raise SpecmatchError(f"the analysis store {self!r} is open read-only; open it "
+                                 "without read_only to save")
         with self.engine.connect() as conn:
             conn.execution_options(specmatch_write=True, specmatch_migration=migration)
             with conn.begin():
@@ -217,16 +337,39 @@ class Store:
                 with self._begin_write(lock) as conn:
                     return fn(conn)
             except (OperationalError, DBAPIError) as exc:
-                if not _is_locked(exc) or attempt == WRITE_ATTEMPTS - 1:
-                    raise
+                if not _is_locked(exc):
+                    raise self._db_error(exc) from None
+                if attempt == WRITE_ATTEMPTS - 1:
+                    raise SpecmatchError(
+                        f"the analysis store {self!r} stayed locked by another program for "
+                        f"{WRITE_ATTEMPTS} attempts of {BUSY_TIMEOUT_S:.0f} s; nothing was saved: "
+                        "try again when it has finished") from None
                 time.sleep(min(2.0, 0.05 * 2 ** attempt) * (0.5 + random.random()))
         raise AssertionError("unreachable")
 
+    def _db_error(self, exc: BaseException) -> SpecmatchError:
+        """One clear line for a database failure (a damaged file, a refused permission)."""
+        text = _first_line(exc)
+        low = text.lower()
+        if "malformed" in low or "not a database" in low or "corrupt" in low:
+            return SpecmatchError(f"the analysis store {self!r} is damaged ({text}); restore it "
+                                  "from a backup and check it with 'specmatch history verify'")
+        if "readonly" in low or "read-only" in low or "read only" in low:
+            return SpecmatchError(f"the analysis store {self!r} cannot be written ({text}); "
+                                  "save into a writable store (--store or SPECMATCH_STORE)")
+        if "permission denied" in low:
+            return SpecmatchError(f"the database refused the store's request ({text}); the "
+                                  "application role needs SELECT and INSERT on the store's tables")
+        return SpecmatchError(f"the analysis store {self!r} failed: {text}")
+
     @contextmanager
     def _read(self) -> Iterator[Connection]:
-        with self.engine.connect() as conn:
-            with conn.begin():
-                yield conn
+        try:
+            with self.engine.connect() as conn:
+                with conn.begin():
+                    yield conn
+        except (OperationalError, DBAPIError) as exc:
+            raise self._db_error(exc) from None
 
     def close(self) -> None:
         self.engine.dispose()
@@ -258,18 +401,40 @@ class Store:
                                   lambda: self._begin_write("specmatch-migrate", migration=True),
                                   tool_version=__version__)
 
+    def check_open(self) -> None:
+        """Refuse a damaged SQLite file or a schema this release cannot read, clearly."""
+        with self._read() as conn:
+            if self.dialect == "sqlite":
+                bad = [r[0] for r in conn.exec_driver_sql("PRAGMA quick_check(5)")]
+                if bad != ["ok"]:
+                    raise SpecmatchError(
+                        f"the analysis store {self!r} is damaged (integrity check: {bad[0]}); "
+                        "restore it from a backup")
+            version = migrations.current_version(conn)
+        if version != SCHEMA_VERSION:
+            newer = version > SCHEMA_VERSION
+            raise SpecmatchError(
+                f"this analysis store has schema version {version}, "
+                + (f"written by a newer specmatch; this release knows up to version "
+                   f"{SCHEMA_VERSION}: upgrade specmatch to open it" if newer else
+                   f"older than this release's {SCHEMA_VERSION}; open it once with write "
+                   "access (any save, or 'specmatch history list' on a writable copy) to upgrade"))
+
     # --------------------------------------------------------------------- save
     def save(self, record: AnalysisRecord | Mapping[str, Any],
              files: Mapping[str, bytes] | None = None, *, sample_id: str | None = None,
              user: str | None = None, input_key: str | None = None,
-             skip_if_done: bool = False) -> str:
+             skip_if_done: bool = False, groups: Sequence[str] | str | None = None) -> str:
         """Save one analysis whole, with the files it was based on; return its id.
 
         Parameters
         ----------
         record
-            ``Result.to_dict()`` (inputs, versions, candidates, verdict) or an
+            ``Result.to_dict()`` (inputs, versions, candidates, verdict), or a new
             :class:`AnalysisRecord` carrying it with ``sample_id``/``user``/``input_key``.
+            The store checks it: made by this release of specmatch, every input file it
+            names given with the same bytes. Ids, times, the tool version and all hashes
+            are the store's own, never taken from the caller.
         files
             The uploaded files by name; stored once per SHA-256 of their bytes.
         sample_id, user
@@ -279,38 +444,70 @@ class Store:
         skip_if_done
             With ``input_key``: if an analysis of this sample with this key exists,
             return its id instead of saving a second one (batches resume this way).
+        groups
+            Groups the analysis is shared with (see :class:`Viewer`).
         """
         pending = self._prepare(record, files, sample_id=sample_id, user=user,
-                                input_key=input_key, skip_if_done=skip_if_done)
-        key = pending.row["input_key"]
-        # lock per input key on PostgreSQL, so two batches on one manifest cannot both save
-        return self._write(lambda conn: self._insert(conn, pending),
-                           lock=f"input:{key}" if skip_if_done and key else None)
+                                input_key=input_key, skip_if_done=skip_if_done, groups=groups)
+        return self._write(lambda conn: self._insert_many(conn, [pending])[0], lock=None)
 
     def save_many(self, items: Sequence[Mapping[str, Any]]) -> list[str]:
         """Save several analyses in one transaction; return their ids in order.
 
         Each item holds the keyword arguments of :meth:`save` (``record``, ``files``,
-        ``sample_id``, ``user``, ``input_key``, ``skip_if_done``; and optionally
-        ``data_json``, the record already as canonical JSON). All are saved or
-        none: a batch uses this for results that finished together, paying for one
+        ``sample_id``, ``user``, ``input_key``, ``skip_if_done``, ``groups``; and
+        optionally ``data_json``, the record already as canonical JSON). All are saved
+        or none: a batch uses this for results that finished together, paying for one
         commit (one fsync) instead of one per sample.
         """
         prepared = [self._prepare(**item) for item in items]
         if not prepared:
             return []
+        return self._write(lambda conn: self._insert_many(conn, prepared), lock=None)
 
-        def work(conn: Connection) -> list[str]:
-            if self.dialect == "postgresql":  # sorted: two writers never wait on each other
-                for key in sorted({p.row["input_key"] for p in prepared
-                                   if p.skip_if_done and p.row["input_key"]}):
-                    conn.exec_driver_sql("SELECT pg_advisory_xact_lock(%s)" % _lock_key(f"input:{key}"))
-            return self._insert_many(conn, prepared)
+    def _lock_chain(self, conn: Connection, prepared: Sequence[_Pending] = ()) -> None:
+        if self.dialect != "postgresql":
+            return  # SQLite: BEGIN IMMEDIATE already holds the one write lock
+        # sorted: two writers never wait on each other; the chain lock last, for everyone
+        for key in sorted({p.row["input_key"] for p in prepared
+                           if p.skip_if_done and p.row["input_key"]}):
+            conn.exec_driver_sql("SELECT pg_advisory_xact_lock(%s)" % _lock_key(f"input:{key}"))
+        conn.exec_driver_sql("SELECT pg_advisory_xact_lock(%s)" % _lock_key("specmatch-chain"))
 
-        return self._write(work, lock=None)
+    @staticmethod
+    def _chain_head(conn: Connection) -> tuple[int, str, _dt.datetime | None]:
+        """(last seq, its hash, the newest saved time) under the write lock."""
+        last = conn.execute(select(audit_chain.c.seq, audit_chain.c.row_hash)
+                            .order_by(audit_chain.c.seq.desc()).limit(1)).first()
+        newest = conn.execute(select(func.max(analyses.c.created_at))).scalar()
+        return (0, GENESIS, newest) if last is None else (int(last[0]), last[1], newest)
+
+    def _link(self, conn: Connection, rows: list[dict[str, Any]],
+              files: list[dict[str, str]]) -> None:
+        """Stamp the rows' times and chain them after the current head (under the lock)."""
+        seq, prev, newest = self._chain_head(conn)
+        # times never go backwards along the chain, even if clocks of two savers differ
+        now = _now()
+        if newest is not None and newest > now:
+            now = newest
+        by_id: dict[str, list[tuple[str, str]]] = {}
+        for f in files:
+            by_id.setdefault(f["analysis_id"], []).append((f["name"], f["sha256"]))
+        links = []
+        for row in rows:
+            row["created_at"] = now
+            seq += 1
+            h = link_hash(row_content(row, by_id.get(row["id"], [])), prev, seq, "saved")
+            links.append({"seq": seq, "analysis_id": row["id"], "prev_hash": prev,
+                          "row_hash": h, "origin": "saved"})
+            prev = h
+        conn.execute(analyses.insert(), rows)
+        if files:
+            conn.execute(analysis_files.insert(), files)
+        conn.execute(audit_chain.insert(), links)
 
     def _insert_many(self, conn: Connection, prepared: list["_Pending"]) -> list[str]:
-        # one statement per table for the whole group: the batch parent's cost per sample
+        self._lock_chain(conn, prepared)
         keys = [p.row["input_key"] for p in prepared if p.skip_if_done and p.row["input_key"]]
         done: dict[tuple[str | None, str], str] = {}
         if keys:
@@ -332,67 +529,71 @@ class Store:
             new_blobs.update(p.blobs)
         self._put_blobs(conn, new_blobs)
         if rows:
-            conn.execute(analyses.insert(), rows)
-        if files:
-            conn.execute(analysis_files.insert(), files)
+            self._link(conn, rows, files)
         return ids
 
     def _prepare(self, record: AnalysisRecord | Mapping[str, Any],
                  files: Mapping[str, bytes] | None = None, *, sample_id: str | None = None,
                  user: str | None = None, input_key: str | None = None,
-                 skip_if_done: bool = False, data_json: str | None = None) -> "_Pending":
+                 skip_if_done: bool = False, data_json: str | None = None,
+                 groups: Sequence[str] | str | None = None) -> "_Pending":
+        from .. import __version__
+
         if isinstance(record, AnalysisRecord):
+            if (record.id or record.data_sha256 or record.created_at or record.tool_version
+                    or record.files or record.version):
+                raise SpecmatchError(
+                    "this record was read from a store (it has an id, times and hashes); a "
+                    "saved analysis is not saved again: add a note or a correction to it")
             data = record.data
             sample_id = sample_id or record.sample_id
             user = user or record.user
             input_key = input_key or record.input_key
+            groups = groups or record.groups
         else:
             data = record
-        if data_json is not None:  # already canonical JSON of `data` (a batch worker made it)
-            summary = summarise(data)
-        else:
+        if not isinstance(data, Mapping):
+            raise SpecmatchError("the analysis cannot be saved: give Result.to_dict() "
+                                 f"(a mapping), not {type(data).__name__}")
+        if data_json is None:
             try:
                 data_json = canonical_json(dict(data))
             except (TypeError, ValueError) as exc:
                 raise SpecmatchError(
                     f"the analysis cannot be saved: it is not JSON data ({exc})") from None
-            summary = summarise(json.loads(data_json))
-        from .. import __version__
-
+            data = json.loads(data_json)
+        content: dict[str, bytes] = {}
+        for name, blob in (files or {}).items():
+            if not isinstance(blob, (bytes, bytearray, memoryview)):
+                raise SpecmatchError(f"the file '{name}' to save is {type(blob).__name__}, "
+                                     "not bytes")
+            content[str(name)] = bytes(blob)
+        _check_record(data, {sha256_hex(b) for b in content.values()}, __version__)
+        summary = summarise(data)
         blob_rows: dict[str, bytes] = {}
         file_rows = []
         analysis_id = uuid.uuid4().hex
-        for name, content in (files or {}).items():
-            digest = sha256_hex(content)
-            blob_rows[digest] = content
-            file_rows.append({"analysis_id": analysis_id, "name": str(name), "sha256": digest})
+        for name, blob in content.items():
+            digest = sha256_hex(blob)
+            blob_rows[digest] = blob
+            file_rows.append({"analysis_id": analysis_id, "name": name, "sha256": digest})
+        if input_key is not None and not re.fullmatch(r"[0-9a-f]{64}", str(input_key)):
+            raise SpecmatchError("the input key must be a SHA-256 (64 hexadecimal characters)")
         row = {
             "id": analysis_id, "root_id": analysis_id, "parent_id": None, "version": 1,
-            "kind": "analysis", "created_at": _now(), "user_name": current_user(user),
+            "kind": "analysis", "created_at": None, "user_name": current_user(user),
             "sample_id": sample_id, "substrate": summary.substrate,
             "substrate_key": _canonical_smiles(summary.substrate),
             "reagent": summary.reagent, "verdict": summary.verdict,
             # canonical, so a search finds it in any SMILES spelling (data keeps the original)
             "top_smiles": _canonical_smiles(summary.top_smiles),
             "top_probability": summary.top_probability,
-            "tool_version": summary.tool_version or __version__,
+            "tool_version": __version__,  # the running release, whatever the record says
             "tables_version": summary.tables_version, "note": None,
             "data_json": data_json, "data_sha256": sha256_hex(data_json.encode("utf-8")),
-            "input_key": input_key,
+            "input_key": input_key, "groups": _groups_text(_clean_groups(groups)),
         }
         return _Pending(row, blob_rows, file_rows, skip_if_done)
-
-    def _insert(self, conn: Connection, p: "_Pending") -> str:
-        key = p.row["input_key"]
-        if p.skip_if_done and key:
-            done = self._find_done(conn, p.row["sample_id"], key)
-            if done:
-                return done
-        self._put_blobs(conn, p.blobs)
-        conn.execute(analyses.insert(), [p.row])
-        if p.files:
-            conn.execute(analysis_files.insert(), p.files)
-        return p.row["id"]
 
     def _put_blobs(self, conn: Connection, blob_rows: Mapping[str, bytes]) -> None:
         if not blob_rows:
@@ -444,6 +645,18 @@ class Store:
                 out.update({(s, k): i for s, k, i in conn.execute(q)})
         return out
 
+    def brief(self, ids: Sequence[str]) -> dict[str, dict[str, Any]]:
+        """Verdict, top candidate and its probability of these analyses (for summaries)."""
+        out: dict[str, dict[str, Any]] = {}
+        cols = (analyses.c.id, analyses.c.verdict, analyses.c.top_smiles,
+                analyses.c.top_probability)
+        with self._read() as conn:
+            for k in range(0, len(ids), 500):
+                for r in conn.execute(select(*cols).where(analyses.c.id.in_(list(ids[k:k + 500])))
+                                      ).mappings():
+                    out[r["id"]] = dict(r)
+        return out
+
     # ------------------------------------------------------------- new versions
     def add_note(self, analysis_id: str, text: str, author: str | None = None) -> str:
         """Attach a note as a new version of the analysis; return the new version's id."""
@@ -468,38 +681,46 @@ class Store:
     def _new_version(self, analysis_id: str, *, kind: str, note: str, author: str | None,
                      verdict: str | None = None) -> str:
         parent = self.get(analysis_id)
+        if parent.problems:
+            raise SpecmatchError(f"analysis {parent.short_id} fails its audit check "
+                                 f"({parent.problems[0]}); nothing is added to a broken record: "
+                                 "run 'specmatch history verify'")
         new_id = uuid.uuid4().hex
         parent_files = dict(parent.files)
 
         def work(conn: Connection) -> str:
+            if self.dialect == "postgresql":
+                conn.exec_driver_sql("SELECT pg_advisory_xact_lock(%s)"
+                                     % _lock_key(f"root:{parent.root_id}"))
+            self._lock_chain(conn)
             last = conn.execute(select(func.max(analyses.c.version))
                                 .where(analyses.c.root_id == parent.root_id)).scalar()
             src = conn.execute(select(analyses).where(analyses.c.id == parent.id)).mappings().one()
             row = dict(src)
             row.update(id=new_id, parent_id=parent.id, version=int(last) + 1, kind=kind,
-                       created_at=_now(), user_name=current_user(author), note=note,
+                       created_at=None, user_name=current_user(author), note=note,
                        input_key=None)
             if verdict is not None:
                 row["verdict"] = verdict
-            conn.execute(analyses.insert().values(**row))
-            if parent_files:
-                conn.execute(analysis_files.insert(),
-                             [{"analysis_id": new_id, "name": n, "sha256": h}
-                              for n, h in parent_files.items()])
+            self._link(conn, [row], [{"analysis_id": new_id, "name": n, "sha256": h}
+                                     for n, h in parent_files.items()])
             return new_id
 
-        return self._write(work, lock=f"root:{parent.root_id}")
+        return self._write(work, lock=None)
 
     # --------------------------------------------------------------------- read
-    def resolve_id(self, analysis_id: str) -> str:
+    def resolve_id(self, analysis_id: str, viewer: Viewer | None = None) -> str:
         """The full id for an id or a unique prefix of one (at least 4 characters)."""
         ident = (analysis_id or "").strip().lower()
         if len(ident) < 4 or any(c not in "0123456789abcdef" for c in ident):
             raise SpecmatchError(f"'{analysis_id}' is not an analysis id; ids are hexadecimal "
                                  "(see 'specmatch history list')")
+        q = select(analyses.c.id).where(analyses.c.id.like(ident + "%"))
+        if viewer is not None:
+            root = analyses.alias("root")
+            q = q.join(root, root.c.id == analyses.c.root_id).where(_visible(root, viewer))
         with self._read() as conn:
-            found = list(conn.execute(select(analyses.c.id)
-                                      .where(analyses.c.id.like(ident + "%")).limit(2)).scalars())
+            found = list(conn.execute(q.limit(2)).scalars())
         if not found:
             raise SpecmatchError(f"no saved analysis with id '{analysis_id}' in {self!r}; "
                                  "list them with 'specmatch history list'")
@@ -507,49 +728,99 @@ class Store:
             raise SpecmatchError(f"'{analysis_id}' matches several analyses; give more characters")
         return found[0]
 
-    def get(self, analysis_id: str) -> AnalysisRecord:
-        """The analysis version with this id (or unique id prefix)."""
-        full = self.resolve_id(analysis_id)
+    def get(self, analysis_id: str, viewer: Viewer | None = None) -> AnalysisRecord:
+        """The analysis version with this id (or unique id prefix), checked against the chain.
+
+        A version that fails its check comes back with ``problems`` set (see
+        :meth:`verify` for the whole store); nothing is hidden.
+        """
+        full = self.resolve_id(analysis_id, viewer)
+        return self._load(select(analyses).where(analyses.c.id == full))[0]
+
+    def _load(self, q) -> list[AnalysisRecord]:
         with self._read() as conn:
-            row = conn.execute(select(analyses).where(analyses.c.id == full)).mappings().one()
-            files = self._files_of(conn, [full])
-        return self._record(row, files.get(full, {}))
+            rows = list(conn.execute(q).mappings())
+            ids = [r["id"] for r in rows]
+            files = self._files_of(conn, ids)
+            links = self._links_of(conn, ids)
+        return [self._record(r, files.get(r["id"], {}), links.get(r["id"])) for r in rows]
 
     @staticmethod
     def _files_of(conn: Connection, ids: list[str]) -> dict[str, dict[str, str]]:
         out: dict[str, dict[str, str]] = {}
-        if not ids:
-            return out
-        q = select(analysis_files).where(analysis_files.c.analysis_id.in_(ids))
-        for r in conn.execute(q.order_by(analysis_files.c.name)).mappings():
-            out.setdefault(r["analysis_id"], {})[r["name"]] = r["sha256"]
+        for k in range(0, len(ids), 500):  # stay below bound-parameter limits
+            q = select(analysis_files).where(analysis_files.c.analysis_id.in_(ids[k:k + 500]))
+            for r in conn.execute(q.order_by(analysis_files.c.name)).mappings():
+                out.setdefault(r["analysis_id"], {})[r["name"]] = r["sha256"]
         return out
 
     @staticmethod
-    def _record(row: Mapping[str, Any], files: dict[str, str]) -> AnalysisRecord:
+    def _links_of(conn: Connection, ids: list[str]) -> dict[str, dict[str, Any]]:
+        """Each version's chain link, with the hash of the link before it."""
+        out: dict[str, dict[str, Any]] = {}
+        for k in range(0, len(ids), 500):
+            q = select(audit_chain).where(audit_chain.c.analysis_id.in_(ids[k:k + 500]))
+            for r in conn.execute(q).mappings():
+                out[r["analysis_id"]] = dict(r)
+        before = sorted({link["seq"] - 1 for link in out.values() if link["seq"] > 1})
+        prev: dict[int, str] = {}
+        for k in range(0, len(before), 500):
+            q = select(audit_chain.c.seq, audit_chain.c.row_hash).where(
+                audit_chain.c.seq.in_(before[k:k + 500]))
+            prev.update({int(s): h for s, h in conn.execute(q)})
+        for link in out.values():
+            link["before"] = GENESIS if link["seq"] == 1 else prev.get(link["seq"] - 1)
+        return out
+
+    @staticmethod
+    def _row_problems(row: Mapping[str, Any], files: Mapping[str, str],
+                      link: Mapping[str, Any] | None) -> list[str]:
+        problems = []
+        if sha256_hex(row["data_json"].encode("utf-8")) != row["data_sha256"]:
+            problems.append("the analysis data does not match its SHA-256 (changed after saving)")
+        if link is None:
+            problems.append("this version has no link in the audit chain (added outside specmatch)")
+            return problems
+        h = link_hash(row_content(row, files.items()), link["prev_hash"], link["seq"],
+                      link["origin"])
+        if h != link["row_hash"]:
+            problems.append("the version or its files no longer match their audit hash "
+                            "(rewritten in place)")
+        if "before" in link and link["before"] != link["prev_hash"]:
+            problems.append(f"the audit chain is broken before this version (link {link['seq']})")
+        return problems
+
+    def _record(self, row: Mapping[str, Any], files: dict[str, str],
+                link: Mapping[str, Any] | None) -> AnalysisRecord:
+        try:
+            data = json.loads(row["data_json"])
+        except ValueError:
+            data = {}
+        problems = self._row_problems(row, files, link)
+        if not isinstance(data, dict):
+            data = {}
         return AnalysisRecord(
-            data=json.loads(row["data_json"]), sample_id=row["sample_id"], user=row["user_name"],
+            data=data, sample_id=row["sample_id"], user=row["user_name"],
             input_key=row["input_key"], id=row["id"], root_id=row["root_id"],
             parent_id=row["parent_id"], version=row["version"], kind=row["kind"],
             note=row["note"], created_at=row["created_at"], substrate=row["substrate"],
             reagent=row["reagent"], verdict=row["verdict"], top_smiles=row["top_smiles"],
             top_probability=row["top_probability"], tool_version=row["tool_version"],
-            tables_version=row["tables_version"], data_sha256=row["data_sha256"], files=files)
+            tables_version=row["tables_version"], data_sha256=row["data_sha256"], files=files,
+            groups=_groups_tuple(row["groups"]), problems=tuple(problems),
+            chain_hash=link["row_hash"] if link else None,
+            chain_origin=link["origin"] if link else None)
 
     def get_many(self, ids: list[str]) -> list[AnalysisRecord]:
         """The analyses with these full ids, in the order given."""
-        rows: dict[str, Any] = {}
-        files: dict[str, dict[str, str]] = {}
-        with self._read() as conn:
-            for k in range(0, len(ids), 500):  # stay below bound-parameter limits
-                chunk = ids[k:k + 500]
-                for r in conn.execute(select(analyses).where(analyses.c.id.in_(chunk))).mappings():
-                    rows[r["id"]] = r
-                files.update(self._files_of(conn, chunk))
-        missing = [i for i in ids if i not in rows]
+        recs: dict[str, AnalysisRecord] = {}
+        for k in range(0, len(ids), 500):  # stay below bound-parameter limits
+            for rec in self._load(select(analyses).where(analyses.c.id.in_(ids[k:k + 500]))):
+                recs[rec.id] = rec
+        missing = [i for i in ids if i not in recs]
         if missing:
             raise SpecmatchError(f"no saved analysis with id '{missing[0]}'")
-        return [self._record(rows[i], files.get(i, {})) for i in ids]
+        return [recs[i] for i in ids]
 
     def file_bytes(self, sha256: str) -> bytes:
         """The bytes of a saved file, checked against its SHA-256."""
@@ -563,31 +834,30 @@ class Store:
                                  "the store is damaged; restore it from a backup")
         return data
 
-    def files(self, analysis_id: str) -> dict[str, bytes]:
+    def files(self, analysis_id: str, viewer: Viewer | None = None) -> dict[str, bytes]:
         """The files an analysis was based on, by name."""
-        return {name: self.file_bytes(h) for name, h in self.get(analysis_id).files.items()}
+        return {name: self.file_bytes(h)
+                for name, h in self.get(analysis_id, viewer).files.items()}
 
-    def history(self, analysis_id: str) -> list[AnalysisRecord]:
+    def history(self, analysis_id: str, viewer: Viewer | None = None) -> list[AnalysisRecord]:
         """Every version of the analysis, oldest first (the first is the tool's own result)."""
-        root = self.get(analysis_id).root_id
-        with self._read() as conn:
-            rows = list(conn.execute(select(analyses).where(analyses.c.root_id == root)
-                                     .order_by(analyses.c.version)).mappings())
-            files = self._files_of(conn, [r["id"] for r in rows])
-        return [self._record(r, files.get(r["id"], {})) for r in rows]
+        root = self.get(analysis_id, viewer).root_id
+        return self._load(select(analyses).where(analyses.c.root_id == root)
+                          .order_by(analyses.c.version))
 
     def search(self, *, substrate: str | None = None, reagent: str | None = None,
                verdict: str | None = None, since: _dt.datetime | _dt.date | str | None = None,
                until: _dt.datetime | _dt.date | str | None = None,
                sample_id: str | None = None, all_versions: bool = False,
-               limit: int | None = 200) -> list[AnalysisRecord]:
+               limit: int | None = 200, viewer: Viewer | None = None) -> list[AnalysisRecord]:
         """Saved analyses matching every filter given, newest first.
 
         ``substrate`` matches the same molecule in any SMILES spelling; ``reagent`` is
         case-insensitive; ``verdict`` matches the verdict words (substring) or the top
         candidate's SMILES; ``since``/``until`` are UTC (a date alone covers the whole
         day). Without ``all_versions`` only the latest version of each analysis is
-        listed, and the date filters apply to the original run.
+        listed, and the date filters apply to the original run. With ``viewer``, only
+        the analyses that viewer may see.
         """
         a = analyses
         conds = []
@@ -605,16 +875,18 @@ class Store:
             conds.append(a.c.sample_id == sample_id)
         lo = _as_utc(since, end=False) if since else None
         hi = _as_utc(until, end=True) if until else None
+        root = a.alias("root")
         if not all_versions:
             last = (select(a.c.root_id, func.max(a.c.version).label("v"))
                     .group_by(a.c.root_id).subquery())
-            root = a.alias("root")
             q = (select(a).join(last, and_(a.c.root_id == last.c.root_id, a.c.version == last.c.v))
                  .join(root, root.c.id == a.c.root_id))
             when = root.c.created_at
         else:
-            q = select(a)
+            q = select(a).join(root, root.c.id == a.c.root_id)
             when = a.c.created_at
+        if viewer is not None:
+            conds.append(_visible(root, viewer))
         if lo:
             conds.append(when >= lo)
         if hi:
@@ -622,34 +894,152 @@ class Store:
         q = q.where(*conds).order_by(when.desc(), a.c.version.desc())
         if limit:
             q = q.limit(limit)
-        with self._read() as conn:
-            rows = list(conn.execute(q).mappings())
-            files = self._files_of(conn, [r["id"] for r in rows])
-        return [self._record(r, files.get(r["id"], {})) for r in rows]
+        return self._load(q)
 
     def count(self) -> int:
         """Number of analysis versions saved (notes and corrections included)."""
         with self._read() as conn:
             return int(conn.execute(select(func.count()).select_from(analyses)).scalar())
 
+    # ------------------------------------------------------------------- verify
+    def missing_triggers(self) -> list[str]:
+        """Guard triggers this store should have and has not (dropped by someone)."""
+        expected = migrations.expected_triggers(self.dialect)
+        if not expected:
+            return []
+        with self._read() as conn:
+            if self.dialect == "sqlite":
+                have = {r[0] for r in conn.exec_driver_sql(
+                    "SELECT name FROM sqlite_master WHERE type = 'trigger'")}
+            else:
+                have = {r[0] for r in conn.exec_driver_sql(
+                    "SELECT tgname FROM pg_trigger t JOIN pg_class c ON c.oid = t.tgrelid "
+                    "WHERE c.relnamespace = current_schema()::regnamespace "
+                    "AND NOT t.tgisinternal")}
+        return [t for t in expected if t not in have]
+
+    def verify(self) -> VerifyReport:
+        """Check the whole audit trail: every version, link, file and guard trigger.
+
+        Reports (never raises for) each version whose content, files or link do not
+        match, a gap or fork in the chain, times going backwards along the chain or
+        before a version's parent, versions without a link, files whose bytes do not
+        match their SHA-256, and missing guard triggers.
+        """
+        problems: list[Problem] = [
+            Problem(None, None, f"the guard trigger '{t}' is missing (dropped): the store "
+                                "no longer refuses changes; restore it from a backup")
+            for t in self.missing_triggers()]
+        n_versions = self.count()
+        seen_versions = 0
+        migrated = 0
+        prev_hash, prev_seq, prev_time = GENESIS, 0, None
+        meta: dict[str, tuple[str, int, _dt.datetime]] = {}  # id -> (root, version, time)
+        a, c = analyses, audit_chain
+        with self._read() as conn:
+            q = (select(a, c.c.seq, c.c.prev_hash, c.c.row_hash, c.c.origin)
+                 .join(c, c.c.analysis_id == a.c.id).order_by(c.c.seq))
+            result = conn.execute(q.execution_options(yield_per=200)).mappings()
+            batch: list[Mapping[str, Any]] = []
+
+            def flush() -> None:
+                nonlocal prev_hash, prev_seq, prev_time, seen_versions, migrated
+                files = self._files_of(conn, [r["id"] for r in batch])
+                for r in batch:
+                    seen_versions += 1
+                    migrated += r["origin"] == "migration"
+                    where = (r["id"], r["version"])
+                    link = {"seq": r["seq"], "prev_hash": r["prev_hash"],
+                            "row_hash": r["row_hash"], "origin": r["origin"]}
+                    for text in self._row_problems(r, files.get(r["id"], {}), link):
+                        problems.append(Problem(*where, text))
+                    if r["seq"] != prev_seq + 1:
+                        problems.append(Problem(*where, f"links {prev_seq + 1} to {r['seq'] - 1} "
+                                                        "of the audit chain are missing"))
+                    elif r["prev_hash"] != prev_hash:
+                        problems.append(Problem(*where, f"link {r['seq']} does not follow link "
+                                                        f"{prev_seq} (the chain was rewritten)"))
+                    t = r["created_at"]
+                    if prev_time is not None and t < prev_time:
+                        problems.append(Problem(*where, f"saved at {t.isoformat()}, before the "
+                                                        f"version linked ahead of it "
+                                                        f"({prev_time.isoformat()}): back-dated"))
+                    if r["parent_id"]:
+                        parent = meta.get(r["parent_id"])
+                        if parent is None:
+                            problems.append(Problem(*where, "its parent version is not earlier "
+                                                            "in the audit chain"))
+                        elif (parent[0] != r["root_id"] or r["version"] <= parent[1]
+                              or t < parent[2]):
+                            problems.append(Problem(*where, "it does not follow its parent "
+                                                            "version (root, number or time)"))
+                    elif r["root_id"] != r["id"] or r["version"] != 1:
+                        problems.append(Problem(*where, "a first version must be its own root "
+                                                        "with number 1"))
+                    meta[r["id"]] = (r["root_id"], r["version"], t)
+                    prev_hash, prev_seq = r["row_hash"], r["seq"]
+                    prev_time = t if prev_time is None or t > prev_time else prev_time
+                batch.clear()
+
+            for r in result:
+                batch.append(r)
+                if len(batch) >= 200:
+                    flush()
+            flush()
+            unlinked = list(conn.execute(
+                select(a.c.id, a.c.version).outerjoin(c, c.c.analysis_id == a.c.id)
+                .where(c.c.seq.is_(None))))
+            n_links = int(conn.execute(select(func.count()).select_from(c)).scalar())
+            for aid, version in unlinked:
+                problems.append(Problem(aid, version, "this version has no link in the audit "
+                                                      "chain (added outside specmatch)"))
+            bad_blobs = []
+            for k, in conn.execute(select(blobs.c.sha256)):
+                data = conn.execute(select(blobs.c.data).where(blobs.c.sha256 == k)).scalar()
+                if sha256_hex(bytes(data)) != k:
+                    bad_blobs.append(k)
+            if bad_blobs:
+                users = conn.execute(select(analysis_files.c.analysis_id, a.c.version)
+                                     .join(a, a.c.id == analysis_files.c.analysis_id)
+                                     .where(analysis_files.c.sha256.in_(bad_blobs))).all()
+                for aid, version in users:
+                    problems.append(Problem(aid, version, "one of its files no longer matches "
+                                                          "its SHA-256 (bytes changed)"))
+            missing_blobs = conn.execute(
+                select(analysis_files.c.analysis_id, a.c.version)
+                .join(a, a.c.id == analysis_files.c.analysis_id)
+                .outerjoin(blobs, blobs.c.sha256 == analysis_files.c.sha256)
+                .where(blobs.c.sha256.is_(None))).all()
+            for aid, version in missing_blobs:
+                problems.append(Problem(aid, version, "one of its files is missing from the store"))
+        if seen_versions + len(unlinked) != n_versions:  # pragma: no cover - defensive
+            problems.append(Problem(None, None, "the versions and their links do not add up"))
+        return VerifyReport(versions=n_versions, links=n_links, head_hash=prev_hash,
+                            problems=tuple(problems), migrated=migrated)
+
     # ------------------------------------------------------------------ exports
-    def export_dict(self, analysis_id: str) -> dict[str, Any]:
-        rec = self.get(analysis_id)
+    def export_dict(self, analysis_id: str, viewer: Viewer | None = None) -> dict[str, Any]:
+        rec = self.get(analysis_id, viewer)
+        versions = self.history(rec.id, viewer)
         out = rec.to_dict()
         out["history"] = [{"id": r.id, "version": r.version, "kind": r.kind, "user": r.user,
                            "created_at": r.created_at.isoformat(), "note": r.note,
-                           "verdict": r.verdict} for r in self.history(rec.id)]
+                           "verdict": r.verdict, "chain_hash": r.chain_hash,
+                           "problems": list(r.problems)} for r in versions]
         out["files"] = [{"name": n, "sha256": h} for n, h in rec.files.items()]
         out["store_schema_version"] = SCHEMA_VERSION
+        out["integrity"] = ("ok" if not any(r.problems for r in versions) else
+                            "BROKEN: " + "; ".join(p for r in versions for p in r.problems))
         return out
 
-    def export_json(self, analysis_id: str, *, include_files: bool = False) -> str:
+    def export_json(self, analysis_id: str, *, include_files: bool = False,
+                    viewer: Viewer | None = None) -> str:
         """The whole saved analysis as JSON (with its version history and file hashes).
 
         With ``include_files`` the file bytes are embedded in base64, so the export
         alone is enough to rerun or audit the analysis.
         """
-        out = self.export_dict(analysis_id)
+        out = self.export_dict(analysis_id, viewer)
         if include_files:
             import base64
 
@@ -657,28 +1047,15 @@ class Store:
                 f["base64"] = base64.b64encode(self.file_bytes(f["sha256"])).decode("ascii")
         return json.dumps(out, indent=2, ensure_ascii=False, sort_keys=False)
 
-    def export_html(self, analysis_id: str) -> str:
+    def export_html(self, analysis_id: str, viewer: Viewer | None = None) -> str:
         """A self-contained HTML page: the audit block, then the analysis report."""
-        out = self.export_dict(analysis_id)
+        out = self.export_dict(analysis_id, viewer)
         audit = _audit_html(out)
-        body = None
-        try:  # the full report needs a Result; only possible if one can be rebuilt from the dict
-            from ..identification.result import Result  # type: ignore[attr-defined]
-            from ..reports.html import report_html  # type: ignore[attr-defined]
-        except ImportError:
-            Result = None  # noqa: N806
-        if Result is not None and hasattr(Result, "from_dict"):
-            body = report_html(Result.from_dict(out["data"]))
-        if isinstance(body, str) and "<body" in body.lower():
-            i = body.lower().index("<body")
-            j = body.index(">", i) + 1
-            return body[:j] + audit + body[j:]
         return _plain_html(out, audit)
 
-    # ------------------------------------------------------------------ compare
-    def compare(self, id_a: str, id_b: str) -> dict[str, Any]:
+    def compare(self, id_a: str, id_b: str, viewer: Viewer | None = None) -> dict[str, Any]:
         """Two analyses side by side: the fields, then each candidate's probability in both."""
-        a, b = self.get(id_a), self.get(id_b)
+        a, b = self.get(id_a, viewer), self.get(id_b, viewer)
         fields = []
         names = ["sample_id", "substrate", "reagent", "verdict", "top_smiles", "top_probability",
                  "user", "created_at", "tool_version", "tables_version", "version", "kind", "note"]
@@ -704,16 +1081,57 @@ class Store:
                 "shared_files": sorted(files_a & files_b)}
 
 
-def _candidate_probs(data: Mapping[str, Any]) -> dict[str, float | None]:
-    from .records import _first, _probability
+def _visible(root, viewer: Viewer):
+    """SQL condition: the analysis (judged by its first version) is visible to ``viewer``."""
+    from sqlalchemy import true
 
-    out: dict[str, float | None] = {}
-    for c in data.get("candidates") or data.get("ranking") or []:
-        if isinstance(c, Mapping):
-            smi = _first(c, "canonical_smiles", "smiles")
-            if smi:
-                out[str(smi)] = _probability(c)
-    return out
+    if viewer.everyone:
+        return true()
+    conds = [root.c.user_name == viewer.name]
+    conds += [root.c.groups.contains(f"|{g}|", autoescape=True) for g in _clean_groups(viewer.groups)]
+    return or_(*conds)
+
+
+def _check_record(data: Mapping[str, Any], file_hashes: set[str], version: str) -> None:
+    """Refuse what is not an analysis made by this release from the files given."""
+    missing = [k for k in ("inputs", "versions", "candidates", "verdict") if k not in data]
+    if missing:
+        raise SpecmatchError(
+            f"this is not an analysis result (no {', '.join(missing)}); save what "
+            "specmatch.identify() returned (Result.to_dict())")
+    verdict, cands = data["verdict"], data["candidates"]
+    if (not isinstance(data["inputs"], Mapping) or not isinstance(data["versions"], Mapping)
+            or not isinstance(verdict, Mapping) or not isinstance(verdict.get("word"), str)
+            or not isinstance(cands, list)
+            or not all(isinstance(c, Mapping) and isinstance(c.get("smiles"), str) for c in cands)):
+        raise SpecmatchError("this is not an analysis result (inputs and versions mappings, a "
+                             "verdict with its word, candidates with their SMILES); save "
+                             "Result.to_dict()")
+    p_top = verdict.get("p_top")
+    if p_top is not None and not isinstance(p_top, (int, float)):
+        raise SpecmatchError("this is not an analysis result: the verdict's p_top is not a number")
+    made_by = data["versions"].get("specmatch")
+    if made_by != version:
+        raise SpecmatchError(
+            f"the record says it was made by specmatch {made_by!r}, but this is specmatch "
+            f"{version}; the store keeps only analyses made by the running release "
+            "(rerun the analysis)")
+    named = data["inputs"].get("files") or {}
+    if not isinstance(named, Mapping):
+        raise SpecmatchError("the record's input files must be a mapping (role -> file)")
+    for role, f in named.items():
+        digest = f.get("sha256") if isinstance(f, Mapping) else None
+        if digest not in file_hashes:
+            name = f.get("name") if isinstance(f, Mapping) else f
+            raise SpecmatchError(
+                f"the record names the input file '{name}' ({role}) but it was not given with "
+                "the same bytes; save the analysis with the files it was made from")
+
+
+def _candidate_probs(data: Mapping[str, Any]) -> dict[str, float | None]:
+    from .records import _probability
+
+    return {str(c["smiles"]): _probability(c) for c in data["candidates"]}
 
 
 def _as_utc(value: _dt.datetime | _dt.date | str, *, end: bool) -> _dt.datetime:
@@ -749,7 +1167,11 @@ def _audit_html(out: Mapping[str, Any]) -> str:
         f"<p>id <code>{e(out['id'])}</code>, version {e(out['version'])} ({e(out['kind'])}), "
         f"sample {e(out['sample_id'])}, run by {e(out['user'])} at {e(out['created_at'])} UTC, "
         f"specmatch {e(out['tool_version'])}, tables {e(out['tables_version'])}.</p>"
-        f"<p>Data checksum (SHA-256) <code>{e(out['data_sha256'])}</code></p>"
+        f"<p>Data checksum (SHA-256) <code>{e(out['data_sha256'])}</code>; audit chain "
+        f"<code>{e(out.get('chain_hash'))}</code></p>"
+        + ("" if out.get("integrity") == "ok" else
+           f"<p class='specmatch-broken'><b>Audit check failed:</b> {e(out.get('integrity'))}</p>")
+        + 
         "<h3>Versions</h3><table><tr><th>version</th><th>kind</th><th>when (UTC)</th>"
         f"<th>who</th><th>verdict</th><th>note</th></tr>{rows}</table>"
         f"<h3>Input files</h3><table><tr><th>name</th><th>SHA-256</th></tr>{files}</table>"
@@ -821,7 +1243,7 @@ def _plain_html(out: Mapping[str, Any], audit: str) -> str:
     return "".join(parts)
 
 
-def open_store(url: str | None = None, *, upgrade: bool = True) -> Store:
+def open_store(url: str | None = None, *, upgrade: bool = True, read_only: bool = False) -> Store:
     """Open (and create or upgrade) the analysis store.
 
     Parameters
@@ -830,36 +1252,61 @@ def open_store(url: str | None = None, *, upgrade: bool = True) -> Store:
         SQLAlchemy URL; default ``$SPECMATCH_STORE`` or a SQLite file in the user's
         data directory (:func:`default_store_url`).
     upgrade
-        Apply missing schema migrations (the default).
+        Apply missing schema migrations (the default; not with ``read_only``).
+    read_only
+        Open for reading only (nothing is created, upgraded or written): works on a
+        read-only file or file system. The store must exist at this release's schema.
+
+    Raises
+    ------
+    SpecmatchError
+        For a bad URL, a missing driver or server, a damaged file (SQLite's integrity
+        check runs on every open) or a schema this release cannot use.
     """
     resolved = resolve_store_url(url)
-    store = Store(_make_engine(resolved), resolved)
+    store = Store(_make_engine(resolved, read_only=read_only), resolved, read_only=read_only)
     try:
-        if upgrade:
-            store.upgrade()
+        try:
+            if upgrade and not read_only:
+                store.upgrade()
+            store.check_open()
+        except SpecmatchError as exc:
+            # a read-only file system: the -shm file of a WAL store cannot be made
+            if not (read_only and store.dialect == "sqlite" and "unable to open" in str(exc)):
+                raise
+            store.close()
+            store = Store(_sqlite_engine(make_url(resolved), read_only=True, immutable=True),
+                          resolved, read_only=True)
+            _guard_immutable(store.engine)
+            store.check_open()
     except SpecmatchError:
         store.close()
         raise
     except (OperationalError, DBAPIError) as exc:
         store.close()
+        text = _first_line(exc)
+        if any(w in text.lower() for w in ("malformed", "not a database", "corrupt")):
+            raise SpecmatchError(f"the analysis store {store!r} is damaged ({text}); restore it "
+                                 "from a backup") from None
         raise SpecmatchError(
-            f"cannot open the analysis store {store!r}: {getattr(exc, 'orig', exc)}; "
-            "check the URL (option --store or SPECMATCH_STORE) and that the server is running"
+            f"cannot open the analysis store {store!r}: {text}; check the URL (option --store "
+            "or SPECMATCH_STORE), that the server is running and that the place is writable"
         ) from None
     return store
 
 
 def save_result(store: Store, result: Any, files: Mapping[str, bytes] | None = None, *,
                 sample_id: str | None = None, user: str | None = None,
-                input_key: str | None = None) -> str:
-    """Save an identification ``Result`` (its ``to_dict()`` form); return the analysis id."""
-    data = result.to_dict() if hasattr(result, "to_dict") else result
-    return store.save(data, files or {}, sample_id=sample_id, user=user, input_key=input_key)
+                input_key: str | None = None, groups: Sequence[str] | str | None = None) -> str:
+    """Save an identification ``Result`` (or its ``to_dict()`` form); return the analysis id."""
+    data = result if isinstance(result, Mapping) else result.to_dict()
+    return store.save(data, files or {}, sample_id=sample_id, user=user, input_key=input_key,
+                      groups=groups)
 
 
 def save_run(result: Any, paths: Mapping[str, str | os.PathLike | None], *,
              store: "Store | str | None" = None, sample_id: str | None = None,
-             user: str | None = None) -> str:
+             user: str | None = None, groups: Sequence[str] | str | None = None) -> str:
     """Save an identify run together with the spectrum files it read; return the id.
 
     For the ``identify`` command and scripts: ``paths`` maps roles (``c13``, ``h1``,
@@ -871,14 +1318,17 @@ def save_run(result: Any, paths: Mapping[str, str | os.PathLike | None], *,
         if not path:
             continue
         p = Path(path)
-        try:
-            content = p.read_bytes()
-        except OSError as exc:
-            raise SpecmatchError(f"cannot read '{p}' to save it with the analysis: "
-                                 f"{exc.strerror}") from None
+        content = _read_input(p)
         name = p.name if p.name not in files else f"{role}/{p.name}"
         files[name] = content
     if isinstance(store, Store):
-        return save_result(store, result, files, sample_id=sample_id, user=user)
+        return save_result(store, result, files, sample_id=sample_id, user=user, groups=groups)
     with open_store(store) as st:
-        return save_result(st, result, files, sample_id=sample_id, user=user)
+        return save_result(st, result, files, sample_id=sample_id, user=user, groups=groups)
+
+
+def _read_input(path: Path) -> bytes:
+    from .batch import MAX_FILE_BYTES, _read_guarded
+
+    return _read_guarded(path, MAX_FILE_BYTES, label=f"'{path}' (to save it with the analysis)",
+                         what="a spectrum")

@@ -1,0 +1,432 @@
+"""The one way specmatch runs many independent tasks: in this process, on local worker
+processes, or on a Dask cluster.
+
+Every batch (``specmatch batch``, ``rank --batch``, ``predict --batch``) calls
+:func:`run_tasks` with a top-level task function and its items; the function's
+result or its error message comes back for each item, so one bad item never stops
+the others.
+
+Worker policy (the same for every batch)
+----------------------------------------
+1. A Dask scheduler given (``--scheduler``): the tasks run on that cluster.
+2. ``workers`` given (``--workers N``), else ``$SPECMATCH_WORKERS``: 0 runs in this
+   process, N >= 1 starts N local worker processes (never more than there are tasks).
+3. Otherwise automatic: ``min(available CPUs, MAX_AUTO_WORKERS, tasks // per_worker)``
+   processes, where ``per_worker`` is the caller's estimate of how many tasks pay for
+   a worker's start-up (importing specmatch and RDKit takes about a second); fewer
+   than two means this process.
+
+Local workers are *spawned* (they start clean: no copied database connections, locks
+or threads of the parent). They end with their parent whatever stops it: on Linux each
+worker asks the kernel for SIGTERM when its parent dies (``prctl(PR_SET_PDEATHSIG)``),
+so a SIGKILL of the parent takes the workers with it; SIGTERM, SIGHUP and Ctrl-C in the
+parent stop the workers before :func:`run_tasks` re-raises (as :class:`Stopped` or
+``KeyboardInterrupt``). Workers ignore Ctrl-C themselves (the parent decides), and a
+worker stopped by SIGTERM removes its scratch folder (:func:`scratch_dir`) first. The
+parent removes the whole scratch folder of a run on every exit it lives through, and
+the next run removes folders left by runs that were killed outright.
+"""
+
+from __future__ import annotations
+
+import concurrent.futures as cf
+import os
+import shutil
+import signal
+import sys
+import tempfile
+import threading
+import time
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Callable, Iterable, Iterator, Sequence
+
+from .errors import SpecmatchError
+
+__all__ = ["MAX_AUTO_WORKERS", "Outcome", "Plan", "Stopped", "plan_workers", "run_tasks",
+           "scratch_dir"]
+
+ENV_WORKERS = "SPECMATCH_WORKERS"
+MAX_AUTO_WORKERS = 4
+"""Most local processes the automatic policy starts (memory: ~150 MB each)."""
+SCRATCH_PREFIX = "specmatch-run-"
+STOP_SIGNALS = tuple(s for s in (getattr(signal, "SIGTERM", None), getattr(signal, "SIGHUP", None))
+                     if s is not None)
+WORKER_DIED = ("a worker process died (crash or out of memory) while this task was queued or "
+               "running; run it again to retry")
+
+
+class Stopped(KeyboardInterrupt):
+    """The parent process was asked to stop (SIGTERM, SIGHUP); finished work is kept."""
+
+    def __init__(self, signum: int):
+        super().__init__(signum)
+        self.signum = signum
+
+    @property
+    def name(self) -> str:
+        return signal.Signals(self.signum).name
+
+
+@dataclass(frozen=True)
+class Plan:
+    """Where the tasks run: ``kind`` is "inline", "processes" or "dask"."""
+
+    kind: str
+    workers: int
+    scheduler: Any = None
+
+    def describe(self) -> str:
+        if self.kind == "inline":
+            return "in this process"
+        if self.kind == "dask":
+            return f"on the Dask cluster at {self.scheduler}"
+        return f"on {self.workers} local worker process{'es' if self.workers != 1 else ''}"
+
+
+@dataclass(frozen=True)
+class Outcome:
+    """One task's outcome: ``ok`` with ``value``, or not ok with ``error`` (a message)."""
+
+    index: int
+    ok: bool
+    value: Any = None
+    error: str = ""
+
+
+def _available_cpus() -> int:
+    try:
+        return len(os.sched_getaffinity(0))
+    except (AttributeError, OSError):
+        return os.cpu_count() or 1
+
+
+def plan_workers(n_tasks: int, workers: int | None = None, scheduler: Any = None, *,
+                 per_worker: int = 1) -> Plan:
+    """Apply the worker policy (module docstring) to a batch of ``n_tasks`` tasks."""
+    if scheduler is not None:
+        return Plan("dask", 0, scheduler)
+    if workers is None:
+        env = os.environ.get(ENV_WORKERS, "").strip()
+        if env:
+            if not env.isdigit():
+                raise SpecmatchError(f"{ENV_WORKERS}={env!r} is not a number of worker processes; "
+                                     "set it to 0 (this process) or a count such as 2")
+            workers = int(env)
+    if workers is not None:
+        if workers < 0:
+            raise SpecmatchError(f"--workers {workers}: give 0 (this process) or a positive count")
+        n = min(workers, max(n_tasks, 1))
+        return Plan("inline", 0) if n == 0 else Plan("processes", n)
+    n = min(_available_cpus(), MAX_AUTO_WORKERS, n_tasks // max(1, per_worker))
+    return Plan("processes", n) if n >= 2 else Plan("inline", 0)
+
+
+# ------------------------------------------------------------------ worker side
+_SCRATCH: Path | None = None  # this process's scratch folder (set in workers and inline runs)
+
+
+def scratch_dir() -> str | None:
+    """A folder for temporary files of the current task, removed whatever ends the run.
+
+    In a local worker or an inline run it lies inside the run's scratch folder (which
+    the parent removes on exit); elsewhere (a Dask worker) it is None: use the system
+    temporary folder with a context manager.
+    """
+    if _SCRATCH is None:
+        return None
+    _SCRATCH.mkdir(parents=True, exist_ok=True)
+    return str(_SCRATCH)
+
+
+def _die_with_parent() -> None:
+    """Ask Linux to send this process SIGTERM when its parent dies (no-op elsewhere)."""
+    if not sys.platform.startswith("linux"):
+        return
+    import ctypes
+
+    try:
+        libc = ctypes.CDLL(None, use_errno=True)
+        libc.prctl(1, int(signal.SIGTERM), 0, 0, 0)  # 1 = PR_SET_PDEATHSIG
+    except (OSError, AttributeError):  # no prctl: the parent's handlers still stop us
+        pass
+
+
+def _on_worker_term(signum, frame) -> None:  # pragma: no cover - runs in workers
+    if _SCRATCH is not None:
+        shutil.rmtree(_SCRATCH, ignore_errors=True)
+    os._exit(128 + signum)
+
+
+def _worker_init(parent_pid: int, scratch_root: str | None, init: Callable[[], Any] | None) -> None:
+    global _SCRATCH
+    _die_with_parent()
+    if os.getppid() != parent_pid:  # the parent died before we asked to follow it
+        os._exit(1)
+    signal.signal(signal.SIGTERM, _on_worker_term)
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C goes to the whole group: parent decides
+    if scratch_root:
+        _SCRATCH = Path(scratch_root) / f"worker-{os.getpid()}"
+    if init is not None:
+        init()
+
+
+def _call(fn: Callable[[Any], Any], item: Any) -> tuple[bool, Any]:
+    """Run one task; its error comes back as text (an exception class the parent cannot
+    unpickle, or a result that is not picklable, then fails this task alone)."""
+    try:
+        return True, fn(item)
+    except SpecmatchError as exc:
+        return False, str(exc)
+    except Exception as exc:  # noqa: BLE001 - one bad task must not stop the batch
+        return False, f"internal error ({type(exc).__name__}: {exc})"
+
+
+def _call_chunk(fn: Callable[[Any], Any], items: Sequence[Any]) -> list[tuple[bool, Any]]:
+    return [_call(fn, item) for item in items]
+
+
+# ------------------------------------------------------------------ parent side
+def _sweep_stale_scratch() -> None:
+    """Remove scratch folders of runs whose parent no longer exists (killed outright)."""
+    try:
+        entries = list(Path(tempfile.gettempdir()).glob(SCRATCH_PREFIX + "*"))
+    except OSError:
+        return
+    for d in entries:
+        try:
+            pid = int(d.name[len(SCRATCH_PREFIX):].split("-")[0])
+        except ValueError:
+            continue
+        if pid == os.getpid():
+            continue
+        try:
+            os.kill(pid, 0)
+            continue  # still running
+        except ProcessLookupError:
+            shutil.rmtree(d, ignore_errors=True)
+        except PermissionError:  # another user's live process
+            continue
+
+
+@contextmanager
+def _stop_on_signals() -> Iterator[None]:
+    """Turn SIGTERM/SIGHUP into :class:`Stopped` in the main thread, for the duration."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def handler(signum, frame):
+        raise Stopped(signum)
+
+    old = {}
+    for s in STOP_SIGNALS:
+        try:
+            old[s] = signal.signal(s, handler)
+        except (ValueError, OSError):
+            pass
+    try:
+        yield
+    finally:
+        for s, h in old.items():
+            signal.signal(s, h)
+
+
+class _Local:
+    """A spawn process pool that is replaced when a worker dies and stopped hard on exit."""
+
+    remote = False
+
+    def __init__(self, n: int, scratch: str, init: Callable[[], Any] | None):
+        self.n, self.scratch, self.init = n, scratch, init
+        self.pool = self._make()
+
+    def _make(self) -> cf.ProcessPoolExecutor:
+        import multiprocessing
+
+        return cf.ProcessPoolExecutor(max_workers=self.n,
+                                      mp_context=multiprocessing.get_context("spawn"),
+                                      initializer=_worker_init,
+                                      initargs=(os.getpid(), self.scratch, self.init))
+
+    def submit(self, fn: Callable, *args: Any) -> Any:
+        try:
+            return self.pool.submit(fn, *args)
+        except cf.process.BrokenProcessPool:
+            self.pool.shutdown(wait=False, cancel_futures=True)
+            self.pool = self._make()
+            return self.pool.submit(fn, *args)
+
+    def wait_some(self, pending: Iterable[Any]) -> Iterable[Any]:
+        return cf.wait(list(pending), return_when=cf.FIRST_COMPLETED)[0]
+
+    def close(self, *, clean: bool) -> None:
+        if clean:
+            self.pool.shutdown(wait=True)
+            return
+        # interrupted: do not wait for running tasks; end the workers now
+        procs = list((getattr(self.pool, "_processes", None) or {}).values())
+        self.pool.shutdown(wait=False, cancel_futures=True)
+        for p in procs:
+            if p.is_alive():
+                p.terminate()
+        deadline = time.monotonic() + 5
+        for p in procs:
+            p.join(max(0.0, deadline - time.monotonic()))
+            if p.is_alive():
+                p.kill()
+                p.join(1)
+
+
+class _Dask:
+    """Dask's own futures API (its concurrent.futures wrapper costs a thread hop per task)."""
+
+    remote = True
+
+    def __init__(self, scheduler: Any):
+        try:
+            from distributed import Client, as_completed
+        except ImportError:
+            raise SpecmatchError("--scheduler needs Dask: install 'specmatch[distributed]'") from None
+        if isinstance(scheduler, Client):
+            self.client, self.own = scheduler, False
+        else:
+            try:
+                self.client, self.own = Client(scheduler, timeout="10s"), True
+            except (OSError, TimeoutError, ValueError) as exc:
+                raise SpecmatchError(
+                    f"cannot reach the Dask scheduler at '{scheduler}' ({exc}); start one "
+                    "('dask scheduler') or run without --scheduler") from None
+        self.n = sum(w.get("nthreads", 1)
+                     for w in self.client.scheduler_info()["workers"].values()) or 1
+        self.finished = as_completed()
+
+    def submit(self, fn: Callable, *args: Any) -> Any:
+        fut = self.client.submit(fn, *args, pure=False)
+        self.finished.add(fut)
+        return fut
+
+    def wait_some(self, pending: Iterable[Any]) -> Iterable[Any]:
+        return self.finished.next_batch(block=True)
+
+    def close(self, *, clean: bool) -> None:
+        if not clean:
+            for fut in list(self.finished.futures):
+                fut.cancel()
+        if self.own:
+            self.client.close()
+
+
+def run_tasks(fn: Callable[[Any], Any], items: Iterable[Any], plan: Plan, *,
+              ordered: bool = False, chunk: int = 1, initializer: Callable[[], Any] | None = None,
+              ) -> Iterator[list[Outcome]]:
+    """Run ``fn(item)`` for every item; yield the outcomes in groups as they finish.
+
+    Parameters
+    ----------
+    fn
+        A top-level (importable) function of one argument: workers import it by name.
+    items
+        Consumed lazily, a few per worker ahead (memory stays bounded); an item may be
+        prepared by the iterator itself (files read in the parent, say).
+    plan
+        From :func:`plan_workers`.
+    ordered
+        Yield outcomes in item order (else as they finish).
+    chunk
+        Items sent to a worker at once (small tasks: fewer round trips).
+    initializer
+        Run once in each local worker (warm caches); a top-level function.
+
+    Each group holds the tasks that finished together (a caller saving results can
+    commit a group in one transaction). A task that raised gives an
+    :class:`Outcome` with ``ok=False`` and the message; a worker that died fails its
+    tasks with a message saying so and a fresh pool goes on with the rest. Stopped by
+    a signal, the workers are ended and the scratch folder removed before
+    :class:`Stopped` (or ``KeyboardInterrupt``) propagates.
+    """
+    global _SCRATCH
+    _sweep_stale_scratch()
+    scratch = tempfile.mkdtemp(prefix=f"{SCRATCH_PREFIX}{os.getpid()}-")
+    chunk = max(1, int(chunk))
+    try:
+        with _stop_on_signals():
+            if plan.kind == "inline":
+                before, _SCRATCH = _SCRATCH, Path(scratch) / "inline"
+                try:
+                    if initializer is not None:
+                        initializer()
+                    for i, item in enumerate(items):
+                        ok, value = _call(fn, item)
+                        yield [Outcome(i, ok, value if ok else None, "" if ok else value)]
+                finally:
+                    _SCRATCH = before
+                return
+            pool: Any = _Dask(plan.scheduler) if plan.kind == "dask" else _Local(
+                plan.workers, scratch, initializer)
+            clean = False
+            try:
+                yield from _drive(pool, fn, items, ordered, chunk)
+                clean = True
+            finally:
+                pool.close(clean=clean)
+    finally:
+        shutil.rmtree(scratch, ignore_errors=True)
+
+
+def _drive(pool: Any, fn: Callable, items: Iterable[Any], ordered: bool,
+           chunk: int) -> Iterator[list[Outcome]]:
+    # a few chunks queued per worker hide the round trip (a scheduler's is longer);
+    # only in flight, so memory stays bounded and an interruption loses little
+    window = max(32, 8 * pool.n) if pool.remote else max(8, 4 * pool.n)
+    it = enumerate(items)
+    pending: dict[Any, list[int]] = {}
+    exhausted = False
+    buffered: dict[int, Outcome] = {}
+    next_out = 0
+
+    def top_up() -> None:
+        nonlocal exhausted
+        # ordered: results waiting for an earlier one count too, so a slow task cannot
+        # make the buffer grow without bound
+        while not exhausted and len(pending) + len(buffered) // chunk < window:
+            group: list[tuple[int, Any]] = []
+            for i, item in it:
+                group.append((i, item))
+                if len(group) >= chunk:
+                    break
+            if not group:
+                exhausted = True
+                return
+            fut = pool.submit(_call_chunk, fn, [x for _, x in group])
+            pending[fut] = [i for i, _ in group]
+
+    top_up()
+    while pending:
+        finished = pool.wait_some(pending)
+        group_out: list[Outcome] = []
+        for fut in finished:
+            idx = pending.pop(fut)
+            try:
+                results = fut.result()
+            except cf.process.BrokenProcessPool:
+                results = [(False, WORKER_DIED)] * len(idx)
+            except cf.CancelledError:
+                results = [(False, "cancelled")] * len(idx)
+            except Exception as exc:  # noqa: BLE001 - pickling failed, a worker was lost...
+                results = [(False, f"worker failure ({type(exc).__name__}: {exc})")] * len(idx)
+            for i, (ok, value) in zip(idx, results):
+                group_out.append(Outcome(i, ok, value if ok else None, "" if ok else str(value)))
+        if ordered:
+            for o in group_out:
+                buffered[o.index] = o
+            group_out = []
+            while next_out in buffered:
+                group_out.append(buffered.pop(next_out))
+                next_out += 1
+        # after the buffer is flushed: with nothing in flight it is empty, so this
+        # always sends more while items are left
+        top_up()
+        if group_out:
+            yield group_out

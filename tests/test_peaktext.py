@@ -10,7 +10,7 @@ from specmatch.errors import SpecmatchError
 from specmatch.prediction import predict_structure
 from specmatch.prediction.model import CarbonShift, Prediction, ProtonGroup
 from specmatch.prediction.h1.predictor import predict_protons
-from specmatch.reports.peaktext import measured_peak_text, predicted_peak_text
+from specmatch.reports.journal_text import measured_peak_text, predicted_peak_text
 from specmatch.spectra.model import Multiplet, Peak, PeakList
 from specmatch.structures import parse_structure
 
@@ -81,7 +81,7 @@ def test_bad_input_raises_specmatch_error():
 
 
 def test_prediction_table_includes_peak_text():
-    from specmatch.reports.prediction_text import prediction_table
+    from specmatch.reports.tables_text import prediction_table
 
     pred = predict_structure(parse_structure("CC(C)Br"))
     table = prediction_table(pred)

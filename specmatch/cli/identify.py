@@ -31,6 +31,10 @@ def cmd_identify(args: argparse.Namespace) -> int:
         from ..reports.html import write_report
 
         write_report(result, args.report)
+    if args.nmredata:
+        from ..reports.nmredata import write_nmredata
+
+        write_nmredata(result, args.nmredata)
     # the verdict first: a save that fails (read-only store, full disk) must not hide it
     if args.json:
         _print_json(result.to_dict())
@@ -86,6 +90,8 @@ def register(sub: argparse._SubParsersAction) -> None:
                    help="largest mixture considered (default 2; 1: assume a pure sample)")
     p.add_argument("--no-prior", action="store_true", help="verdict from the spectra alone")
     p.add_argument("--report", metavar="OUT.html", help="write a self-contained HTML report")
+    p.add_argument("--nmredata", metavar="OUT.sdf",
+                   help="write the top structure with its assigned signals as NMReDATA (SD file)")
     p.add_argument("--save", action="store_true", help="save the analysis (inputs, files, verdict) in the store")
     p.add_argument("--store", metavar="URL", help="with --save: database URL (default $SPECMATCH_STORE)")
     p.add_argument("--sample-id", metavar="ID", help="with --save: the sample's id")

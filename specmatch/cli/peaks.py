@@ -8,7 +8,7 @@ from ._common import _print_json
 
 
 def cmd_peaks(args: argparse.Namespace) -> int:
-    from ..reports.peaks_text import peaklist_table
+    from ..reports.tables_text import peaklist_table
     from ..spectra import peaks_from_file
 
     peaklist = peaks_from_file(args.file, nucleus=args.nucleus, solvent=args.solvent,

@@ -16,7 +16,7 @@ PER_WORKER = 200
 
 def cmd_predict(args: argparse.Namespace) -> int:
     from ..prediction import predict
-    from ..reports.prediction_text import prediction_table
+    from ..reports.tables_text import prediction_table
 
     if args.batch:
         return _batch(args)

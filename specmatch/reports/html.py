@@ -1,6 +1,8 @@
 """Self-contained HTML report of an identification.
 
-One file, no network: structures are inline SVG drawn with RDKit (predicted 13C
+One file, no network, rendered from the Jinja2 template ``templates/report.html``
+(the store's export of a saved analysis is the same report with its audit block).
+Structures are inline SVG drawn with RDKit (predicted 13C
 shifts written at the carbons), overlays are inline SVG stick plots (observed
 lines up, a candidate's predicted lines down, assignments joined), tables are
 plain HTML. It lists the cautions, the reagent's safety notes, tool and table
@@ -11,35 +13,23 @@ from __future__ import annotations
 
 import datetime as _dt
 import html
+from collections.abc import Mapping
+from functools import lru_cache
+from pathlib import Path
 from typing import Any
+
+from ..identification.ranking import THRESHOLDS
+from . import numbers as fmt
+from .mixture_text import mixture_text
+from .naming import structure_class
+from .summary import names_for_result, signal_words, summarise
 
 __all__ = ["report_html", "write_report", "structure_svg", "overlay_svg"]
 
-_CSS = """
-body{font-family:system-ui,-apple-system,"Segoe UI",sans-serif;margin:0;background:#f7f7f4;color:#1f2328}
-main{max-width:1100px;margin:0 auto;padding:1.2rem 1.5rem 3rem}
-h1{font-size:1.45rem;margin:.4rem 0 .2rem}h2{font-size:1.15rem;margin:1.6rem 0 .5rem;border-bottom:1px solid #d8d8d0}
-.sub{color:#5b616b;font-size:.9rem}
-.box{border-radius:6px;padding:.7rem 1rem;margin:.7rem 0}
-.verdict{background:#e7f0ea;border-left:5px solid #2f6f4f;font-size:1.05rem}
-.verdict.weak{background:#f6efe0;border-left-color:#a86b12}
-.advisory{background:#eef0f6;border-left:5px solid #4a5a8a}
-.safety{background:#f8e9e6;border-left:5px solid #9b2c1f}
-.caution{background:#fbf6e4;border-left:5px solid #b38a12}
-table{border-collapse:collapse;margin:.4rem 0;font-size:.88rem}
-th,td{padding:.25rem .55rem;border-bottom:1px solid #e2e2da;text-align:left;vertical-align:middle}
-th{background:#ecece6}td.num{text-align:right;font-variant-numeric:tabular-nums}
-tr.unexplained td,tr.notobs td{color:#8a4b08}
-.cards{display:flex;flex-wrap:wrap;gap:.8rem}
-.card{background:#fff;border:1px solid #deded6;border-radius:6px;padding:.5rem;width:250px}
-.card .p{font-size:1.1rem;font-weight:600}
-code{font-size:.85rem;word-break:break-all}
-details{margin:.3rem 0}summary{cursor:pointer;color:#2f4f7f}
-svg text{font-family:system-ui,sans-serif}
-svg.plot{max-width:100%;height:auto;background:#fff;border:1px solid #e2e2da;border-radius:4px;margin:.3rem 0}
-td.sub{max-width:340px}
-pre{white-space:pre-wrap;font-size:.82rem;background:#fff;border:1px solid #e2e2da;padding:.5rem}
-"""
+
+
+#: the Jinja2 templates (package data)
+TEMPLATES = Path(__file__).with_name("templates")
 
 #: structure cards drawn in the full report (the table lists every candidate)
 CARDS = 8
@@ -175,16 +165,14 @@ def curve_overlay_svg(ppm: "np.ndarray", measured: "np.ndarray", predicted: "np.
 
 def _measured_overlay(result: Any, c, colour: str, nucleus: str = "1H") -> str:
     """The measured spectrum against the candidate's simulated spectrum, if both exist."""
-    spec = getattr(result, "h1_spectrum" if nucleus == "1H" else "c13_spectrum", None)
+    spec = result.h1_spectrum if nucleus == "1H" else result.c13_spectrum
     if spec is None:
         return ""
-    try:
-        import numpy as np
+    import numpy as np
 
-        from ..identification.scoring import prepare
-        from ..prediction.simulate import simulate_13c, simulate_1h
-    except ImportError:  # the simulation module is optional for the report
-        return ""
+    from ..identification.scoring import prepare
+    from ..prediction.simulate import simulate_13c, simulate_1h
+
     ppm = np.asarray(spec.ppm, float)
     rows = c.h1_table if nucleus == "1H" else c.c13_table
     seen = [r.observed_ppm for r in rows if r.observed_ppm is not None]
@@ -234,156 +222,108 @@ def _overlay_for(c, nucleus: str, colour: str) -> str:
                        title=f"{nucleus}: {c.smiles}")
 
 
-def _signal_table(rows, nucleus: str) -> str:
-    if not rows:
-        return ""
-    ppm = "{:.1f}" if nucleus == "13C" else "{:.2f}"
-    f = lambda x, fmt: "-" if x is None else fmt.format(x)
-    hcol = "H" if nucleus == "13C" else "nH"
-    out = [f"<table><tr><th>observed / ppm</th><th>predicted / ppm</th><th>sigma / ppm</th>"
-           f"<th>deviation / sigma</th><th>{hcol}</th><th>atoms</th><th>status</th><th>environment</th></tr>"]
+def _signal_rows(rows, nucleus: str) -> list[dict[str, str]]:
+    out = []
     for r in rows:
-        cls = {"unexplained": "unexplained", "not observed": "notobs"}.get(r.status, "")
         h = r.hydrogens if nucleus == "13C" else r.protons
-        out.append(f'<tr class="{cls}"><td class="num">{f(r.observed_ppm, ppm)}</td>'
-                   f'<td class="num">{f(r.predicted_ppm, ppm)}</td><td class="num">{f(r.sigma_ppm, "{:.2f}")}</td>'
-                   f'<td class="num">{f(r.deviation_sigma, "{:+.1f}")}</td><td class="num">{_e("-" if h is None else h)}</td>'
-                   f'<td>{_e(" ".join(str(a + 1) for a in r.atoms))}</td><td>{_e(r.status)}</td>'
-                   f'<td>{_e(r.environment)}</td></tr>')
-    out.append("</table>")
-    return "".join(out)
+        out.append({"css": {"unexplained": "unexplained", "not observed": "notobs"}.get(r.status, ""),
+                    "observed": fmt.ppm(r.observed_ppm, nucleus), "predicted": fmt.ppm(r.predicted_ppm, nucleus),
+                    "sigma": fmt.ppm(r.sigma_ppm, nucleus), "deviation": fmt.sigma(r.deviation_sigma),
+                    "h": "" if h is None else str(h), "atoms": " ".join(str(a + 1) for a in r.atoms),
+                    "status": r.status, "environment": r.environment})
+    return out
 
 
-def _pathway_cell(pathway: str) -> str:
-    if not pathway:
-        return ""
-    steps = pathway.split(" -> ")
-    if len(steps) <= 2 and len(pathway) < 60:
-        return _e(pathway)
-    return (f"<details><summary>{len(steps)} steps</summary>"
-            + "<br>".join(_e(x) for x in steps) + "</details>")
+def _threshold_words() -> str:
+    t = THRESHOLDS
+    return (f"thresholds: decisive at {fmt.percent(t['decisive'])} or more, likely at "
+            f"{fmt.percent(t['likely'])} or more, tentative at odds of {t['tentative_odds']:g}:1 or better "
+            "over the runner-up, otherwise cannot tell apart")
 
 
-def _mixture_html(mix: Any) -> str:
-    if mix is None:
-        return ""
-    d = mix.to_dict() if hasattr(mix, "to_dict") else mix
-    body = ""
-    try:
-        from .mixture_text import mixture_text
+@lru_cache(maxsize=1)
+def _environment():
+    from jinja2 import Environment, FileSystemLoader, StrictUndefined, select_autoescape
 
-        body = f"<pre>{_e(mixture_text(mix))}</pre>"
-    except Exception:  # the mixture module is optional; fall back to its dict
-        import json
-
-        body = f"<pre>{_e(json.dumps(d, indent=2, default=str))}</pre>"
-    return f"<h2>Product ratio (1H mixture estimate)</h2>{body}"
+    return Environment(loader=FileSystemLoader(str(TEMPLATES)), autoescape=select_autoescape(["html"]),
+                       undefined=StrictUndefined, trim_blocks=False, lstrip_blocks=False)
 
 
-def report_html(result: Any, fragment: bool = False) -> str:
-    """The report as an HTML string; `fragment=True` gives a compact block for notebooks."""
-    ranking = getattr(result, "ranking", result)
+def report_html(result: Any, fragment: bool = False, audit: Mapping[str, Any] | None = None) -> str:
+    """The report as an HTML string.
+
+    Parameters
+    ----------
+    result : Result
+        The identification.
+    fragment : bool
+        A compact block for notebooks (no page head, first candidate's overlay only).
+    audit : mapping, optional
+        A saved analysis's record (``Store.export_dict``): its id, versions and
+        files are shown first. The store's HTML export is this report with that block.
+    """
+    from markupsafe import Markup
+
+    ranking = result.ranking
     v = ranking.verdict
-    inputs = getattr(result, "inputs", {}) or {}
-    weak = v.word not in ("decisive", "likely")
-    parts: list[str] = []
-    if not fragment:
-        now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
-        title = "specmatch identification report"
-        parts.append(f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>"
-                     f"<meta name='viewport' content='width=device-width, initial-scale=1'>"
-                     f"<title>{title}</title><style>{_CSS}</style></head><body><main>"
-                     f"<h1>{title}</h1><div class='sub'>written {now}</div>")
-    else:
-        parts.append(f"<div><style>{_CSS}</style>")
-    adv = getattr(result, "caution", None)
-    if adv:
-        parts.append(f"<div class='box advisory'><b>Advisory.</b> {_e(adv)}</div>")
-    safety = getattr(result, "safety_notes", ()) or ()
-    if safety:
-        parts.append("<div class='box safety'><b>Reagent safety</b><ul>"
-                     + "".join(f"<li>{_e(s)}</li>" for s in safety) + "</ul></div>")
-    parts.append(f"<div class='box verdict{' weak' if weak else ''}'><b>Verdict: {_e(v.word)}</b><br>"
-                 f"{_e(v.text)}<div class='sub'>based on the {_e(v.basis)} probability; thresholds: "
-                 f"decisive &ge; 0.95, likely &ge; 0.80, tentative at odds &ge; 3:1, otherwise "
-                 f"cannot tell apart</div></div>")
-    if inputs.get("substrate"):
-        parts.append(f"<p>Reaction: <code>{_e(inputs['substrate'])}</code> + "
-                     f"{_e(inputs.get('reagent_name') or inputs.get('reagent'))}"
-                     + (f", alcohol <code>{_e(inputs['alcohol'])}</code>" if inputs.get("alcohol") else "")
-                     + (f"; solvent {_e(inputs['solvent'])}" if inputs.get("solvent") else "") + "</p>")
-    parts.append(f"<p class='sub'>Data: {_e(', '.join(ranking.nuclei) or 'none')}"
-                 f"{' + DEPT' if ranking.has_dept else ''}</p>")
-
-    # candidate cards and table
-    from ..identification.scoring import prepare
-
+    inputs = result.inputs or {}
+    names = names_for_result(result)
+    summary = summarise(result, names)
     show = ranking.candidates[:CARDS] if not fragment else ranking.candidates[:4]
-    parts.append("<h2>Candidates</h2><div class='cards'>")
-    for i, c in enumerate(show, 1):
-        svg = structure_svg(c.smiles, notes=_shift_notes(prepare(c.smiles).prediction))
-        parts.append(f"<div class='card'><div>#{i} <span class='p'>p = {c.probability:.3f}</span></div>{svg}"
-                     f"<div><code>{_e(c.smiles)}</code></div><div class='sub'>{_e(c.label)}"
-                     f"{' (' + _e(c.role) + ')' if c.role else ''}</div></div>")
-    more = len(ranking.candidates) - len(show)
-    parts.append("</div><p class='sub'>numbers at the atoms: predicted 13C shifts / ppm"
-                 + (f"; {more} less probable candidate(s) in the table below" if more > 0 else "") + "</p>")
-    parts.append("<table><tr><th>#</th><th>candidate</th><th>label</th><th>pathway</th><th>prior</th>"
-                 "<th>p (spectra only)</th><th>p (with prior)</th><th>p (verdict)</th>"
-                 "<th>unexplained signals</th><th>worst deviation / sigma</th></tr>")
-    for i, c in enumerate(ranking.candidates, 1):
-        f = lambda x: "-" if x is None else f"{x:.3f}"
-        parts.append(f"<tr><td>{i}</td><td><code>{_e(c.smiles)}</code></td><td>{_e(c.label)}</td>"
-                     f"<td class='sub'>{_pathway_cell(c.pathway)}</td><td class='num'>{f(c.prior)}</td>"
-                     f"<td class='num'>{f(c.probability_spectra)}</td><td class='num'>{f(c.probability_with_prior)}</td>"
-                     f"<td class='num'><b>{f(c.probability)}</b></td><td class='num'>{c.unexplained}</td>"
-                     f"<td class='num'>{c.worst_deviation_sigma:.1f}</td></tr>")
-    parts.append("</table>")
-
-    if ranking.discriminating:
-        parts.append("<h2>Signals that tell the top two apart</h2><ul>"
-                     + "".join(f"<li>{_e(d.text)}</li>" for d in ranking.discriminating) + "</ul>")
-
-    cautions = list(ranking.cautions) + (list(getattr(result, "cautions", ()) or ()) if result is not ranking else [])
-    if cautions:
-        parts.append("<div class='box caution'><b>Cautions</b><ul>"
-                     + "".join(f"<li>{_e(c)}</li>" for c in cautions) + "</ul></div>")
-
-    parts.append(_mixture_html(getattr(result, "mixture", None)))
-
-    parts.append("<h2>Overlays and assignments</h2>")
+    cards = [{"code": names[c.smiles].code, "name": names[c.smiles].full, "probability": fmt.percent(c.probability),
+              "smiles": c.smiles, "role": c.role,
+              "svg": Markup(structure_svg(c.smiles, notes=_shift_notes(result.prediction(c.smiles))))}
+             for c in show]
+    rows = [{"code": names[c.smiles].code, "name": structure_class(c.smiles), "smiles": c.smiles,
+             "label": c.label, "steps": c.pathway.split(" -> ") if c.pathway else [], "prior": fmt.percent(c.prior), "spectra": fmt.percent(c.probability_spectra),
+             "with_prior": fmt.percent(c.probability_with_prior), "probability": fmt.percent(c.probability),
+             "unexplained": str(c.unexplained), "worst": f"{c.worst_deviation_sigma:.1f}"}
+            for c in ranking.candidates]
+    discriminating = []
+    if v.top and v.runner_up:
+        top, sec = names[v.top].code, names[v.runner_up].code
+        discriminating = [signal_words(d, top, sec) for d in ranking.discriminating]
+    overlays = []
     for i, c in enumerate(show[:6] if not fragment else show[:1]):
         colour = _PALETTE[i % len(_PALETTE)]
-        parts.append(f"<h3>#{i + 1} <code>{_e(c.smiles)}</code> (p = {c.probability:.3f})</h3>")
-        for nucleus, rows in (("13C", c.c13_table), ("1H", c.h1_table)):
-            if rows:
-                parts.append(_overlay_for(c, nucleus, colour))
-                if not fragment and i < 3:
-                    parts.append(_measured_overlay(result, c, colour, nucleus))
-                parts.append(f"<details{' open' if i == 0 else ''}><summary>{nucleus} per-signal table</summary>"
-                             f"{_signal_table(rows, nucleus)}</details>")
-
-    if not fragment:
-        files = inputs.get("files") or {}
-        parts.append("<h2>Inputs</h2><table><tr><th>role</th><th>file</th><th>SHA-256</th></tr>"
-                     + "".join(f"<tr><td>{_e(k)}</td><td>{_e(f.get('name'))}</td><td><code>{_e(f.get('sha256'))}</code></td></tr>"
-                               for k, f in files.items())
-                     + "</table>")
-        opts = inputs.get("options") or {}
-        if opts or inputs.get("user_candidates"):
-            parts.append(f"<p class='sub'>options: {_e(opts)}; user candidates: "
-                         f"{_e(', '.join(inputs.get('user_candidates') or []) or 'none')}</p>")
-        vers = getattr(result, "versions", {}) or {}
-        parts.append("<h2>Versions</h2><table>" + "".join(
-            f"<tr><th>{_e(k)}</th><td>{_e(val)}</td></tr>" for k, val in vers.items()) + "</table>")
-        parts.append("<p class='sub'>Method: predicted spectra from additive increment tables; signals "
-                     "assigned by the Hungarian algorithm; probabilities in the manner of DP4 (Smith &amp; "
-                     "Goodman, J. Am. Chem. Soc. 2010, 132, 12946) with a Student-t error model and a "
-                     "calibration temperature fitted on nmrshiftdb2 development data (Kuhn &amp; Schlörer, "
-                     "Magn. Reson. Chem. 2015, 53, 582).</p></main></body></html>")
-    else:
-        parts.append("</div>")
-    return "".join(p for p in parts if p)
+        blocks = []
+        for nucleus, table in (("13C", c.c13_table), ("1H", c.h1_table)):
+            if table:
+                blocks.append({"nucleus": nucleus, "h_header": "H attached" if nucleus == "13C" else "H",
+                               "sticks": Markup(_overlay_for(c, nucleus, colour)),
+                               "trace": Markup(_measured_overlay(result, c, colour, nucleus)
+                                               if not fragment and i < 3 else ""),
+                               "rows": _signal_rows(table, nucleus)})
+        overlays.append({"heading": f"{names[c.smiles].full} · {fmt.percent(c.probability)}", "open": i == 0,
+                         "blocks": blocks})
+    reaction = ""
+    if inputs.get("substrate"):
+        reaction = (f"{inputs['substrate']} + {inputs.get('reagent_name') or inputs.get('reagent')}"
+                    + (f", alcohol {inputs['alcohol']}" if inputs.get("alcohol") else "")
+                    + (f"; solvent {inputs['solvent']}" if inputs.get("solvent") else ""))
+    opts = inputs.get("options") or {}
+    options = ""
+    if opts or inputs.get("user_candidates"):
+        options = (f"options: {', '.join(f'{k} = {val}' for k, val in opts.items())}; your candidates: "
+                   f"{', '.join(inputs.get('user_candidates') or []) or 'none'}")
+    context = {
+        "fragment": fragment, "title": "specmatch identification report",
+        "written": _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
+        "css": Markup((TEMPLATES / "report.css").read_text("utf-8")),
+        "audit": audit, "advisory": result.caution, "safety": list(result.safety_notes),
+        "summary": summary, "verdict_text": v.text, "thresholds": _threshold_words(),
+        "answer_svg": Markup(structure_svg(summary.answer, width=320, height=220) if summary.answer else ""),
+        "reaction": reaction,
+        "data_line": (", ".join(ranking.nuclei) or "none") + (" + DEPT-135" if ranking.has_dept else ""),
+        "cards": cards, "more": len(ranking.candidates) - len(show), "rows": rows,
+        "discriminating": discriminating, "cautions": list(ranking.cautions) + list(result.cautions),
+        "mixture": mixture_text(result.mixture) if result.mixture is not None else "",
+        "overlays": overlays,
+        "files": [{"role": k, "name": f.get("name"), "sha256": f.get("sha256")}
+                  for k, f in (inputs.get("files") or {}).items()],
+        "options": options, "versions": list((result.versions or {}).items()),
+    }
+    return _environment().get_template("report.html").render(**context)
 
 
 def write_report(result: Any, path: str) -> None:

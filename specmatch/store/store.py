@@ -20,7 +20,6 @@ import datetime as _dt
 import functools
 import getpass
 import hashlib
-import html
 import json
 import os
 import random
@@ -1048,10 +1047,16 @@ class Store:
         return json.dumps(out, indent=2, ensure_ascii=False, sort_keys=False)
 
     def export_html(self, analysis_id: str, viewer: Viewer | None = None) -> str:
-        """A self-contained HTML page: the audit block, then the analysis report."""
+        """A self-contained HTML page: the analysis report with the saved record's audit block.
+
+        The one report renderer (``specmatch.reports.html``) draws it from the saved
+        Result; old saved layouts are read through ``Result.from_dict``'s migration.
+        """
+        from ..identification.result import Result
+        from ..reports.html import report_html
+
         out = self.export_dict(analysis_id, viewer)
-        audit = _audit_html(out)
-        return _plain_html(out, audit)
+        return report_html(Result.from_dict(out["data"]), audit=out)
 
     def compare(self, id_a: str, id_b: str, viewer: Viewer | None = None) -> dict[str, Any]:
         """Two analyses side by side: the fields, then each candidate's probability in both."""
@@ -1152,95 +1157,6 @@ def _as_utc(value: _dt.datetime | _dt.date | str, *, end: bool) -> _dt.datetime:
     if value.tzinfo is None:
         value = value.replace(tzinfo=_dt.timezone.utc)
     return value.astimezone(_dt.timezone.utc)
-
-
-def _audit_html(out: Mapping[str, Any]) -> str:
-    e = lambda v: html.escape("" if v is None else str(v))  # noqa: E731
-    rows = "".join(
-        f"<tr><td>{e(h['version'])}</td><td>{e(h['kind'])}</td><td>{e(h['created_at'])}</td>"
-        f"<td>{e(h['user'])}</td><td>{e(h['verdict'])}</td><td>{e(h['note'])}</td></tr>"
-        for h in out["history"])
-    files = "".join(f"<tr><td>{e(f['name'])}</td><td><code>{e(f['sha256'])}</code></td></tr>"
-                    for f in out["files"]) or "<tr><td colspan=2>none</td></tr>"
-    return (
-        '<section class="specmatch-audit"><h2>Saved analysis</h2>'
-        f"<p>id <code>{e(out['id'])}</code>, version {e(out['version'])} ({e(out['kind'])}), "
-        f"sample {e(out['sample_id'])}, run by {e(out['user'])} at {e(out['created_at'])} UTC, "
-        f"specmatch {e(out['tool_version'])}, tables {e(out['tables_version'])}.</p>"
-        f"<p>Data checksum (SHA-256) <code>{e(out['data_sha256'])}</code>; audit chain "
-        f"<code>{e(out.get('chain_hash'))}</code></p>"
-        + ("" if out.get("integrity") == "ok" else
-           f"<p class='specmatch-broken'><b>Audit check failed:</b> {e(out.get('integrity'))}</p>")
-        + 
-        "<h3>Versions</h3><table><tr><th>version</th><th>kind</th><th>when (UTC)</th>"
-        f"<th>who</th><th>verdict</th><th>note</th></tr>{rows}</table>"
-        f"<h3>Input files</h3><table><tr><th>name</th><th>SHA-256</th></tr>{files}</table>"
-        "</section>")
-
-
-def _plain_html(out: Mapping[str, Any], audit: str) -> str:
-    """The saved analysis laid out from its dict (no recomputation, nothing re-predicted)."""
-    from .records import _probability
-
-    e = lambda v: html.escape("" if v is None else str(v))  # noqa: E731
-    num = lambda v: "-" if not isinstance(v, (int, float)) else f"{v:.3f}"  # noqa: E731
-    data = out["data"]
-    verdict = data.get("verdict") if isinstance(data.get("verdict"), Mapping) else {}
-    parts = [
-        "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>"
-        f"<title>specmatch saved analysis {e(out['id'])[:12]}</title>"
-        "<style>body{font-family:sans-serif;margin:2em;max-width:64em;line-height:1.4}"
-        "table{border-collapse:collapse;margin:.5em 0}td,th{border:1px solid #999;"
-        "padding:.2em .5em;text-align:left;vertical-align:top}code{font-size:90%}"
-        ".box{border:1px solid #999;padding:.5em 1em;margin:.8em 0}</style></head><body>",
-        "<h1>Saved analysis</h1>",
-        f"<p>Reaction: <code>{e(out['substrate'])}</code> + {e(out['reagent'])}"
-        f"{'; sample ' + e(out['sample_id']) if out.get('sample_id') else ''}</p>",
-        f"<div class='box'><b>Verdict: {e(out['verdict'])}</b>"
-        + (f"<br>{e(verdict.get('text'))}" if verdict.get("text") else "")
-        + (f"<br><i>{e(verdict.get('advice'))}</i>" if verdict.get("advice") else "")
-        + (f"<br>Top candidate <code>{e(out['top_smiles'])}</code>, p = {num(out['top_probability'])}"
-           if out.get("top_smiles") else "") + "</div>",
-    ]
-    if out["kind"] == "correction":
-        parts.append(f"<div class='box'><b>Corrected verdict</b> by {e(out['user'])}: "
-                     f"{e(out['verdict'])}. Reason: {e(out['note'])}. The tool's own result "
-                     "below is unchanged.</div>")
-    advisory = data.get("advisory") or ("Identification is advisory: confirm it with orthogonal "
-                                        "data before anything depends on it.")
-    parts.append(f"<div class='box'><b>Advisory.</b> {e(advisory)}</div>")
-    for key, title in (("safety_notes", "Reagent safety"), ("cautions", "Cautions")):
-        items = data.get(key) or []
-        if items:
-            parts.append(f"<div class='box'><b>{title}</b><ul>"
-                         + "".join(f"<li>{e(x)}</li>" for x in items) + "</ul></div>")
-    parts.append(audit)
-    cands = [c for c in (data.get("candidates") or data.get("ranking") or []) if isinstance(c, Mapping)]
-    if cands:
-        parts.append("<h2>Candidates</h2><table><tr><th>#</th><th>SMILES</th><th>label</th>"
-                     "<th>prior</th><th>p (spectra only)</th><th>p (with prior)</th>"
-                     "<th>p (verdict)</th></tr>")
-        for i, c in enumerate(cands, 1):
-            parts.append(f"<tr><td>{i}</td><td><code>{e(c.get('smiles') or c.get('canonical_smiles'))}"
-                         f"</code></td><td>{e(c.get('label'))}</td><td>{num(c.get('prior'))}</td>"
-                         f"<td>{num(c.get('probability_spectra'))}</td>"
-                         f"<td>{num(c.get('probability_with_prior'))}</td>"
-                         f"<td><b>{num(_probability(c))}</b></td></tr>")
-        parts.append("</table>")
-    else:
-        parts.append("<p>No candidates recorded.</p>")
-    signals = [d for d in data.get("discriminating_signals") or [] if isinstance(d, Mapping)]
-    if signals:
-        parts.append("<h2>Signals that tell the top two apart</h2><ul>"
-                     + "".join(f"<li>{e(d.get('text'))}</li>" for d in signals) + "</ul>")
-    versions = data.get("versions") if isinstance(data.get("versions"), Mapping) else {}
-    if versions:
-        parts.append("<h2>Versions of the tool and its tables</h2><table>" + "".join(
-            f"<tr><th>{e(k)}</th><td>{e(v)}</td></tr>" for k, v in versions.items()) + "</table>")
-    parts.append("<h2>Full record</h2><details><summary>JSON as saved</summary><pre>"
-                 + e(json.dumps(data, indent=2, ensure_ascii=False)) + "</pre></details>")
-    parts.append("</body></html>")
-    return "".join(parts)
 
 
 def open_store(url: str | None = None, *, upgrade: bool = True, read_only: bool = False) -> Store:

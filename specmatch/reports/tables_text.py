@@ -1,8 +1,13 @@
-"""Readable table of a measured peak list, for ``specmatch peaks``."""
+"""Readable terminal tables: a measured peak list (``specmatch peaks``) and a prediction
+(``specmatch predict``). Journal-style peak text is in :mod:`.journal_text`."""
 
 from __future__ import annotations
 
+from ..prediction.model import Prediction
 from ..spectra.model import PeakList
+from .journal_text import predicted_peak_text
+
+__all__ = ["peaklist_table", "prediction_table"]
 
 
 def _fmt(v: float | None, spec: str) -> str:
@@ -49,4 +54,29 @@ def peaklist_table(peaklist: PeakList) -> str:
         lines.append(f"  {len(peaklist.peaks)} lines, {len(peaklist.compound_peaks())} not flagged")
     if peaklist.warnings:
         lines += ["", "Notes:"] + [f"  - {w}" for w in peaklist.warnings]
+    return "\n".join(lines)
+
+
+def _atoms(atoms: tuple[int, ...]) -> str:
+    return ",".join(str(a) for a in atoms)
+
+
+def prediction_table(pred: Prediction, *, frequency_mhz: float = 400.0, solvent: str = "CDCl3") -> str:
+    """Carbons and proton groups as aligned text, then the journal-style peak text."""
+    lines = [f"Structure: {pred.smiles}   ({pred.canonical_smiles})", "", "13C (predicted)"]
+    lines.append(f"  {'atoms':<12}{'shift/ppm':>10}{'sigma':>8}{'H':>4}  environment")
+    for c in sorted(pred.carbons, key=lambda c: -c.shift):
+        lines.append(f"  {_atoms(c.atoms):<12}{c.shift:>10.1f}{c.sigma:>8.1f}{c.hydrogens:>4}  "
+                     f"{c.environment}{'  (fallback)' if c.fallback else ''}")
+    lines += ["", "1H (predicted)"]
+    lines.append(f"  {'atoms':<12}{'shift/ppm':>10}{'sigma':>8}{'nH':>4}  {'mult':<6}{'J/Hz':<16}note")
+    for p in sorted(pred.protons, key=lambda p: -p.shift):
+        note = "exchangeable" if p.exchangeable else ("diastereotopic" if p.diastereotopic else "")
+        j = ", ".join(f"{x:.1f}" for x in p.j_hz)
+        lines.append(f"  {_atoms(p.atoms):<12}{p.shift:>10.2f}{p.sigma:>8.2f}{p.count:>4}  "
+                     f"{p.multiplicity:<6}{j:<16}{note}")
+    lines += ["", predicted_peak_text(pred, nucleus="1H", frequency_mhz=frequency_mhz, solvent=solvent),
+              predicted_peak_text(pred, nucleus="13C", frequency_mhz=frequency_mhz / 4, solvent=solvent)]
+    if pred.warnings:
+        lines += ["", "Warnings:"] + [f"  - {w}" for w in pred.warnings]
     return "\n".join(lines)

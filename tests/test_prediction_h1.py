@@ -26,7 +26,7 @@ from specmatch.prediction.h1.predictor import predict_protons
 from specmatch.structures import parse_structure
 
 DATA = Path(__file__).parent / "data" / "nmrshiftdb2_h1_core_subset.jsonl"
-LETTERS = {"s", "d", "t", "q", "quint", "sext", "sept", "dd", "dt", "td", "ddd", "m", "br s"}
+LETTERS = {"s", "d", "t", "q", "quint", "sext", "sept", "dd", "dt", "td", "tt", "dq", "qd", "tq", "qt", "ddd", "m", "br s"}
 
 
 def groups(smiles):

@@ -151,3 +151,30 @@ def test_one_or_two_atom_molecules(smiles):
     # molecules without an sp3 centre carrying neighbours must perceive without error
     s = parse_structure(smiles)
     assert s.diastereotopic_ch2 == frozenset() and s.diastereotopic_pairs == ()
+
+
+# ------------------------------------------------------------ stereo perception
+def test_isomeric_smiles_keeps_the_configuration():
+    # cis- and trans-4-tert-butylcyclohexanol share a constitution but not a configuration
+    cis = parse_structure("CC(C)(C)[C@H]1CC[C@@H](O)CC1")
+    trans = parse_structure("CC(C)(C)[C@H]1CC[C@H](O)CC1")
+    assert cis.canonical_smiles == trans.canonical_smiles
+    assert cis.isomeric_smiles != trans.isomeric_smiles
+    assert len(cis.specified_stereo) == 2
+    plain = parse_structure("CC(C)(C)C1CCC(O)CC1")
+    assert plain.isomeric_smiles == plain.canonical_smiles and plain.specified_stereo == ()
+
+
+def test_e_alkene_does_not_make_ch2_diastereotopic():
+    # (E)-1-bromobut-2-ene: the CH2Br protons are enantiotopic (mirror plane of the planar alkene),
+    # one signal (common practice)
+    assert parse_structure("C/C=C/CBr").diastereotopic_ch2 == frozenset()
+
+
+def test_meso_and_dl_pentanediol_ch2():
+    # meso-pentane-2,4-diol: the C3 protons are diastereotopic; in the (R,R) isomer the C2 axis
+    # makes them homotopic (common practice; Silverstein, Webster & Kiemle, equivalence chapter)
+    assert 3 in parse_structure("C[C@H](O)C[C@@H](C)O").diastereotopic_ch2  # atom 3 is C3
+    assert 3 not in parse_structure("C[C@H](O)C[C@H](C)O").diastereotopic_ch2
+    # configuration not given (a mixture): treated as diastereotopic
+    assert 3 in parse_structure("CC(O)CC(C)O").diastereotopic_ch2

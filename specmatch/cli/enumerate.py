@@ -12,7 +12,7 @@ def cmd_enumerate(args: argparse.Namespace) -> int:
     from ..reports.enumeration_text import enumeration_table
 
     result = enumerate_products(args.substrate, args.reagent, alcohol=args.alcohol,
-                                max_shifts=args.max_shifts, use_xtb=args.xtb)
+                                max_shifts=args.max_shifts, use_xtb=args.xtb, control=args.control)
     if args.json:
         _print_json(result.to_dict())
     else:
@@ -31,5 +31,8 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--alcohol", metavar="SMILES", help="alcohol for acid-catalysed ether formation")
     p.add_argument("--max-shifts", type=int, default=2, metavar="N", help="1,2-shifts in a row (default 2)")
     p.add_argument("--xtb", action="store_true", help="refine close cation energies with GFN2-xTB (needs tblite)")
+    p.add_argument("--control", choices=("auto", "kinetic", "thermodynamic"), default="auto",
+                   help="allylic cations: kinetic (cold, short) or thermodynamic (warm, equilibrating) "
+                        "capture; auto = thermodynamic for HX with allylic alcohols, else kinetic")
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_enumerate)

@@ -17,17 +17,25 @@ if TYPE_CHECKING:  # RDKit is loaded on first prediction, so small submodules im
 __all__ = ["CarbonShift", "Prediction", "ProtonGroup", "predict", "predict_structure"]
 
 
-def predict_structure(structure: Structure) -> Prediction:
-    """Predict both spectra of an already perceived structure."""
+def predict_structure(structure: Structure, *, geometry: bool = True) -> Prediction:
+    """Predict both spectra of an already perceived structure.
+
+    Parameters
+    ----------
+    geometry : bool
+        Apply the 3D layer (prediction/stereo.py) to molecules with a relative configuration
+        (cis/trans, meso/dl). About 0.1-1 s per such molecule on first use, then cached; batch
+        predictions of many unrelated molecules switch it off for speed.
+    """
     from .c13.predictor import TABLES_VERSION as C_VERSION, predict_carbons
     from .h1.predictor import TABLES_VERSION as H_VERSION, predict_protons
-
     from .hose import MolCodes
+    from .stereo import apply_stereo_layer, needs_stereo_layer
 
     codes = MolCodes(structure.mol)  # one code builder for both nuclei
     carbons, c_warn = predict_carbons(structure, codes=codes)
     protons, h_warn = predict_protons(structure, codes=codes)
-    return Prediction(
+    prediction = Prediction(
         smiles=structure.smiles,
         canonical_smiles=structure.canonical_smiles,
         carbons=tuple(carbons),
@@ -35,11 +43,17 @@ def predict_structure(structure: Structure) -> Prediction:
         warnings=tuple(dict.fromkeys([*c_warn, *h_warn])),
         tables_version=f"13C {C_VERSION}; 1H {H_VERSION}",
     )
+    if geometry and needs_stereo_layer(structure):
+        # relative configuration specified and relevant: 3D ensemble layer (prediction/stereo.py)
+        prediction = apply_stereo_layer(structure, prediction)
+    return prediction
 
 
 @lru_cache(maxsize=8192)
-def predict(smiles: str) -> Prediction:
+def predict(smiles: str, *, geometry: bool = True) -> Prediction:
     """Predict the 1H and 13C spectra of a molecule given as SMILES or molfile text.
+
+    ``geometry`` as in :func:`predict_structure`.
 
     Raises
     ------
@@ -48,4 +62,4 @@ def predict(smiles: str) -> Prediction:
     """
     from ..structures import parse_structure
 
-    return predict_structure(parse_structure(smiles))
+    return predict_structure(parse_structure(smiles), geometry=geometry)

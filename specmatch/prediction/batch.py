@@ -7,8 +7,10 @@ from typing import Any
 from ..errors import SpecmatchError
 
 
-def predict_row(line: str) -> dict[str, Any]:
+def predict_row(line: str, geometry: bool = False) -> dict[str, Any]:
     """The output row of one input line: the prediction, or ``ok: false`` with the reason.
+
+    ``geometry`` turns on the 3D stereo layer (``--stereo-3d``).
 
     Blank lines and ``#`` comments give ``skipped: true`` rows (kept so output line
     n belongs to input line n); they are not failures.
@@ -20,7 +22,7 @@ def predict_row(line: str) -> dict[str, Any]:
         return {"smiles": line, "ok": False, "skipped": True, "error": "empty line or comment"}
     smi = smi.split()[0]
     try:
-        row = predict(smi).to_dict()
+        row = predict(smi, geometry=geometry).to_dict()
         row["smiles"] = smi
         return row
     except SpecmatchError as exc:

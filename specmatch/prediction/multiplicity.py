@@ -14,7 +14,7 @@ reports) takes them from here:
 The n+1 rule with equal-J merging: partner sets whose coupling constants agree
 within a tolerance are merged (their proton counts add), then each remaining
 coupling contributes one letter. Patterns outside the usual vocabulary (s, d, t,
-q, quint, sext, sept, dd, dt, td, ddd) are reported as "m".
+q, quint, sext, sept, dd, dt, td, tt, dq, qd, tq, qt, ddd) are reported as "m".
 """
 
 from __future__ import annotations
@@ -43,7 +43,8 @@ N_LINES: dict[str, int] = {letter: n + 1 for letter, n in PARTNERS_FOR_LETTER.it
 #: letters that carry no coupling constant
 NO_J_LETTERS = frozenset({"s", "br s", "m", "br", "br m"})
 #: two- and three-letter first-order patterns we write
-_TWO = {(1, 1): "dd", (1, 2): "dt", (2, 1): "td"}
+_TWO = {(1, 1): "dd", (1, 2): "dt", (2, 1): "td", (2, 2): "tt", (1, 3): "dq", (3, 1): "qd",
+        (2, 3): "tq", (3, 2): "qt"}
 _BY_LENGTH = tuple(sorted(PARTNERS_FOR_LETTER.items(), key=lambda kv: -len(kv[0])))
 
 

@@ -32,8 +32,10 @@ from .network import (
     lab,
     make_intermediate,
     prepare,
+    shift,
     terminus_shares,
 )
+from .scales import alkene_dh
 from .reagents import ADDITION_CLASSES, Reagent, parse_reagent
 from .scales import model_params
 
@@ -63,6 +65,8 @@ class Context:
     warnings: list[str]
     par: dict
     xtb_used: list[int] = field(default_factory=lambda: [0])
+    control: str = "auto"
+    assisted: set[str] = field(default_factory=set)  # cations whose shift is concerted with ionisation
 
     @property
     def rt(self) -> float:
@@ -113,7 +117,8 @@ def _activated_oh(sub: Chem.Mol) -> bool:
         if m is None:
             continue
         inter = make_intermediate(m, c - 1 if c > o else c)
-        if len(inter.forms) > 1 or "benzylic" in inter.cls or inter.substitution == "tertiary":
+        if len(inter.forms) > 1 or "benzylic" in inter.cls or inter.substitution == "tertiary" \
+                or "cyclopropylcarbinyl" in inter.cls:
             return True
     return False
 
@@ -301,9 +306,14 @@ def _run_network(ctx: Context, net: Network, nucleophiles: list[Nucleophile], e1
     def channels_for(node: Intermediate) -> list[Channel]:
         chs: list[Channel] = []
         scale = primary_scale if node.substitution in ("primary", "methyl") and len(node.forms) == 1 else 1.0
+        if node.key in ctx.assisted:
+            scale *= par["elimination"]["assisted_secondary_scale"]
         if node.radical:
             scale = 1.0
-        for (m, c), f in zip(node.forms, terminus_shares(node)):
+        if len(node.forms) == 1 and not node.radical and "cyclopropylcarbinyl" in node.cls:
+            return _manifold_channels(ctx, node, nucleophiles)
+        shares = terminus_shares(node) if _control(ctx) == "kinetic" else _thermo_shares(ctx, node)
+        for (m, c), f in zip(node.forms, shares):
             oh = next((n.GetIdx() for n in m.GetAtomWithIdx(c).GetNeighbors()
                        if n.GetAtomicNum() == 8 and n.GetTotalNumHs() > 0), None)
             if oh is not None and not node.radical:
@@ -325,7 +335,8 @@ def _run_network(ctx: Context, net: Network, nucleophiles: list[Nucleophile], e1
         oxo = any(n.GetAtomicNum() == 8 and n.GetTotalNumHs() > 0
                   for m, c in node.forms for n in m.GetAtomWithIdx(c).GetNeighbors())
         if e1_weight > 0 and node.expand and not node.radical and not oxo:
-            for alk, share, text in e1_alkenes(node, rt_e1):
+            alpha = par["elimination"]["alpha_heat"] if ctx.cls == "dehydration" else None
+            for alk, share, text in e1_alkenes(node, rt_e1, alpha):
                 if csmiles(alk) == sub_key:
                     continue  # back to the substrate: it re-enters the same manifold, not an exit
                 chs.append(Channel(alk, e1_weight * share * scale, "E1", f"E1: {text}", {"centre": -1}))
@@ -355,6 +366,10 @@ def _run_network(ctx: Context, net: Network, nucleophiles: list[Nucleophile], e1
         info = entry.info if entry else {}
         nu = ch.info.get("nu")
         label, flags = _label(ch.kind, info, chain, node, ch.info.get("centre", -1), nu, main_nu)
+        if ch.info.get("manifold"):
+            word = ch.info["manifold"]
+            label = (f"{label}, then " if chain else "") + word
+            flags |= {"rearranged", "ring-expanded" if "cyclobutyl" in word else "ring-opened"}
         steps = []
         if entry is not None:
             steps.append(f"{entry.text} -> {_node_desc(net.nodes[entry.key])}")
@@ -369,8 +384,96 @@ def _run_network(ctx: Context, net: Network, nucleophiles: list[Nucleophile], e1
                          "low prior, kept because real mixtures contain such products")
         if entry is not None and not entry_expanded(net, entry):
             flags.add("other conditions")
+        if len(node.forms) > 1 and ch.kind == "capture" and not node.radical:
+            notes.append(_ALLYLIC_NOTES[_control(ctx)])
         outcomes.append(Outcome(ch.product, w, label, steps, flags, notes))
     return outcomes
+
+
+_ALLYLIC_NOTES = {
+    "kinetic": "allylic cation, kinetic control (low temperature, short times): capture at the terminus "
+               "carrying more charge; warm and equilibrating (about 40 C), the isomer with the more "
+               "substituted C=C dominates (buta-1,3-diene + HBr: about 80:20 1,2 : 1,4 at -80 C, 15:85 "
+               "at 40 C; values from memory); rerun with --control thermodynamic",
+    "thermodynamic": "allylic cation, thermodynamic control (the allylic products equilibrate): the isomer "
+                     "with the more substituted C=C dominates (Winstein & Young, J. Am. Chem. Soc. 1936, 58, "
+                     "104; values from memory); at low temperature and short times capture is kinetic: "
+                     "rerun with --control kinetic",
+}
+
+
+def _control(ctx: Context) -> str:
+    """Kinetic or thermodynamic capture of allylic cations for this run."""
+    if ctx.control != "auto":
+        return ctx.control
+    # HX with allylic alcohols: the allylic halides ionise again and equilibrate (Winstein & Young)
+    return "thermodynamic" if ctx.cls == "substitution" else "kinetic"
+
+
+def _thermo_shares(ctx: Context, node: Intermediate) -> list[float]:
+    """Terminus weights from the stability of the C=C each capture product keeps."""
+    if len(node.forms) == 1:
+        return [1.0]
+    par = ctx.par["allylic"]
+    dh = [sum(alkene_dh(m, a, b) for a, b in alkene_bonds(m)) for m, _ in node.forms]
+    lo = min(dh)
+    w = [math.exp(-par["thermo_alpha"] * (x - lo) / par["rt_thermo_kcal_mol"]) for x in dh]
+    return [x / sum(w) for x in w]
+
+
+def open_cyclopropane(mol: Chem.Mol, c: int, r: int, r1: int) -> Chem.Mol | None:
+    """Cyclopropylcarbinyl -> homoallyl cation: ring bond r-r1 breaks, C=C between c and r,
+    the cation moves to r1."""
+    rw = Chem.RWMol(mol)
+    rw.RemoveBond(r, r1)
+    rw.GetBondBetweenAtoms(c, r).SetBondType(Chem.BondType.DOUBLE)
+    rw.GetAtomWithIdx(c).SetFormalCharge(0)
+    rw.GetAtomWithIdx(r1).SetFormalCharge(1)
+    try:
+        Chem.SanitizeMol(rw)
+    except Exception:  # an edit that gives no valid molecule is not a pathway
+        return None
+    return rw.GetMol()
+
+
+def _manifold_channels(ctx: Context, node: Intermediate, nucleophiles: list[Nucleophile]) -> list[Channel]:
+    """Capture of the cyclopropylcarbinyl/cyclobutyl/homoallyl manifold (Roberts & Mazur 1951).
+
+    The three cations interconvert faster than capture, so each nucleophile gives all three
+    skeletons in fixed shares (``[cyclopropylcarbinyl]`` in model.toml), whatever the
+    empirical scale says about the separate classical cations.
+    """
+    par = ctx.par["cyclopropylcarbinyl"]
+    m, c = node.forms[0]
+    ri = m.GetRingInfo()
+    r = next(n.GetIdx() for n in m.GetAtomWithIdx(c).GetNeighbors()
+             if n.GetAtomicNum() == 6 and ri.IsAtomInRingOfSize(n.GetIdx(), 3))
+    ring = next(rg for rg in ri.AtomRings() if len(rg) == 3 and r in rg)
+    others = [x for x in ring if x != r]
+    chs: list[Channel] = []
+    for nu in nucleophiles:
+        p = capture(m, c, nu)
+        if p is not None:
+            chs.append(Channel(p, nu.weight * par["carbinyl_share"], "capture",
+                               f"{nu.name} captures the cyclopropylcarbinyl cation at {lab(m, c)}", {"centre": c, "nu": nu}))
+        for r1 in others:
+            expanded = shift(m, c, r, r1)
+            if expanded is not None:
+                p = capture(expanded, r, nu)
+                if p is not None:
+                    chs.append(Channel(p, nu.weight * par["cyclobutyl_share"] / len(others), "capture",
+                                       f"ring bond {lab(m, r)}-{lab(m, r1)} shifts to {lab(m, c)} (cyclobutyl cation); "
+                                       f"{nu.name} captures it at {lab(m, r)}",
+                                       {"centre": r, "nu": nu, "manifold": "ring-expanded (cyclopropylcarbinyl -> cyclobutyl)"}))
+            opened = open_cyclopropane(m, c, r, r1)
+            if opened is not None:
+                p = capture(opened, r1, nu)
+                if p is not None:
+                    chs.append(Channel(p, nu.weight * par["homoallyl_share"] / len(others), "capture",
+                                       f"ring bond {lab(m, r)}-{lab(m, r1)} opens (homoallyl cation, C=C "
+                                       f"{lab(m, c)}={lab(m, r)}); {nu.name} captures it at {lab(m, r1)}",
+                                       {"centre": r1, "nu": nu, "manifold": "ring-opened (homoallyl)"}))
+    return chs
 
 
 def entry_expanded(net: Network, entry) -> bool:
@@ -470,7 +573,8 @@ def _substitution(ctx: Context) -> list[Outcome]:
     direct: list[Outcome] = []
     sites = _alcohol_sites(ctx.sub)
     for c, o, cc, inter, what in _ionisations(ctx, sites):
-        stabilised = len(inter.forms) > 1 or "benzylic" in inter.cls or inter.substitution == "tertiary"
+        stabilised = len(inter.forms) > 1 or "benzylic" in inter.cls or inter.substitution == "tertiary" \
+            or "cyclopropylcarbinyl" in inter.cls
         next_to_quaternary = any(n.GetAtomicNum() == 6 and n.GetTotalNumHs() == 0 and n.GetDegree() == 4
                                  for n in ctx.sub.GetAtomWithIdx(c).GetNeighbors())
         neopentyl = inter.substitution == "primary" and next_to_quaternary
@@ -518,6 +622,11 @@ def _dehydration(ctx: Context) -> list[Outcome]:
     net = _network(ctx)
     sites = _alcohol_sites(ctx.sub)
     for c, _o, cc, inter, what in _ionisations(ctx, sites):
+        if inter.substitution == "secondary" and len(inter.forms) == 1 and any(
+                n.GetAtomicNum() == 6 and n.GetTotalNumHs() == 0 and n.GetDegree() == 4
+                for n in ctx.sub.GetAtomWithIdx(c).GetNeighbors()):
+            ctx.assisted.add(inter.key)
+            what += " (assisted by the 1,2-shift from the quaternary neighbour)"
         net.add_entry(inter, 1.0 / len(sites), what, kind="ionisation", start=cc, word="alcohol",
                       group=f"site{c}")
     out = _run_network(ctx, net, [_water(ctx.par["nucleophiles"]["water_in_dehydration"])],
@@ -586,6 +695,41 @@ def _cation_energy_at(ctx: Context, a: int, b: int, electrophile: str = "H") -> 
     return make_intermediate(m, b).energy if m is not None else math.inf
 
 
+_ONIUM = {"Br": "bromonium", "Cl": "chloronium", "I": "iodonium", "Hg": "mercurinium"}
+
+
+def _new_neighbour(product: Chem.Mol, atom: int, n_sub: int) -> int | None:
+    """The atom the addition bonded to `atom` (indices >= n_sub are new), or None for H."""
+    return next((n.GetIdx() for n in product.GetAtomWithIdx(atom).GetNeighbors() if n.GetIdx() >= n_sub), None)
+
+
+def _stereospecific(ctx: Context, product: Chem.Mol, a: int, b: int, *, syn: bool
+                    ) -> list[tuple[Chem.Mol, float, list[str]]]:
+    """Products of a syn or anti addition across a=b with their configuration set.
+
+    One product when the alkene geometry is fixed (E/Z given, or a ring); both diastereomers,
+    half each, when the alkene is stereogenic but its configuration was not given.
+    """
+    from .stereo import add_faces, alkene_is_stereogenic, cis_pairs
+
+    n_sub = ctx.sub.GetNumAtoms()
+    na, nb = _new_neighbour(product, a, n_sub), _new_neighbour(product, b, n_sub)
+    cis = cis_pairs(ctx.sub, a, b)
+    if cis is not None:
+        return [(add_faces(product, ctx.sub, a, b, na, nb, syn=syn, cis=cis), 1.0, [])]
+    if not alkene_is_stereogenic(ctx.sub, a, b):
+        return [(product, 1.0, [])]
+    sa = [n.GetIdx() for n in ctx.sub.GetAtomWithIdx(a).GetNeighbors() if n.GetIdx() != b]
+    sb = [n.GetIdx() for n in ctx.sub.GetAtomWithIdx(b).GetNeighbors() if n.GetIdx() != a]
+    where = f"{lab(ctx.sub, a)}={lab(ctx.sub, b)}"
+    out = []
+    for geo, pairs in (("Z", [(sa[0], sb[0])]), ("E", [])):
+        note = (f"the configuration of {where} is not given: this is the product of the {geo}-alkene "
+                "(write it in the SMILES, e.g. C/C=C/C for E, to keep one)")
+        out.append((add_faces(product, ctx.sub, a, b, na, nb, syn=syn, cis=pairs), 0.5, [note]))
+    return out
+
+
 def _hydroboration(ctx: Context) -> list[Outcome]:
     par = ctx.par["hydroboration"]
     out = []
@@ -605,11 +749,15 @@ def _hydroboration(ctx: Context) -> list[Outcome]:
             label = ("hydroboration alcohol" if equal else
                      "anti-Markovnikov alcohol (no rearrangement)" if anti else "Markovnikov alcohol (minor regioisomer)")
             flags = set() if equal or not anti else {"anti-Markovnikov"}
-            steps = [f"syn addition of H-BH2 across {lab(ctx.sub, a)}={lab(ctx.sub, b)}: B to {lab(ctx.sub, x)} "
-                     f"(less hindered carbon{'' if anti else ': minor orientation'}), H to {lab(ctx.sub, y)}",
+            where = ("" if equal else " (the less hindered carbon)" if anti
+                     else " (the more hindered carbon: minor orientation)")
+            steps = [f"syn addition of H-BH2 across {lab(ctx.sub, a)}={lab(ctx.sub, b)}: B to {lab(ctx.sub, x)}"
+                     f"{where}, H to {lab(ctx.sub, y)}",
                      f"H2O2/NaOH: C-B to C-OH with retention at {lab(ctx.sub, x)}"]
-            out.append(Outcome(m, sw / st * w / (wa + wb), label, steps, flags,
-                               ["syn addition of H and OH (same face); no carbocation, no rearrangement"]))
+            for mol, frac, extra in _stereospecific(ctx, m, x, y, syn=True):
+                out.append(Outcome(mol, sw / st * w / (wa + wb) * frac, label, list(steps), set(flags),
+                                   ["syn addition of H and OH (same face); no carbocation, no rearrangement",
+                                    *extra]))
     return out
 
 
@@ -624,7 +772,8 @@ def _oxymercuration(ctx: Context) -> list[Outcome]:
 
 
 def _opening(ctx: Context, electrophile: str, nu_group: str, alpha: float, word: str, step1: str,
-             step2: str | None, note: str, share: float = 1.0, halide_share: float = 0.0) -> list[Outcome]:
+             step2: str | None, note: str, share: float = 1.0, halide_share: float = 0.0,
+             anti: bool = False) -> list[Outcome]:
     """Bridged-ion additions (mercurinium, halonium): regiochemistry from the cation scale, anti, no shifts."""
     out: list[Outcome] = []
     bonds = alkene_bonds(ctx.sub)
@@ -649,7 +798,10 @@ def _opening(ctx: Context, electrophile: str, nu_group: str, alpha: float, word:
                  f"(cation there would be {_kcal(e)})"]
         if step2:
             steps.append(step2)
-        out.append(Outcome(m, share * w / tot, label, steps, set() if markov else {"anti-Markovnikov"}, [note]))
+        made = _stereospecific(ctx, m, x, y, syn=False) if anti else [(m, 1.0, [])]
+        for mol, frac, extra in made:
+            out.append(Outcome(mol, share * w / tot * frac, label, list(steps),
+                               set() if markov else {"anti-Markovnikov"}, [note, *extra]))
     return out
 
 
@@ -685,8 +837,8 @@ def _halogen_addition(ctx: Context, in_water: bool) -> list[Outcome]:
     out = []
     if in_water:
         out += _opening(ctx, x, "OH", par["alpha_halonium"], "halohydrin",
-                        f"{x}onium ion (bridged); water opens it at the carbon that best carries + charge",
-                        None, "anti addition of X and OH; no rearrangement", share=1.0 - hal_share)
+                        f"bridged {_ONIUM[x]} ion; water opens it at the carbon that best carries + charge",
+                        None, "anti addition of X and OH; no rearrangement", share=1.0 - hal_share, anti=True)
         for o in out:
             o.label = o.label.replace("Markovnikov halohydrin", "halohydrin, OH on the more substituted carbon") \
                 if "anti-" not in o.label else "halohydrin, OH on the less substituted carbon (minor)"
@@ -699,19 +851,19 @@ def _halogen_addition(ctx: Context, in_water: bool) -> list[Outcome]:
         if m is None:
             continue
         label = f"vicinal di{'chloride' if x == 'Cl' else 'bromide' if x == 'Br' else 'iodide'} (anti addition)"
-        notes = ["anti addition (bridged halonium ion); no rearrangement"]
+        notes = [f"anti addition (bridged {_ONIUM[x]} ion); no rearrangement"]
         stereo = ctx.sub.GetBondBetweenAtoms(a, b).GetStereo()
         if stereo in (Chem.BondStereo.STEREOZ, Chem.BondStereo.STEREOCIS):
-            notes.append("anti addition to the Z-alkene: the racemic threo pair (cis-but-2-ene gives "
+            notes.append("anti addition to the Z-alkene gives the racemic pair (cis-but-2-ene gives "
                          "(2R,3R)/(2S,3S)-2,3-dibromobutane)")
         elif stereo in (Chem.BondStereo.STEREOE, Chem.BondStereo.STEREOTRANS):
-            notes.append("anti addition to the E-alkene: the erythro isomer (meso when both ends are alike: "
-                         "trans-but-2-ene gives meso-2,3-dibromobutane)")
+            notes.append("anti addition to the E-alkene (trans-but-2-ene gives meso-2,3-dibromobutane)")
         if in_water:
             label += ": halide competes with water"
-        out.append(Outcome(m, hal_share * w / sum(ws), label,
-                           [f"{x}+ adds to {lab(ctx.sub, a)}={lab(ctx.sub, b)}: bridged {x}onium ion",
-                            f"{_HALIDE_NAME[x]} opens it anti"], set(), notes))
+        for mol, frac, extra in _stereospecific(ctx, m, a, b, syn=False):
+            out.append(Outcome(mol, hal_share * w / sum(ws) * frac, label,
+                               [f"{x}+ adds to {lab(ctx.sub, a)}={lab(ctx.sub, b)}: bridged {_ONIUM[x]} ion",
+                                f"{_HALIDE_NAME[x]} opens it anti"], set(), notes + extra))
     return out
 
 
@@ -756,21 +908,30 @@ _STEREO_CLASS_NOTES = {
 
 
 def _stereo_notes(product: Chem.Mol, sub_counts: tuple[int, int], sub_chiral: bool, cls: str,
-                  flags: set[str]) -> list[str]:
-    tet, dbl = _stereo_count(product)
+                  flags: set[str], conf) -> list[str]:
+    """Stereochemical notes that agree with the candidate's own configuration."""
+    from .stereo import relation_matters, stereo_info
+
+    spec, unspec, dbl = stereo_info(product)
+    tet = len(spec) + len(unspec)
     notes = []
     new = tet - sub_counts[0]
-    if new > 0:
-        if sub_chiral:
-            notes.append(f"{new} new stereocentre(s) next to an existing one: diastereomers, usually unequal")
-        elif new == 1 and tet == 1:
-            notes.append("new stereocentre: formed racemic (both enantiomers equally)")
-        elif new == 1:
-            notes.append("new stereocentre: racemic; diastereomers possible with the other stereo element(s)")
-        else:
-            notes.append(f"{new} new stereocentres: racemic, diastereomers possible")
-    elif tet >= 2:
-        notes.append("diastereomers possible")
+    if conf is not None and conf.meso:
+        notes.append("meso compound (achiral): one stereoisomer")
+    elif conf is not None and conf.racemic and not unspec and "either face" in flags:
+        notes.append(f"formed {conf.words} (both enantiomers equally)")
+    elif conf is not None and conf.racemic and not unspec:
+        notes.append(f"relative configuration fixed by the mechanism; formed {conf.words} "
+                     "(both enantiomers equally)")
+    elif new > 0 and sub_chiral:
+        notes.append(f"{new} new stereocentre(s) next to an existing one: diastereomers, usually unequal")
+    elif tet == 1 and new == 1:
+        notes.append("new stereocentre: formed racemic (both enantiomers equally)")
+    elif tet >= 2 and unspec and not relation_matters(product):
+        notes.append("open-chain diastereomers (erythro/threo) both form from the planar cation; listed "
+                     "together as one candidate")
+    elif tet >= 2 and unspec:
+        notes.append("diastereomers possible (configuration not fixed here)")
     if dbl > 0:
         notes.append("E/Z isomers possible (E usually favoured for open-chain alkenes)")
     if cls in _STEREO_CLASS_NOTES and tet >= 2 and "E1 by-product" not in flags:
@@ -778,25 +939,86 @@ def _stereo_notes(product: Chem.Mol, sub_counts: tuple[int, int], sub_chiral: bo
     return notes
 
 
+def _expand_faces(ctx: Context, outcomes: list[Outcome], sub_chiral: bool) -> list[Outcome]:
+    """Split products with unassigned stereocentres into diastereomers where it matters.
+
+    A planar cation (or the NaBH4 step of oxymercuration) sets a centre from either face, so
+    each diastereomer gets its statistical share (common practice: no directing group).
+    """
+    from .stereo import enumerate_unassigned, relation_matters
+
+    out = []
+    for o in outcomes:
+        if "unreacted substrate" in o.flags or not relation_matters(o.mol):
+            out.append(o)
+            continue
+        split = enumerate_unassigned(o.mol, substrate_chiral=sub_chiral)
+        if split is None:
+            out.append(o)
+            continue
+        for mol, frac in split:
+            note = f"one of {len(split)} diastereomers formed on either face ({frac:.0%} of this constitution)"
+            out.append(Outcome(mol, o.weight * frac, o.label, list(o.pathway), set(o.flags) | {"either face"},
+                               [*o.notes, note]))
+    return out
+
+
+def _key(mol: Chem.Mol, sub_chiral: bool):
+    """Merge key: canonical isomeric SMILES when a configuration is set, else the constitution."""
+    from .stereo import describe, stereo_info
+
+    spec, _unspec, _ = stereo_info(mol)
+    if not spec:
+        return csmiles(mol), None
+    conf = describe(mol, substrate_chiral=sub_chiral)
+    return conf.smiles, conf
+
+
+def _substrate_stereo(sub: Chem.Mol) -> tuple[str, ...]:
+    """E/Z of each specified C=C and R/S of each specified centre, in substrate numbering."""
+    from rdkit.Chem import rdCIPLabeler
+
+    m = Chem.Mol(sub)
+    try:
+        rdCIPLabeler.AssignCIPLabels(m)
+    except Exception:  # descriptors are a courtesy in the header; never fail on them
+        return ()
+    out = []
+    for b in m.GetBonds():
+        if b.HasProp("_CIPCode"):
+            out.append(f"{lab(m, b.GetBeginAtomIdx())}={lab(m, b.GetEndAtomIdx())} {b.GetProp('_CIPCode')}")
+    for a in m.GetAtoms():
+        if a.HasProp("_CIPCode"):
+            out.append(f"{lab(m, a.GetIdx())} {a.GetProp('_CIPCode')}")
+    return tuple(out)
+
+
 def _finalise(ctx: Context, outcomes: list[Outcome], substrate_input: str, alcohol: str | None) -> Enumeration:
     cand = ctx.par["candidates"]
-    sub_key = csmiles(ctx.sub)
+    sub_chiral = any(a.GetChiralTag() != Chem.ChiralType.CHI_UNSPECIFIED for a in ctx.sub.GetAtoms())
+    sub_key = Chem.MolToSmiles(ctx.sub)
     total = sum(o.weight for o in outcomes)
     if total <= 0:
         raise SpecmatchError("no product could be formed from this substrate with this reagent")
     w_unreacted = cand["unreacted_substrate"]
+    outcomes = _expand_faces(ctx, outcomes, sub_chiral)
     merged: dict[str, list[Outcome]] = {}
+    confs: dict[str, object] = {}
     for o in outcomes:
         o.weight = o.weight / total * (1.0 - w_unreacted)
-        merged.setdefault(csmiles(o.mol), []).append(o)
+        key, conf = _key(o.mol, sub_chiral)
+        if csmiles(o.mol) == csmiles(ctx.sub) and conf is None:
+            key = sub_key
+        merged.setdefault(key, []).append(o)
+        confs[key] = conf
     merged.setdefault(sub_key, []).append(
         Outcome(ctx.sub, w_unreacted, "unreacted substrate", ["no reaction (incomplete conversion)"],
                 {"unreacted substrate"}))
+    confs.setdefault(sub_key, None)
     if len(merged) > cand["max_candidates"]:
         raise SpecmatchError(f"the enumeration gives {len(merged)} candidates, more than the cap of "
                              f"{cand['max_candidates']}; use a smaller --max-shifts")
     sub_counts = _stereo_count(ctx.sub)
-    sub_chiral = any(a.GetChiralTag() != Chem.ChiralType.CHI_UNSPECIFIED for a in ctx.sub.GetAtoms())
     rows = []
     for key, lst in merged.items():
         lst.sort(key=lambda o: -o.weight)
@@ -817,15 +1039,18 @@ def _finalise(ctx: Context, outcomes: list[Outcome], substrate_input: str, alcoh
             # a product is only 'rearranged'/'other conditions' if its main route is
             if any("other conditions" not in o.flags for o in lst):
                 flags.discard("other conditions")
-            if key != sub_key:
-                notes += _stereo_notes(best.mol, sub_counts, sub_chiral, ctx.cls, flags)
-        smiles = Chem.MolToSmiles(Chem.MolFromSmiles(key), isomericSmiles=False)
-        rows.append([smiles, best.label, tuple(best.pathway), w, flags, tuple(dict.fromkeys(notes))])
+            notes += _stereo_notes(best.mol, sub_counts, sub_chiral, ctx.cls, flags, confs[key])
+        conf = confs[key]
+        smiles = key if conf is not None else Chem.MolToSmiles(Chem.MolFromSmiles(key), isomericSmiles=False)
+        if key == sub_key:
+            smiles = sub_key
+        rows.append([smiles, best.label, tuple(best.pathway), w, flags, tuple(dict.fromkeys(notes)),
+                     csmiles(best.mol), conf])
     floor = cand["floor"]
     tot = sum(max(r[3], floor) for r in rows)
     top = max(max(r[3], floor) / tot for r in rows)
     cands = []
-    for smiles, label, path, w, flags, notes in rows:
+    for smiles, label, path, w, flags, notes, constitution, conf in rows:
         prior = max(w, floor) / tot
         if w < cand["not_expected_below"]:
             role = "not expected under these conditions"
@@ -835,7 +1060,9 @@ def _finalise(ctx: Context, outcomes: list[Outcome], substrate_input: str, alcoh
             role = "minor"
         else:
             role = "trace"
-        cands.append(Candidate(smiles, label, path, prior, role, tuple(sorted(flags)), notes, w))
+        cands.append(Candidate(smiles, label, path, prior, role, tuple(sorted(flags)), notes, w,
+                               constitution=constitution, racemic=bool(conf is not None and conf.racemic),
+                               configuration=conf.words if conf is not None else ""))
     cands.sort(key=lambda c: (-c.prior, c.smiles))
     model = "empirical cation scale (specmatch/reactions/data)"
     if ctx.cls in {"hydroboration", "oxymercuration", "halogenation", "halohydrin", "hx_radical"}:
@@ -843,15 +1070,19 @@ def _finalise(ctx: Context, outcomes: list[Outcome], substrate_input: str, alcoh
     if ctx.use_xtb:
         model += (f" + GFN2-xTB (tblite) for {ctx.xtb_used[0]} close cation(s)" if ctx.xtb_used[0]
                   else "; GFN2-xTB requested but no close cation pair needed it")
-    return Enumeration(substrate=Chem.MolToSmiles(Chem.MolFromSmiles(sub_key), isomericSmiles=False),
+    return Enumeration(substrate=Chem.MolToSmiles(Chem.MolFromSmiles(sub_key)),
+                       substrate_stereo=_substrate_stereo(ctx.sub),
                        reagent=ctx.reagent, candidates=tuple(cands), warnings=tuple(dict.fromkeys(ctx.warnings)),
                        model=model, alcohol=alcohol, reaction_class=ctx.cls, substrate_input=substrate_input,
                        safety=ctx.reagent.safety)
 
 
 # ------------------------------------------------------------------ public entry point
+CONTROLS = ("auto", "kinetic", "thermodynamic")
+
+
 def enumerate_products(substrate: str, reagent: str | Reagent, *, alcohol: str | None = None,
-                       max_shifts: int = 2, use_xtb: bool = False) -> Enumeration:
+                       max_shifts: int = 2, use_xtb: bool = False, control: str = "auto") -> Enumeration:
     """Plausible products of `substrate` with `reagent`, with pathway, prior and role.
 
     Parameters
@@ -868,6 +1099,12 @@ def enumerate_products(substrate: str, reagent: str | Reagent, *, alcohol: str |
     use_xtb : bool
         Refine cations the empirical scale cannot order (within ~2 kcal/mol) with GFN2-xTB
         (needs the optional ``tblite`` package; without it a warning says so).
+    control : str
+        Capture of allylic cations: ``"kinetic"`` (low temperature, short times: the terminus
+        carrying more charge, e.g. the 1,2-adduct of a diene), ``"thermodynamic"`` (warm,
+        equilibrating: the product with the more substituted C=C, e.g. the 1,4-adduct), or
+        ``"auto"`` (thermodynamic for HX with allylic alcohols, whose halides equilibrate;
+        kinetic otherwise). Allylic products carry a note either way.
 
     Returns
     -------
@@ -885,6 +1122,8 @@ def enumerate_products(substrate: str, reagent: str | Reagent, *, alcohol: str |
     if isinstance(max_shifts, bool) or not isinstance(max_shifts, int) or not 0 <= max_shifts <= cand["max_shifts_allowed"]:
         raise SpecmatchError(f"--max-shifts must be a whole number from 0 to {cand['max_shifts_allowed']} "
                              f"(got {max_shifts!r})")
+    if control not in CONTROLS:
+        raise SpecmatchError(f"--control must be one of {', '.join(CONTROLS)} (got {control!r})")
     r = reagent if isinstance(reagent, Reagent) else parse_reagent(reagent)
     mol = mol_from_text(substrate, max_heavy_atoms=cand["max_heavy_atoms"])
     if Chem.GetFormalCharge(mol) != 0 or any(a.GetNumRadicalElectrons() for a in mol.GetAtoms()) \
@@ -906,7 +1145,7 @@ def enumerate_products(substrate: str, reagent: str | Reagent, *, alcohol: str |
             warnings.append("GFN2-xTB refinement requested but the optional 'tblite' package is not installed "
                             "(pip install 'specmatch[xtb]'); ranked with the empirical scale only")
             use_xtb = False
-    ctx = Context(sub, r, cls, max_shifts, use_xtb, nu, warnings, par)
+    ctx = Context(sub, r, cls, max_shifts, use_xtb, nu, warnings, par, control=control)
     if len(alkene_bonds(sub)) > 1 and cls in ADDITION_CLASSES:
         warnings.append("several C=C: mono-addition products are listed; with excess reagent each C=C reacts")
     if sub.GetRingInfo().NumRings() >= 2 and any(sub.GetRingInfo().NumAtomRings(i) >= 2 for i in range(sub.GetNumAtoms())):

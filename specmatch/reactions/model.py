@@ -16,8 +16,10 @@ class Candidate:
     Attributes
     ----------
     smiles : str
-        Canonical SMILES of the constitution (no stereo: stereoisomers share a candidate,
-        see `notes`).
+        Canonical isomeric SMILES: the relative configuration where the mechanism fixes it
+        (anti/syn additions, diastereomers from capture on either face, where they give
+        different predicted spectra), otherwise the constitution. A racemic candidate is
+        written as the enantiomer with the lexically smaller SMILES.
     label : str
         Short description in the trade's words ("Markovnikov product", "after 1,2-hydride shift",
         "ring-expanded", "1,4-adduct", "E1 alkene", ...).
@@ -35,6 +37,13 @@ class Candidate:
     notes : tuple of str
         Stereochemical and practical notes (racemic new stereocentre, diastereomers, E/Z,
         syn/anti addition, other routes to the same product).
+    constitution : str
+        Canonical SMILES without stereo (diastereomer candidates share it).
+    racemic : bool
+        True if the candidate is chiral and formed with its mirror image in equal amounts.
+    configuration : str
+        Words for the configuration: "meso", "racemic (C2 R*, C3 R*)" (substrate atom
+        numbers), or "" when no relative configuration is set.
     """
 
     smiles: str
@@ -45,11 +54,16 @@ class Candidate:
     flags: tuple[str, ...] = ()
     notes: tuple[str, ...] = ()
     mechanistic_weight: float = 0.0
+    constitution: str = ""
+    racemic: bool = False
+    configuration: str = ""
 
     def to_dict(self) -> dict:
         return {"smiles": self.smiles, "label": self.label, "pathway": list(self.pathway),
                 "prior": round(self.prior, 6), "role": self.role, "flags": list(self.flags),
-                "notes": list(self.notes), "mechanistic_weight": float(f"{self.mechanistic_weight:.4g}")}
+                "notes": list(self.notes), "mechanistic_weight": float(f"{self.mechanistic_weight:.4g}"),
+                "constitution": self.constitution or self.smiles, "racemic": self.racemic,
+                "configuration": self.configuration}
 
 
 @dataclass(frozen=True)
@@ -72,6 +86,11 @@ class Enumeration:
         Canonical SMILES of the alcohol nucleophile, if any.
     reaction_class : str
         The mechanism class used (the reagent class after resolving a bare acid).
+    substrate_input : str
+        The substrate as typed; pathway atom numbers (C1, C2, ...) count its heavy atoms
+        from 1 in the order they are written.
+    substrate_stereo : tuple of str
+        Specified configurations of the substrate in that numbering ("C2=C3 E", "C4 R").
     """
 
     substrate: str
@@ -83,22 +102,44 @@ class Enumeration:
     reaction_class: str = ""
     substrate_input: str = ""
     safety: tuple[str, ...] = field(default_factory=tuple)
+    substrate_stereo: tuple[str, ...] = ()
 
     @property
     def major(self) -> Candidate:
         return self.candidates[0]
 
     def candidate(self, smiles: str) -> Candidate | None:
-        """The candidate with this constitution (any SMILES spelling), or None."""
-        from ..structures import mol_from_text
+        """The candidate for this SMILES (any spelling), or None.
+
+        With stereo in the SMILES the configuration must match (either enantiomer of a
+        racemic candidate); without, the most probable candidate of that constitution.
+        """
         from rdkit import Chem
 
-        key = Chem.MolToSmiles(mol_from_text(smiles), isomericSmiles=False)
-        return next((c for c in self.candidates if c.smiles == key), None)
+        from ..structures import mol_from_text
+        from .stereo import mirror
+
+        mol = mol_from_text(smiles)
+        plain = Chem.MolToSmiles(mol, isomericSmiles=False)
+        iso = Chem.MolToSmiles(mol)
+        if iso != plain:
+            keys = {iso, Chem.MolToSmiles(mirror(mol))}
+            return next((c for c in self.candidates if c.smiles in keys), None)
+        return next((c for c in self.candidates if (c.constitution or c.smiles) == plain), None)
+
+    def diastereomers(self, smiles: str) -> tuple[Candidate, ...]:
+        """Every candidate with the constitution of `smiles`, most probable first."""
+        from rdkit import Chem
+
+        from ..structures import mol_from_text
+
+        plain = Chem.MolToSmiles(mol_from_text(smiles), isomericSmiles=False)
+        return tuple(c for c in self.candidates if (c.constitution or c.smiles) == plain)
 
     def to_dict(self) -> dict:
         return {"substrate": self.substrate, "reagent": self.reagent.name,
                 "candidates": [c.to_dict() for c in self.candidates], "warnings": list(self.warnings),
                 "model": self.model, "reaction_class": self.reaction_class, "alcohol": self.alcohol,
                 "substrate_input": self.substrate_input, "reagent_key": self.reagent.key,
+                "substrate_stereo": list(self.substrate_stereo),
                 "safety": list(self.safety)}

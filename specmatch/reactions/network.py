@@ -511,10 +511,14 @@ def terminus_shares(node: Intermediate) -> list[float]:
     return [x / s for x in w]
 
 
-def e1_alkenes(node: Intermediate, rt: float) -> list[tuple[Chem.Mol, float, str]]:
-    """Alkenes from loss of a beta proton, each with its Zaitsev share and a description."""
+def e1_alkenes(node: Intermediate, rt: float, alpha: float | None = None) -> list[tuple[Chem.Mol, float, str]]:
+    """Alkenes from loss of a beta proton, each with its Zaitsev share and a description.
+
+    Weight of an alkene: exp(-alpha * dH_hydrogenation / RT), alpha from ``elimination.alpha``
+    or, under heat (dehydration), ``elimination.alpha_heat``.
+    """
     par = model_params()["elimination"]
-    found: dict[str, tuple[Chem.Mol, float, str]] = {}
+    found: dict[str, list] = {}
     for mol, c in node.forms:
         catom = mol.GetAtomWithIdx(c)
         for beta in catom.GetNeighbors():
@@ -529,15 +533,15 @@ def e1_alkenes(node: Intermediate, rt: float) -> list[tuple[Chem.Mol, float, str
             if new is None:
                 continue
             key = csmiles(new)
-            if key in found:
-                continue
-            dh = alkene_dh(new, c, beta.GetIdx())
-            found[key] = (new, dh, f"loss of H+ from {lab(mol, beta.GetIdx())}: "
-                                   f"{lab(mol, c)}={lab(mol, beta.GetIdx())}")
+            if key not in found:
+                dh = alkene_dh(new, c, beta.GetIdx())
+                found[key] = [new, dh, f"loss of H+ from {lab(mol, beta.GetIdx())}: "
+                                       f"{lab(mol, c)}={lab(mol, beta.GetIdx())}"]
     if not found:
         return []
     lo = min(v[1] for v in found.values())
-    w = {k: math.exp(-par["alpha"] * (v[1] - lo) / rt) for k, v in found.items()}
+    a = par["alpha"] if alpha is None else alpha
+    w = {k: math.exp(-a * (v[1] - lo) / rt) for k, v in found.items()}
     s = sum(w.values())
     return [(v[0], w[k] / s, v[2] + (" (most substituted, Zaitsev)" if v[1] == lo and len(found) > 1 else ""))
             for k, v in found.items()]

@@ -157,6 +157,10 @@ def cation_centre_score(mol: Chem.Mol, centre: int) -> CentreScore:
     if n_bo and not n_o:
         e += t["beta_oxygen"] * min(n_bo, 2)
     ri = mol.GetRingInfo()
+    if not ri.IsAtomInRingOfSize(centre, 3) and any(
+            n.GetAtomicNum() == 6 and ri.IsAtomInRingOfSize(n.GetIdx(), 3) for n in nbrs):
+        e += t["cyclopropylcarbinyl"]
+        words.append("cyclopropylcarbinyl")
     if is_small_bridgehead(mol, centre):
         e += t["cation_at_bridgehead"]
         words.append("bridgehead")

@@ -52,6 +52,14 @@ class Structure:
         attaches each group. They are expected as separate signals.
     stereocentres : tuple of int
         Atoms that are potential tetrahedral stereocentres (assigned or not).
+    isomeric_smiles : str
+        RDKit canonical isomeric SMILES: the constitution plus every configuration the
+        input specifies (``"C[C@@H](Br)[C@@H](C)Br"``). Equal to `canonical_smiles` when
+        the input gives no stereo.
+    specified_stereo : tuple of int
+        Tetrahedral stereocentres whose configuration the input specifies. Two or more
+        define a relative configuration (cis/trans, meso/dl), which the stereo layer of
+        the prediction reads.
     """
 
     mol: Chem.Mol
@@ -62,6 +70,8 @@ class Structure:
     diastereotopic_ch2: frozenset[int]
     diastereotopic_pairs: tuple[tuple[int, int], ...]
     stereocentres: tuple[int, ...]
+    isomeric_smiles: str = ""
+    specified_stereo: tuple[int, ...] = ()
     _classes: dict[int, tuple[int, ...]] = field(default_factory=dict, repr=False, compare=False)
 
     @property
@@ -286,24 +296,59 @@ def _label_atom(mol: Chem.Mol, atom: int) -> Chem.Mol:
     return rw.GetMol()
 
 
-def _stereo_elements(mol: Chem.Mol) -> list[tuple[str, int]]:
+def _stereo_elements(mol: Chem.Mol) -> list[tuple[str, int, bool]]:
+    """(type, centre atom or bond, configuration specified?) of every potential stereo element."""
     mol = Chem.Mol(mol)
     info = Chem.FindPotentialStereo(mol, cleanIt=True, flagPossible=True)
-    return [(str(s.type), s.centeredOn) for s in info]
+    return [(str(s.type), s.centeredOn, s.specified == Chem.StereoSpecified.Specified) for s in info]
+
+
+def _mirror(mol: Chem.Mol) -> Chem.Mol:
+    m = Chem.Mol(mol)
+    for a in m.GetAtoms():
+        tag = a.GetChiralTag()
+        if tag == Chem.ChiralType.CHI_TETRAHEDRAL_CW:
+            a.SetChiralTag(Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
+        elif tag == Chem.ChiralType.CHI_TETRAHEDRAL_CCW:
+            a.SetChiralTag(Chem.ChiralType.CHI_TETRAHEDRAL_CW)
+    m.ClearComputedProps()  # RDKit caches the stereo perception; tags changed
+    return m
+
+
+def _with_tag(mol: Chem.Mol, centre: int, tag: Chem.ChiralType) -> str:
+    m = Chem.Mol(mol)
+    m.GetAtomWithIdx(centre).SetChiralTag(tag)
+    m.ClearComputedProps()
+    return Chem.MolToSmiles(Chem.RemoveHs(m))
 
 
 def _is_diastereotopic_after_label(labelled: Chem.Mol, centre: int) -> bool:
     """Labelling one of two equivalent ligands turns `centre` into a stereocentre;
-    the ligands are diastereotopic if another stereo element then exists too.
+    the ligands are diastereotopic if the two labelled molecules are diastereomers.
 
     This is the substitution test of standard texts (replace each ligand in turn by
-    a test group; diastereomers result -> diastereotopic). It covers both an
-    existing stereocentre elsewhere and a prochiral centre (pentan-3-ol's CH2).
+    a test group; diastereomers result -> diastereotopic, enantiomers -> enantiotopic).
+    A C=C stereo element alone does not make the pair diastereotopic: mirroring leaves
+    E/Z unchanged, so the two labelled molecules are enantiomers ((E)-1-bromobut-2-ene's
+    CH2Br is enantiotopic; common practice). With another tetrahedral element of
+    unspecified configuration (a racemate) the pair counts as diastereotopic; when
+    every other element is specified the labelled molecules are compared exactly
+    (the CH2 of meso- and dl-pentane-2,4-diol differ).
     """
     elements = _stereo_elements(labelled)
-    if not any(kind == "Atom_Tetrahedral" and at == centre for kind, at in elements):
+    if not any(kind == "Atom_Tetrahedral" and at == centre for kind, at, _ in elements):
         return False
-    return any(at != centre for _, at in elements)
+    others = [(kind, spec) for kind, at, spec in elements if at != centre and kind != "Bond_Double"]
+    if not others:
+        return False
+    if not all(spec for _, spec in others):
+        return True
+    one = _with_tag(labelled, centre, Chem.ChiralType.CHI_TETRAHEDRAL_CW)
+    two = _with_tag(labelled, centre, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
+    if one == two:
+        return False
+    mirror = _with_tag(_mirror(labelled), centre, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
+    return two != mirror
 
 
 def _may_be_prochiral(atom: Chem.Atom, classes: tuple[int, ...]) -> bool:
@@ -316,7 +361,7 @@ def _may_be_prochiral(atom: Chem.Atom, classes: tuple[int, ...]) -> bool:
     return max(counts.values(), default=0) == 2
 
 
-def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: list[tuple[str, int]]
+def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: list[tuple[str, int, bool]]
                     ) -> tuple[frozenset[int], tuple[tuple[int, int], ...]]:
     # Cheap pre-test: without a stereo element or a prochiral centre nothing can be
     # diastereotopic, which spares the labelled-molecule test for most small molecules.
@@ -348,16 +393,20 @@ def perceive(mol: Chem.Mol, smiles: str = "") -> Structure:
     classes = tuple(int(r) for r in Chem.CanonicalRankAtoms(mol, breakTies=False, includeChirality=False))
     original_stereo = _stereo_elements(mol)
     ch2, pairs = _diastereotopic(mol, classes, original_stereo)
-    stereo = tuple(sorted(at for kind, at in original_stereo if kind == "Atom_Tetrahedral"))
+    stereo = tuple(sorted(at for kind, at, _ in original_stereo if kind == "Atom_Tetrahedral"))
+    specified = tuple(sorted(at for kind, at, spec in original_stereo if kind == "Atom_Tetrahedral" and spec))
+    plain = Chem.MolToSmiles(mol, isomericSmiles=False)
     return Structure(
         mol=mol,
         smiles=smiles or Chem.MolToSmiles(mol),
-        canonical_smiles=Chem.MolToSmiles(mol, isomericSmiles=False),
+        canonical_smiles=plain,
         formula=_hill_formula(mol),
         symmetry_classes=classes,
         diastereotopic_ch2=ch2,
         diastereotopic_pairs=pairs,
         stereocentres=stereo,
+        isomeric_smiles=Chem.MolToSmiles(mol) if original_stereo else plain,
+        specified_stereo=specified,
     )
 
 
@@ -381,6 +430,11 @@ def parse_structure(text: str, *, max_heavy_atoms: int = MAX_HEAVY_ATOMS) -> Str
 def canonical_smiles(text: str) -> str:
     """Canonical SMILES of the constitution (no stereo), for de-duplication."""
     return parse_structure(text).canonical_smiles
+
+
+def isomeric_smiles(text: str) -> str:
+    """Canonical isomeric SMILES: constitution plus the configurations the input specifies."""
+    return parse_structure(text).isomeric_smiles
 
 
 def stereocentres_created(before: str | Structure, after: str | Structure) -> int:

@@ -69,6 +69,16 @@ class ProtonSite:
     exchangeable: bool = False
     diastereotopic: bool = False
     fallback: bool = False
+    complex_multiplet: bool = False
+
+
+def _ring_methine_is_complex(g: "_Graph", i: int) -> bool:
+    """A CH on a 3-5 or 7+ membered ring with ring CH2 partners: puckering spreads its couplings
+    over several unequal values, so the honest label is "m" (common practice)."""
+    size = g.ring[i]
+    if g.nh[i] != 1 or not size or size == 6:
+        return False
+    return any(g.sp3(y) and g.nh[y] == 2 and g.ri.AreAtomsInSameRing(i, y) for y, _ in g.nbrs[i])
 
 
 class _Graph:
@@ -350,7 +360,12 @@ def _sp3_couplings(g: _Graph, i: int, j_hz: dict[str, float]) -> list[tuple[int,
             if n_f:
                 out.append((n_f, j_hz["3J_HF"] if n_f == 1 else j_hz["3J_HF_CF2"]))
         if g.nh[y] and g.cls[y] != g.cls[i]:
-            if g.sp3(y):
+            if g.sp3(y) and g.nh[i] == 1 and g.nh[y] == 2 and g.ring[i] == 6 and g.ring[y] == 6 \
+                    and g.ri.AreAtomsInSameRing(i, y):
+                # cyclohexyl methine, substituent mostly equatorial: its axial H couples
+                # strongly to one H of each ring CH2 (ax-ax) and weakly to the other (ax-eq)
+                out += [(1, j_hz["3J_ring6_ax_ax"]), (1, j_hz["3J_ring6_ax_eq"])]
+            elif g.sp3(y):
                 out.append((g.nh[y], j_hz["3J_sp3_sp3"]))
             elif g.double_o(y):
                 out.append((g.nh[y], j_hz["3J_sp3_aldehyde"]))
@@ -470,7 +485,9 @@ def _alkene_sites(g: _Graph, atoms: tuple[int, ...], i: int, j: int, j_hz: dict[
             cis = None if first_cis is None else (a == b) == first_cis
             if sj[b] is None:
                 if g.nh[j] and g.cls[j] != g.cls[i]:
-                    coup.append((1, j_hz["3J_vinyl_cis"] if cis else j_hz["3J_vinyl_trans"]))
+                    # -CH=CH- between two substituted carbons couples less than a vinyl group's trans pair
+                    trans = "3J_vinyl_trans_12" if g.nh[i] == 1 and g.nh[j] == 1 else "3J_vinyl_trans"
+                    coup.append((1, j_hz["3J_vinyl_cis"] if cis else j_hz[trans]))
             elif g.z[sj[b]] == 9:
                 if cis is None:
                     coup.append((1, (j_hz["3J_HF_vinyl_cis"] + j_hz["3J_HF_vinyl_trans"]) / 2))
@@ -697,6 +714,38 @@ def _split_pairs(structure: Structure, atoms: tuple[int, ...]) -> tuple[tuple[in
     return tuple(sorted(first + rest)), tuple(sorted(second))
 
 
+def _alkene_twins(g: _Graph, atoms: tuple[int, ...]) -> tuple[tuple[int, ...], tuple[int, ...]] | None:
+    """Halves of an equivalence set of sp3 groups sitting in twos on alkene carbons whose
+    partner carbon has two different substituents (cis and trans groups), or None."""
+    if len(atoms) < 2:
+        return None
+    first: list[int] = []
+    second: list[int] = []
+    members = set(atoms)
+    done: set[int] = set()
+    for y in atoms:
+        for c, o in g.nbrs[y]:
+            if c in done or o != 1.0 or g.z[c] != 6 or g.arom[c]:
+                continue
+            d = g.double_c(c)
+            if d is None:
+                continue
+            twins = [w for w, ow in g.nbrs[c] if w in members and ow == 1.0]
+            if len(twins) != 2:
+                continue
+            far = [w for w, _ in g.nbrs[d] if w != c]
+            far_cls = {g.cls[w] for w in far}
+            if len(far) + g.nh[d] != 2 or (len(far) == 2 and len(far_cls) == 1):
+                continue
+            done.add(c)
+            first.append(twins[0])
+            second.append(twins[1])
+    if not first:
+        return None
+    rest = [a for a in atoms if a not in first and a not in second]
+    return tuple(sorted(first + rest)), tuple(sorted(second))
+
+
 def proton_sites(structure: Structure, j_hz: dict[str, float]) -> list[ProtonSite]:
     """All 1H signals of a structure with their model terms and couplings.
 
@@ -738,7 +787,17 @@ def proton_sites(structure: Structure, j_hz: dict[str, float]) -> list[ProtonSit
                                             hc, f"{env}, diastereotopic group", tuple(coup),
                                             diastereotopic=True, fallback=fb))
                 continue
-            sites.append(ProtonSite(atoms, g.nh[i] * len(atoms), tuple(terms), hc, env, tuple(coup), fallback=fb))
+            twins = _alkene_twins(g, atoms)
+            if twins:
+                # twin groups on one alkene carbon: one cis, one trans to the far substituent
+                # (2-methylbut-2-ene CH3 1.68 and 1.60 ppm, from memory); the one cis to the
+                # heavier far group is upfield
+                for sign, part, where in ((1.0, twins[0], "cis to H"), (-1.0, twins[1], "cis to the far substituent")):
+                    sites.append(ProtonSite(part, g.nh[i] * len(part), tuple(terms) + (("sp3:split:group:any", sign),),
+                                            hc, f"{env}, allylic twin {where}", tuple(coup), fallback=fb))
+                continue
+            sites.append(ProtonSite(atoms, g.nh[i] * len(atoms), tuple(terms), hc, env, tuple(coup), fallback=fb,
+                                    complex_multiplet=_ring_methine_is_complex(g, i)))
             continue
         triple = next((y for y, o in g.nbrs[i] if o == 3.0), None)
         if triple is not None:

@@ -78,6 +78,8 @@ def predict_protons(structure: Structure, *, correction: bool = True, codes: Mol
             warnings.append(f"1H: the tables do not cover the protons on atom {site.atoms[0]} "
                             f"({site.environment}); a generic value with a wide sigma is used")
         mult, js = multiplicity(site.couplings, exchangeable=site.exchangeable)
+        if site.complex_multiplet and not site.exchangeable:
+            mult, js = "m", ()
         groups.append(ProtonGroup(
             atoms=site.atoms, shift=shift, sigma=s, count=site.count, multiplicity=mult,
             j_hz=js, exchangeable=site.exchangeable, diastereotopic=site.diastereotopic,

@@ -1,26 +1,27 @@
-"""Benchmark: product ratios from synthetic crude 1H spectra of real isomer pairs.
+"""Benchmark: product ratios of 1H mixtures of real isomer pairs.
 
-Inputs: ``tests/data/mixture_isomer_pairs.json`` - experimental 1H shifts of six
-positional-isomer pairs (products of HX addition and acid-catalysed hydration)
-from nmrshiftdb2 (Kuhn & Schlörer, Magn. Reson. Chem. 2015, 53, 582). For every
-pair and every true major fraction a synthetic 400 MHz CDCl3 spectrum is built
-from the EXPERIMENTAL shifts (first-order multiplets, vicinal J drawn uniformly
-in 6.5-7.5 Hz, 1.0 Hz lines, white noise, baseline, CHCl3 7.26, water 1.56,
-TMS 0.00, one exchange-averaged OH line); the fit uses the PREDICTED spectra of
-the candidates (``specmatch.prediction.predict``), so the refinement has to
-absorb the prediction error.
+Default (peak lists): pairs of constitutional isomers (same formula and
+functional classes, at most PAIRS_PER_FORMULA per formula) that both have a
+complete experimental 1H list in the shared nmrshiftdb2 development part
+(nmrshiftdb2, Kuhn & Schlörer, Magn. Reson. Chem. 2015, 53, 582); figures per
+half of the major component's InChIKey connectivity block (nothing here is
+fitted on either half; MODEL_SD_FLOOR was set by hand). For every pair and every true major
+fraction in 0.95, 0.90, 0.80, 0.70, 0.60, 0.50 a 1H peak list is built from the
+EXPERIMENTAL shifts: one multiplet per set of equivalent protons (+-0.015 ppm),
+integral = fraction x protons, multiplets of the two compounds closer than
+0.03 ppm merged into one (what a 400 MHz spectrum would integrate together),
+OH lines left in. The ratio is estimated from the candidates' PREDICTED
+spectra (``estimate_mixture(peaklist=...)``).
 
-Figures printed:
-* |estimated - true| fraction (percentage points), per pair and over the
-  well-resolved pairs (every candidate has a multiplet that overlaps no multiplet
-  of the other at the experimental shifts); target: <= 3 pp;
-* coverage: share of cases whose reported 95% interval contains the truth
-  (target ~95%), and of the +-1 sd interval (~68%);
-* pure samples (major fraction 1.0): major estimate (target > 97%) and whether
-  the absent candidate's fraction is within its 95% interval of zero;
-* agreement of the classical integral ratio.
+Figures printed per half (fit / held-back): share within 3 percentage points
+(target >= 80%), mean |error|, coverage of the reported 95% interval (target
+85-100%) and of +-1 sd, and failed tasks (target none).
 
-usage: python benchmarks/bench_mixture.py [--seeds N] [--snr S] [--quick]
+``--spectra``: the older synthetic full-spectrum benchmark (six curated pairs in
+tests/data/mixture_isomer_pairs.json, simulated 400 MHz spectra from
+experimental shifts, fitted with the predicted spectra).
+
+usage: python benchmarks/bench_mixture.py [--limit N] [--spectra [--seeds N] [--snr S] [--quick]]
 """
 
 from __future__ import annotations
@@ -66,15 +67,120 @@ def _resolved(groups_a, groups_b, frequency_mhz: float = 400.0, margin_hz: float
     return clear(sa, sb + masks) and clear(sb, sa + masks)
 
 
+#: peak-list tasks: multiplet half-width and merge distance (ppm), common practice at 400 MHz
+HALF_WIDTH_PPM = 0.015
+MERGE_PPM = 0.03
+
+
+#: at most this many pairs per molecular formula (so a few large isomer families do not dominate)
+PAIRS_PER_FORMULA = 3
+
+
+def peaklist_tasks(limit: int = 0) -> tuple[list[dict], Path]:
+    """Per isomer pair (same formula and classes, both with a complete experimental 1H
+    list, same half by connectivity block) and true major fraction: the merged multiplets."""
+    import sys
+
+    root = Path(__file__).resolve().parents[1]
+    sys.path.insert(0, str(root / "benchmarks"))
+    from fit_error_model import SHARED, block_held_back, formula_mates, record_index
+
+    sys.path.insert(0, str(SHARED / "tools"))
+    dev = SHARED / "reference" / "nmrshiftdb2_dev.jsonl"
+    index = record_index(dev)
+    # every class (the saturated in-scope pairs alone are too few), both halves
+    mates = formula_mates(index, scope=None, same_half=False)
+    per_formula: dict[str, int] = {}
+    pairs = []
+    for a in sorted(mates):
+        for b in mates[a]:
+            f = index[a]["formula"]
+            if b <= a or per_formula.get(f, 0) >= PAIRS_PER_FORMULA:
+                continue
+            per_formula[f] = per_formula.get(f, 0) + 1
+            pairs.append((a, b, "held_back" if block_held_back(index[a]["block"]) else "fit"))
+    out = []
+    for a, b, half in pairs[: limit or None]:
+        for fa in RATIOS:
+            rows = sorted([(m["shift"], m["integral"] * fa) for m in index[a]["h1"]]
+                          + [(m["shift"], m["integral"] * (1 - fa)) for m in index[b]["h1"]])
+            merged: list[list[float]] = []
+            for sh, i in rows:
+                if merged and sh - merged[-1][1] <= MERGE_PPM:
+                    merged[-1][1] = sh
+                    merged[-1][2] += i
+                else:
+                    merged.append([sh, sh, i])
+            core = not ({"aromatic", "carbonyl"} & set(index[a]["classes"]))
+            out.append({"a": a, "b": b, "fa": fa, "half": half, "multiplets": merged, "core": core})
+    return out, dev
+
+
+def main_peaklists(limit: int) -> None:
+    from specmatch.errors import SpecmatchError
+    from specmatch.identification.mixture import estimate_mixture
+    from specmatch.prediction import predict
+    from specmatch.spectra.model import Multiplet, PeakList
+
+    tasks, dev = peaklist_tasks(limit)
+    print(f"inputs: {dev}; {len({(t['a'], t['b']) for t in tasks})} isomer pairs with experimental 1H, "
+          f"true major fractions {', '.join(f'{r:.2f}' for r in RATIOS)}; multiplets +-{HALF_WIDTH_PPM} ppm, "
+          f"merged within {MERGE_PPM} ppm")
+    print(f"predictor: {predict('CCO').tables_version}")
+    rows = []
+    t0 = time.time()
+    for t in tasks:
+        mults = tuple(Multiplet((lo + hi) / 2, (lo - HALF_WIDTH_PPM, hi + HALF_WIDTH_PPM), i, "m")
+                      for lo, hi, i in t["multiplets"])
+        pl = PeakList("1H", (), mults, frequency_mhz=400.0, solvent="CDCl3", source="bench peak list")
+        try:
+            est = estimate_mixture([t["a"], t["b"]], peaklist=pl, solvent="CDCl3")
+        except SpecmatchError as exc:
+            rows.append({**t, "error": str(exc)})
+            continue
+        lo, hi = est.interval_95[0]
+        rows.append({**t, "est": est.fractions[0], "sd": est.uncertainties[0], "lo": lo, "hi": hi, "error": None})
+    groups = [(h, None) for h in ("fit", "held_back", None)] + [(h, True) for h in ("fit", "held_back", None)]
+    for half, core in groups:
+        if core and half == "fit":
+            print("core scope (no aromatic ring, no carbonyl, as specbench's core):")
+        sel = [r for r in rows if (half is None or r["half"] == half) and (core is None or r["core"])]
+        ok = [r for r in sel if r["error"] is None]
+        if not sel:
+            continue
+        err = np.array([abs(r["est"] - r["fa"]) for r in ok]) * 100
+        cov95 = np.mean([r["lo"] - 1e-9 <= r["fa"] <= r["hi"] + 1e-9 for r in ok]) if ok else float("nan")
+        cov68 = np.mean([abs(r["est"] - r["fa"]) <= r["sd"] for r in ok]) if ok else float("nan")
+        print(f"{half or 'all':<10} tasks {len(sel):4d}: within 3 pp {100 * np.mean(err <= 3.0):.0f}% (target >= 80%), "
+              f"mean |error| {err.mean():.2f} pp, 95% interval covers {100 * cov95:.0f}% (target 85-100%), "
+              f"1 sd covers {100 * cov68:.0f}%, failed {len(sel) - len(ok)}")
+    worst = sorted((r for r in rows if r["error"] is None), key=lambda r: -abs(r["est"] - r["fa"]))[:5]
+    print("largest errors:")
+    for r in worst:
+        print(f"   {r['a']} / {r['b']} true {r['fa']:.2f} est {r['est']:.3f} [{r['lo']:.3f}, {r['hi']:.3f}] ({r['half']})")
+    for r in rows:
+        if r["error"]:
+            print(f"   FAILED {r['a']} / {r['b']} {r['fa']:.2f}: {r['error']}")
+    print(f"time: {time.time() - t0:.0f} s for {len(rows)} estimates")
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--limit", type=int, default=0, help="peak lists: at most this many isomer pairs")
+    ap.add_argument("--spectra", action="store_true", help="the synthetic full-spectrum benchmark instead")
     ap.add_argument("--seeds", type=int, default=2, help="noise/J draws per pair and ratio (default 2)")
     ap.add_argument("--snr", type=float, default=500.0, help="tallest compound line / noise sd (default 500)")
     ap.add_argument("--quick", action="store_true", help="ratios 0.9 and 0.6 only, one seed")
     args = ap.parse_args()
+    if not args.spectra:
+        main_peaklists(args.limit)
+        return
 
     from specmatch.identification.mixture import estimate_mixture
-    from specmatch.identification.mixture.synth import experimental_groups, synthetic_spectrum
+    import sys
+
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
+    from mixture_synth import experimental_groups, synthetic_spectrum  # test helper, not production code
     from specmatch.prediction import predict
     from specmatch.spectra.model import PeakList
 

@@ -223,6 +223,7 @@ def record_index(dev: Path) -> dict[str, dict]:
     """Canonical SMILES (no stereo) -> the record's distinct 13C lines, 1H groups, block."""
     import isomer_tasks
     from rdkit import Chem
+    from rdkit.Chem.rdMolDescriptors import CalcMolFormula
 
     out: dict[str, dict] = {}
     for line in open(dev):
@@ -237,8 +238,26 @@ def record_index(dev: Path) -> dict[str, dict]:
         h1 = max(d["h1"], key=len) if d["h1"] else []
         out[key] = {"c13": isomer_tasks.distinct_shifts(max(d["c13"], key=len)) if d["c13"] else [],
                     "h1": isomer_tasks.h1_groups(h1) if h1 and len(h1) >= n_h - 1 else [],
-                    "block": connectivity_block(d["inchikey"])}
+                    "block": connectivity_block(d["inchikey"]), "formula": CalcMolFormula(m),
+                    "classes": tuple(sorted(d["classes"]))}
     return out
+
+
+#: the scope of the 1H mixture pairs: saturated halides, alcohols and ethers (the products
+#: of the reactions specmatch is for)
+PAIR_CLASSES = {"alkyl_halide", "alcohol", "ether", "ring"}
+
+
+def formula_mates(index: dict[str, dict], key: str = "h1", scope: set[str] | None = PAIR_CLASSES,
+                  same_half: bool = True) -> dict[str, list[str]]:
+    """Per compound, the other compounds of the same formula and classes with a spectrum
+    of the given kind (within `scope` classes unless None; in the same half by
+    connectivity block when `same_half`)."""
+    groups: dict[tuple, list[str]] = collections.defaultdict(list)
+    for smi, r in index.items():
+        if r[key] and (scope is None or set(r["classes"]) <= scope):
+            groups[(r["formula"], r["classes"], block_held_back(r["block"]) if same_half else 0)].append(smi)
+    return {s: sorted(x for x in g if x != s) for g in groups.values() for s in g}
 
 
 def _merge_lines(a: list[float], b: list[float]) -> list[float]:
@@ -270,40 +289,56 @@ def hypothesis_tasks(sets: dict[str, list[dict]], index: dict[str, dict], limit:
     its own experimental spectrum in the development part (the first by a hash of
     the task id); 13C: the lines of A and B together; 1H: the multiplets of A and B
     with integrals scaled by a major fraction from MIX_FRACTIONS (A major), merged
-    within H1_MERGE_PPM. Each task gets a half by the connectivity block of A; a
-    mixture whose components fall in different halves is dropped.
+    within H1_MERGE_PPM; when no other member of the set has its own spectrum, B is
+    a compound of the same formula and classes that has one (added to the
+    candidates). The 1H isomer-set tasks are few, so formula sets (a compound
+    with the others of its formula and classes that have a 1H list) are added. Each task gets a half by the connectivity block of A; a mixture
+    whose components fall in different halves is dropped.
     """
     from rdkit import Chem
 
     out: dict[str, list[dict]] = {}
     for nucleus, names in (("13C", ("regio", "regio_wide")), ("1H", ("regio_h1", "wide_h1"))):
+        key = "c13" if nucleus == "13C" else "h1"
+        mates = formula_mates(index, key, scope=None)
+        tasks = [t for name in names for t in sets[name]]
+        if nucleus == "1H":
+            # the 1H isomer-set tasks are few: add formula sets (a compound and up to 11
+            # others of its formula and classes with a 1H list) as further candidate sets
+            for smi in sorted(mates):
+                if mates[smi] and index[smi]["h1"]:
+                    tasks.append({"id": f"formula:{smi}", "candidates": sorted({smi, *mates[smi][:11]}),
+                                  "c13": [], "h1": index[smi]["h1"], "truth": smi})
         pure, mixed = [], []
         seen = set()
-        for name in names:
-            for t in sets[name]:
-                truth = Chem.MolToSmiles(Chem.MolFromSmiles(t["truth"]), isomericSmiles=False)
-                if truth not in index or (truth, tuple(t["candidates"])) in seen:
-                    continue
-                seen.add((truth, tuple(t["candidates"])))
-                ra = index[truth]
-                half = "held_back" if block_held_back(ra["block"]) else "fit"
-                pure.append({**t, "truth_components": [truth], "half": half})
-                key = "c13" if nucleus == "13C" else "h1"
-                others = [c for c in t["candidates"] if c != truth and index.get(c, {}).get(key)
-                          and block_held_back(index[c]["block"]) == (half == "held_back")]
-                if not others:
-                    continue
-                h = int(hashlib.sha256(f"{t['id']}:{truth}".encode()).hexdigest(), 16)
-                b = sorted(others)[h % len(others)]
-                if nucleus == "13C":
-                    mixed.append({**t, "id": f"{t['id']}+{b}", "c13": _merge_lines(ra["c13"], index[b]["c13"]),
-                                  "truth_components": [truth, b], "truth_fractions": None, "half": half})
-                else:
-                    fa = MIX_FRACTIONS[(h >> 8) % len(MIX_FRACTIONS)]
-                    mixed.append({**t, "id": f"{t['id']}+{b}", "c13": [],
-                                  "h1": _merge_multiplets(ra["h1"], fa, index[b]["h1"], 1.0 - fa),
-                                  "truth_components": [truth, b], "truth_fractions": [fa, 1.0 - fa],
-                                  "half": half})
+        for t in tasks:
+            truth = Chem.MolToSmiles(Chem.MolFromSmiles(t["truth"]), isomericSmiles=False)
+            if truth not in index or (truth, tuple(t["candidates"])) in seen:
+                continue
+            seen.add((truth, tuple(t["candidates"])))
+            ra = index[truth]
+            half = "held_back" if block_held_back(ra["block"]) else "fit"
+            pure.append({**t, "truth_components": [truth], "half": half})
+            others = [c for c in t["candidates"] if c != truth and index.get(c, {}).get(key)
+                      and block_held_back(index[c]["block"]) == (half == "held_back")]
+            extra = []
+            if not others and mates.get(truth):
+                others = extra = mates[truth]
+            if not others:
+                continue
+            h = int(hashlib.sha256(f"{t['id']}:{truth}".encode()).hexdigest(), 16)
+            b = sorted(others)[h % len(others)]
+            cands = list(t["candidates"]) + ([b] if b in extra else [])
+            if nucleus == "13C":
+                mixed.append({**t, "id": f"{t['id']}+{b}", "candidates": cands,
+                              "c13": _merge_lines(ra["c13"], index[b]["c13"]),
+                              "truth_components": [truth, b], "truth_fractions": None, "half": half})
+            else:
+                fa = MIX_FRACTIONS[(h >> 8) % len(MIX_FRACTIONS)]
+                mixed.append({**t, "id": f"{t['id']}+{b}", "c13": [], "candidates": cands,
+                              "h1": _merge_multiplets(ra["h1"], fa, index[b]["h1"], 1.0 - fa),
+                              "truth_components": [truth, b], "truth_fractions": [fa, 1.0 - fa],
+                              "half": half})
         if limit:
             pure, mixed = pure[:limit], mixed[:limit]
         out[f"pure_{nucleus}"], out[f"mixed_{nucleus}"] = pure, mixed

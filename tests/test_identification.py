@@ -269,3 +269,21 @@ def test_line_heights_decide_which_component_of_a_mixture_is_the_product(major):
     # without heights the candidate explaining more lines (2-bromobutane) would win
     plain = rank(["CCC(C)Br", "CC(C)(C)Br"], c13=[d["shift"] for d in lines])
     assert plain.best.smiles == "CCC(C)Br"
+
+
+def test_exchangeable_oh_does_not_take_a_resolved_multiplet():
+    # 2-methylbutan-2-ol (nmrshiftdb2 10008912: 1.49 CH2, 1.197 2 CH3, 0.924 CH3; patterns
+    # from memory) in a sample that also holds a little secondary alcohol, whose CH-O
+    # sextet at 3.62 ppm (butan-2-ol, nmrshiftdb2 10008032) shows; the tertiary alcohol's
+    # OH must not claim that sextet (an exchanging OH gives a singlet)
+    from specmatch.identification.scoring import h1_table, observed_h1
+
+    mults = [{"shift": 3.62, "integral": 0.3, "multiplicity": "sext", "j_hz": [6.2]},
+             {"shift": 1.49, "integral": 2, "multiplicity": "q", "j_hz": [7.5]},
+             {"shift": 1.197, "integral": 6, "multiplicity": "s"},
+             {"shift": 0.924, "integral": 3, "multiplicity": "t", "j_hz": [7.5]}]
+    cand = prepare("CCC(C)(C)O")
+    oh_atoms = {a for g in cand.prediction.protons if g.exchangeable for a in g.atoms}
+    rows = h1_table(cand, observed_h1(mults), load_error_model().h1)
+    on_sextet = [r for r in rows if r.observed_ppm == 3.62]
+    assert on_sextet and all(not (set(r.atoms) & oh_atoms) for r in on_sextet)

@@ -226,3 +226,73 @@ def test_identify_with_a_candidate_list_and_no_reaction(tmp_path):
     p = subprocess.run([sys.executable, "-m", "specmatch", "identify", "--c13", str(c13)],
                        capture_output=True, text=True, timeout=300)
     assert p.returncode == 2 and "--candidates" in p.stderr and "Traceback" not in p.stderr
+
+
+# ------------------------------------------------------- model comparison
+def test_occam_factor_of_the_fraction_is_the_prior_width_ratio():
+    # MacKay, Information Theory, Inference, and Learning Algorithms (CUP 2003), ch. 28:
+    # evidence = best-fit likelihood x Occam factor, the Occam factor being the share of
+    # the prior range of the parameter that the data allow. With a uniform prior on G
+    # grid fractions and a likelihood that only one grid point supports, the mixture's
+    # log evidence must be that point's log-likelihood minus log G.
+    import math
+
+    import numpy as np
+
+    from specmatch.identification.hypotheses import PAIR_RATIOS, _logmeanexp
+
+    g = len(PAIR_RATIOS)
+    ll = np.full(g, -1e6)
+    ll[3] = -12.5
+    assert _logmeanexp(ll) == pytest.approx(-12.5 - math.log(g))
+    # a likelihood the fraction does not change costs nothing
+    assert _logmeanexp(np.full(g, -7.0)) == pytest.approx(-7.0)
+
+
+def test_integrals_that_fix_the_fraction_pay_an_occam_factor():
+    # 1-chloropropane + 2-chloropropane at 3:1 by integrals (1H shifts from memory,
+    # handbook values: CH2Cl 3.52 t, CH2 1.81, CH3 1.04 t; CHCl 4.16 sept, CH3 1.52 d).
+    # The mixture hypothesis must win, and its fractions must be the 3:1 grid point.
+    a = [{"shift": 3.52, "integral": 2 * 0.75}, {"shift": 1.81, "integral": 2 * 0.75},
+         {"shift": 1.04, "integral": 3 * 0.75}, {"shift": 4.16, "integral": 1 * 0.25},
+         {"shift": 1.52, "integral": 6 * 0.25}]
+    r = rank(["CCCCl", "CC(C)Cl"], h1=a)
+    top = r.hypotheses[0]
+    assert set(top.components) == {"CCCCl", "CC(C)Cl"} and top.quantified
+    assert top.components[0] == "CCCCl" and top.fractions[0] == pytest.approx(0.75)
+    assert r.verdict.kind == "mixture" and "about 75%" in r.verdict.text
+
+
+def test_ratio_and_verdict_never_contradict():
+    # the 1H ratio is the measurement: a second component it finds is named, one it
+    # does not find is not claimed
+    from dataclasses import replace as dc_replace
+
+    from specmatch.identification.mixture import MixtureEstimate
+    from specmatch.identification.pipeline import reconcile
+
+    r = rank(["CCCCBr", "CCC(C)Br"], c13=c13_lines("CCC(C)Br"))
+    assert r.verdict.kind == "pure"
+
+    def est(f_sec, lo):
+        return MixtureEstimate(candidates=("CCC(C)Br", "CCCCBr"), names=("2-bromobutane", "1-bromobutane"),
+                               fractions=(f_sec, 1 - f_sec), uncertainties=(0.02, 0.02),
+                               interval_95=((f_sec - 0.04, f_sec + 0.04), (lo, 1 - f_sec + 0.04)),
+                               ratio_text=f"{round(100 * f_sec)}:{100 - round(100 * f_sec)}",
+                               selectivity="moderately regioselective", major=0, method="test",
+                               uncertainty_method="test")
+
+    mixed = reconcile(r, est(0.7, 0.26)).verdict
+    assert mixed.kind == "mixture" and mixed.components == ("CCC(C)Br", "CCCCBr")
+    assert mixed.fractions == pytest.approx((0.7, 0.3))
+    assert "mixture of" in mixed.text and "about 70%" in mixed.text
+    # the minor's interval reaches 0: not claimed, not denied
+    unsure = reconcile(r, est(0.97, 0.0)).verdict
+    assert unsure.kind == "undecided" and "CCCCBr" in unsure.components
+    # a ratio with only one component present leaves a pure verdict alone
+    alone = reconcile(r, est(0.995, 0.0)).verdict
+    assert alone == r.verdict
+    # ... and turns a mixture verdict into "undecided"
+    as_mix = dc_replace(r, verdict=dc_replace(r.verdict, kind="mixture", components=("CCC(C)Br", "CCCCBr"),
+                                              fractions=(0.5, 0.5)))
+    assert reconcile(as_mix, est(0.995, 0.0)).verdict.kind == "undecided"

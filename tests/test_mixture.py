@@ -23,7 +23,7 @@ from specmatch.identification.mixture import (
     ratio_text,
     selectivity_words,
 )
-from specmatch.identification.mixture.synth import experimental_groups, synthetic_spectrum
+from mixture_synth import experimental_groups, synthetic_spectrum
 from specmatch.prediction.model import Prediction
 from specmatch.reports.mixture_text import mixture_text
 from specmatch.spectra.model import Multiplet, Peak, PeakList, Spectrum

@@ -30,10 +30,10 @@ def register(sub: argparse._SubParsersAction) -> None:
 
     p = sub.add_parser(
         "rank", help="rank candidate structures against observed shifts (batch)",
-        description="Rank the candidates of every task of a JSON-lines file against its observed "
-                    "13C/1H/DEPT-135 data; write one JSON line per task. Exit status 0 when every "
-                    "task was ranked, 1 when any task failed (every line is still written), 2 on "
-                    "bad arguments or unreadable files.",
+        description="Rank the candidates of every task of a JSON-lines file against its observed\n"
+                    "13C/1H/DEPT-135 data and write one JSON line per task. Exit status: 0 when\n"
+                    "every task was ranked, 1 when any task failed (every line is still written,\n"
+                    "a one-line summary goes to stderr), 2 on bad arguments or unreadable files.",
         epilog=FORMATS, formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("--batch", metavar="TASKS.jsonl", help="the task file (format below)")
     p.add_argument("--out", metavar="RESULTS.jsonl", help="where to write the result lines")

@@ -51,6 +51,10 @@ TRIPLE_RATIOS: tuple[tuple[int, int, int], ...] = tuple(
     sorted({p for p in itertools.product((1, 2, 4), repeat=3) if math.gcd(*p) == 1}))
 FRACTION_GRID = {2: PAIR_RATIOS, 3: TRIPLE_RATIOS}
 
+#: a mixture accounts for the whole sample: its integrals are scaled to its own protons
+#: only (a pure candidate may also account for part of them, scoring.H1_SHARES)
+UNION_SHARES = (1.0,)
+
 #: only the best pure candidates (by tempered score) enter mixtures: a component
 #: that explains no observed line on its own is not worth a mixture hypothesis
 MAX_MIXTURE_MEMBERS = 8
@@ -107,7 +111,7 @@ def _mixture_score(parts: Sequence[PreparedCandidate], oc: ObservedC13, oh: Obse
     if not (quant_c or quant_h):
         u = union_candidate(parts, (1,) * len(parts))
         lc = score_c13(u, oc, model.c13) if oc.n else 0.0
-        lh = score_h1(u, oh, model.h1) if oh.n else 0.0
+        lh = score_h1(u, oh, model.h1, UNION_SHARES) if oh.n else 0.0
         return lc / model.c13.temperature + lh / model.h1.temperature, \
             tuple(1.0 / len(parts) for _ in parts), False
     vals = []
@@ -117,7 +121,7 @@ def _mixture_score(parts: Sequence[PreparedCandidate], oc: ObservedC13, oh: Obse
     for ratio in grid:
         u = union_candidate(parts, ratio)
         lc = lc_flat if lc_flat is not None else (score_c13(u, oc, model.c13) if oc.n else 0.0)
-        lh = score_h1(u, oh, model.h1) if oh.n else 0.0
+        lh = score_h1(u, oh, model.h1, UNION_SHARES) if oh.n else 0.0
         vals.append(lc / model.c13.temperature + lh / model.h1.temperature)
     v = np.asarray(vals)
     best = grid[int(np.argmax(v))]

@@ -174,7 +174,12 @@ def reconcile(ranking: Ranking, mix: MixtureEstimate) -> Ranking:
     """
     from .ranking import reconciled_verdict
 
-    return replace(ranking, verdict=reconciled_verdict(ranking, mix, PRESENT_FRACTION))
+    v = reconciled_verdict(ranking, mix, PRESENT_FRACTION)
+    # the hypothesis the verdict names carries the measured fractions too
+    hyps = tuple(replace(h, components=v.components, fractions=v.fractions, quantified=True)
+                 if v.kind == "mixture" and set(h.components) == set(v.components) else h
+                 for h in ranking.hypotheses)
+    return replace(ranking, verdict=v, hypotheses=hyps)
 
 
 def _candidate_smiles(text: str) -> str:

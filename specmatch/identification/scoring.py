@@ -482,6 +482,19 @@ def _mult_compatible(obs: str, pred: str) -> bool:
     return obs.replace(" ", "") == pred.replace(" ", "")
 
 
+#: log-probability that an exchangeable proton shows a resolved multiplet (it
+#: exchanges fast in routine CDCl3 samples and gives a singlet; common practice)
+EXCHANGEABLE_SPLIT_LOGP = -8.0
+
+
+def _resolved_pattern(multiplicity: str, j_hz: tuple[float, ...]) -> bool:
+    """A multiplet with resolved couplings: a J listed, or d/t/q/quint/sept... letters."""
+    m = multiplicity.replace(" ", "")
+    if any(j > 0 for j in j_hz):
+        return True
+    return bool(m) and not (m.startswith("m") or "br" in m or m == "s")
+
+
 def _h1_group_costs(cand: PreparedCandidate, obs: ObservedH1, m: NucleusModel):
     """Per (group, multiplet): scale, z, negative log density plus multiplicity/J terms."""
     s = np.where(cand.h_exch, m.exchangeable_sigma_ppm,
@@ -492,6 +505,11 @@ def _h1_group_costs(cand: PreparedCandidate, obs: ObservedH1, m: NucleusModel):
         extra = np.zeros_like(nll)
         for g in range(cand.h_shift.size):
             if cand.h_exch[g]:
+                # an exchanging OH/NH gives a singlet (broad or sharp): a multiplet with
+                # resolved couplings is a C-H signal, not this group's
+                for k in range(obs.n):
+                    if _resolved_pattern(obs.multiplicity[k], obs.j_hz[k]):
+                        extra[g, k] -= EXCHANGEABLE_SPLIT_LOGP
                 continue
             for k in range(obs.n):
                 if not _mult_compatible(obs.multiplicity[k], cand.h_mult[g]):
@@ -539,23 +557,29 @@ def _h1_slot_assignment(cand: PreparedCandidate, obs: ObservedH1, nll: np.ndarra
 H1_SHARES = (1.0, 0.7, 0.5)
 
 
-def _h1_hypotheses(cand: PreparedCandidate) -> list[int]:
+def _h1_hypotheses(cand: PreparedCandidate, shares: tuple[float, ...] = H1_SHARES) -> list[int]:
     """Candidate proton totals the observed integrals are scaled to (the per-candidate
     integral scale): with and without its OH, times the share hypotheses."""
     n, x = cand.n_protons, cand.n_exchangeable
     base = [n] if x == 0 else [n, n - x]
-    return sorted({int(round(b / f)) for b in base for f in H1_SHARES if b > 0}, reverse=True)
+    return sorted({int(round(b / f)) for b in base for f in shares if b > 0}, reverse=True)
 
 
-def score_h1(cand: PreparedCandidate, obs: ObservedH1, m: NucleusModel) -> float:
-    """Log-likelihood (nats, before temperature) of the observed 1H multiplets."""
+def score_h1(cand: PreparedCandidate, obs: ObservedH1, m: NucleusModel,
+             shares: tuple[float, ...] = H1_SHARES) -> float:
+    """Log-likelihood (nats, before temperature) of the observed 1H multiplets.
+
+    ``shares``: the share of the total integral the candidate may account for (the
+    best is taken); a mixture hypothesis's union candidate accounts for the whole
+    sample and is scored with ``(1.0,)``.
+    """
     if obs.n == 0:
         return 0.0
     if cand.h_shift.size == 0:
         return obs.n * m.impurity_logp
     _, _, nll = _h1_group_costs(cand, obs, m)
     if obs.has_integrals:
-        return max(_h1_slot_assignment(cand, obs, nll, m, t)[0] for t in _h1_hypotheses(cand) if t > 0)
+        return max(_h1_slot_assignment(cand, obs, nll, m, t)[0] for t in _h1_hypotheses(cand, shares) if t > 0)
     miss = np.where(cand.h_exch, -m.exchangeable_missing_logp, -m.missing_logp)
     return _line_assignment(nll, miss, m)[0]
 

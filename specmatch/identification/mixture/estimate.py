@@ -60,6 +60,8 @@ from ...errors import SpecmatchError
 from ...prediction.multiplicity import partners_of
 
 if TYPE_CHECKING:  # the fit module is heavy; only its type is needed here
+    from ...prediction.model import ProtonGroup
+    from ...structures import Structure
     from .spectrum_fit import SpectrumFit
 
 #: (minimum major fraction, word), checked in order; common practice
@@ -307,6 +309,47 @@ def _selectivity_note(lo: float, hi: float) -> str:
             f"wording: from '{lo_w}' to '{hi_w}'")
 
 
+# ------------------------------------------------------------ fallback couplings
+#: typical vicinal 3J(H,H) in freely rotating alkyl chains, Hz (common practice)
+VICINAL_J_HZ = 7.0
+
+
+def first_order_couplings(structure: "Structure", atoms: Sequence[int],
+                          j_hz: float = VICINAL_J_HZ) -> tuple[tuple[int, float], ...]:
+    """Vicinal coupling partners of the protons on ``atoms[0]``.
+
+    Partners are the H on neighbouring carbons, one partner set per class of
+    equivalent neighbours; H on O (fast exchange) and on equivalent neighbours
+    (no visible splitting) do not count.
+    """
+    mol = structure.mol
+    a = mol.GetAtomWithIdx(int(atoms[0]))
+    if a.GetSymbol() != "C":
+        return ()
+    own = structure.symmetry_classes[a.GetIdx()]
+    per_class: dict[int, int] = {}
+    for nb in a.GetNeighbors():
+        if nb.GetSymbol() != "C" or nb.GetTotalNumHs() == 0:
+            continue
+        cls = structure.symmetry_classes[nb.GetIdx()]
+        if cls == own:
+            continue
+        per_class[cls] = per_class.get(cls, 0) + nb.GetTotalNumHs()
+    return tuple((n, float(j_hz)) for _, n in sorted(per_class.items()))
+
+
+def with_couplings(structure: "Structure", groups: Sequence["ProtonGroup"]) -> tuple["ProtonGroup", ...]:
+    """Fill in first-order couplings for groups that should split but carry none."""
+    from dataclasses import replace
+
+    out = []
+    for g in groups:
+        if not g.couplings and not g.exchangeable and g.multiplicity not in ("s", "br s"):
+            g = replace(g, couplings=first_order_couplings(structure, g.atoms))
+        out.append(g)
+    return tuple(out)
+
+
 # ---------------------------------------------------------------------- internals
 @dataclass
 class _Candidate:
@@ -344,7 +387,6 @@ def _prepare_candidates(candidates: Sequence[str], names: Sequence[str] | None,
                         predictions: Sequence | None = None) -> list[_Candidate]:
     from ...prediction import predict
     from ...structures import parse_structure
-    from .synth import with_couplings
 
     cands = [str(c).strip() for c in candidates]
     if len(cands) < 2:
@@ -620,7 +662,7 @@ def _observed_integral_ratio(cands: Sequence[_Candidate], fit, peaklist, f_mhz: 
 
 def _finish(cands, weights, wcov, regions, *, method, uncertainty_method, warnings, source,
             fitted, group_keys, details, undetected: dict[int, float] | None = None,
-            observed: IntegralRatio | None = None) -> MixtureEstimate:
+            observed: IntegralRatio | None = None, extra_sd: np.ndarray | None = None) -> MixtureEstimate:
     from .spectrum_fit import PURITY_MIN, _fraction_sd
 
     w = np.asarray(weights, float)
@@ -631,6 +673,8 @@ def _finish(cands, weights, wcov, regions, *, method, uncertainty_method, warnin
             "spectrum is a 1H spectrum of this reaction and that the candidate list is right")
     f = w / tot
     sd = np.sqrt(_fraction_sd(w, wcov) ** 2 + MODEL_SD_FLOOR**2)
+    if extra_sd is not None:
+        sd = np.sqrt(sd**2 + np.asarray(extra_sd, float) ** 2)
     # a candidate the fit did not need: what it had before the detection test is how
     # much the spectrum cannot exclude; its 95% interval reaches that far
     for k, before in (undetected or {}).items():
@@ -890,8 +934,17 @@ def _from_peaklist(cands, peaklist, warnings, src) -> MixtureEstimate:
            f"scaled by the reduced chi-square when above 1, plus {100 * MODEL_SD_FLOOR:.1f} percentage points in "
            "quadrature; 95% interval = fraction +- 1.96 sd")
     details = {"chi2_red": fit.chi2_red, "oh_multiplet": -1 if fit.oh_multiplet is None else fit.oh_multiplet}
-    return _finish(cands, fit.weights, fit.weights_cov, regions, method=method, uncertainty_method=unc,
-                   warnings=warnings, source=src, fitted={}, group_keys=group_keys, details=details)
+    weights = fit.weights
+    extra_sd = None
+    if fit.averaged_fractions is not None:
+        # assignments the integrals cannot tell apart share the estimate; their spread
+        # is added to the sd (integral_fit.ASSIGNMENT_AVERAGING)
+        weights = fit.averaged_fractions * float(fit.weights.sum())
+        extra_sd = fit.assignment_sd
+        unc += "; averaged over the plausible assignments (weights exp(-chi2/2)), their spread added in quadrature"
+    return _finish(cands, weights, fit.weights_cov, regions, method=method, uncertainty_method=unc,
+                   warnings=warnings, source=src, fitted={}, group_keys=group_keys, details=details,
+                   extra_sd=extra_sd)
 
 
 def mixture_from_files(h1_path: str | Path, candidates_path: str | Path, *, solvent: str | None = None

@@ -1,4 +1,5 @@
-"""Synthetic crude 1H spectra of isomer mixtures, for tests and benchmarks.
+"""Synthetic crude 1H spectra of isomer mixtures, for the tests and the benchmarks (not
+production code: benchmarks import it from here).
 
 A mixture spectrum is built from *experimental* 1H shifts (one per set of
 equivalent protons, assigned to the structure's atoms), first-order multiplets
@@ -8,9 +9,6 @@ CDCl3 sample: CHCl3 at 7.26, water at 1.56, TMS at 0.00 ppm (residual-solvent
 values as tabulated by Fulmer et al., Organometallics 2010, 29, 2176; from
 memory). OH protons of all components exchange and give one broad line at their
 amount-weighted mean shift.
-
-Also :func:`first_order_couplings`, the fallback coupling partners used when a
-prediction carries none.
 """
 
 from __future__ import annotations
@@ -19,48 +17,12 @@ from collections.abc import Mapping, Sequence
 
 import numpy as np
 
-from ...prediction.model import ProtonGroup
-from ...spectra.model import Spectrum
-from ...structures import Structure, parse_structure
+from specmatch.identification.mixture.estimate import VICINAL_J_HZ, first_order_couplings
+from specmatch.prediction.model import ProtonGroup
+from specmatch.spectra.model import Spectrum
+from specmatch.structures import parse_structure
 
-#: typical vicinal 3J(H,H) in freely rotating alkyl chains, Hz (common practice)
-VICINAL_J_HZ = 7.0
-
-
-def first_order_couplings(structure: Structure, atoms: Sequence[int],
-                          j_hz: float = VICINAL_J_HZ) -> tuple[tuple[int, float], ...]:
-    """Vicinal coupling partners of the protons on ``atoms[0]``.
-
-    Partners are the H on neighbouring carbons, one partner set per class of
-    equivalent neighbours; H on O (fast exchange) and on equivalent neighbours
-    (no visible splitting) do not count.
-    """
-    mol = structure.mol
-    a = mol.GetAtomWithIdx(int(atoms[0]))
-    if a.GetSymbol() != "C":
-        return ()
-    own = structure.symmetry_classes[a.GetIdx()]
-    per_class: dict[int, int] = {}
-    for nb in a.GetNeighbors():
-        if nb.GetSymbol() != "C" or nb.GetTotalNumHs() == 0:
-            continue
-        cls = structure.symmetry_classes[nb.GetIdx()]
-        if cls == own:
-            continue
-        per_class[cls] = per_class.get(cls, 0) + nb.GetTotalNumHs()
-    return tuple((n, float(j_hz)) for _, n in sorted(per_class.items()))
-
-
-def with_couplings(structure: Structure, groups: Sequence[ProtonGroup]) -> tuple[ProtonGroup, ...]:
-    """Fill in first-order couplings for groups that should split but carry none."""
-    from dataclasses import replace
-
-    out = []
-    for g in groups:
-        if not g.couplings and not g.exchangeable and g.multiplicity not in ("s", "br s"):
-            g = replace(g, couplings=first_order_couplings(structure, g.atoms))
-        out.append(g)
-    return tuple(out)
+__all__ = ["experimental_groups", "synthetic_spectrum"]
 
 
 def experimental_groups(entry: Mapping, *, rng: np.random.Generator | None = None,
@@ -137,7 +99,7 @@ def synthetic_spectrum(
     snr : float
         Height of the tallest compound line over the noise sd.
     """
-    from ...prediction.simulate import sticks_1h
+    from specmatch.prediction.simulate import sticks_1h
 
     rng = rng or np.random.default_rng(0)
     x = np.linspace(11.0, -0.5, n_points)
@@ -168,4 +130,4 @@ def synthetic_spectrum(
         y += top * (0.002 + 0.001 * t - 0.0015 * t * t)
     y += rng.normal(0.0, top / snr, size=x.shape)
     return Spectrum(nucleus="1H", ppm=x, intensity=y, frequency_mhz=frequency_mhz, solvent="CDCl3",
-                    source="synthetic mixture (specmatch.identification.mixture.synth)")
+                    source="synthetic mixture (tests/mixture_synth.py)")

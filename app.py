@@ -37,7 +37,7 @@ from specmatch.reports.journal_text import measured_peak_text
 from specmatch.reports.summary import fit_words, names_for_result, summarise
 from specmatch.spectra import peaks_from_file, process_spectrum, read_spectrum
 from specmatch.spectra.solvents import SOLVENTS
-from specmatch.store import open_store, resolve_store_url, save_result
+from specmatch.store import Viewer, open_store, resolve_store_url, save_result
 from specmatch.structures import parse_structure
 
 #: Largest file the app accepts (the server limit in .streamlit/config.toml is the same).
@@ -1163,13 +1163,48 @@ def _store():
     return _store_at(resolve_store_url())
 
 
+def _signed_in() -> Viewer | None:
+    """The analyst signed in through Streamlit's OpenID Connect login, or None.
+
+    The store names them by their sign-in (e-mail, else name or subject) and shows them
+    their own analyses and those of the groups their identity provider lists.
+    """
+    if not st.user.get("is_logged_in"):
+        return None
+    name = st.user.get("email") or st.user.get("name") or st.user.get("sub")
+    groups = st.user.get("groups") or ()
+    if isinstance(groups, str):
+        groups = [groups]
+    return Viewer(str(name), tuple(str(g) for g in groups))
+
+
+def _sign_in_required() -> bool:
+    """Sign-in is configured (an [auth] section in the secrets) and nobody is signed in."""
+    try:
+        configured = "auth" in st.secrets
+    except FileNotFoundError:  # no secrets file: a local, single-user app
+        configured = False
+    if configured and not st.user.get("is_logged_in"):
+        st.info("Sign in to save analyses and to see your own and your group's.")
+        st.button("Sign in", on_click=st.login, key="sign_in_btn")
+        return True
+    return False
+
+
 def save_panel(result: Any) -> None:
     st.markdown("**Keep this analysis**")
+    if _sign_in_required():
+        return
+    viewer = _signed_in()
     c1, c2, c3 = st.columns([2, 2, 1])
     with c1:
         sample = st.text_input("sample id", key="save_sample")
     with c2:
-        who = st.text_input("your name", key="save_user")
+        if viewer:
+            st.caption(f"saved as {viewer.name}")
+            who = viewer.name
+        else:
+            who = st.text_input("your name", key="save_user")
     with c3:
         st.write("")
         clicked = st.button("Save", key="save_btn")
@@ -1177,7 +1212,8 @@ def save_panel(result: Any) -> None:
         try:
             files = {f["name"]: f["data"] for f in st.session_state["files"].values()}
             st.session_state["saved_id"] = save_result(_store(), result, files, sample_id=sample or None,
-                                                       user=who or None)
+                                                       user=who or None,
+                                                       groups=viewer.groups if viewer else None)
         except SpecmatchError as exc:
             st.error(str(exc))
     if st.session_state.get("saved_id"):
@@ -1186,6 +1222,10 @@ def save_panel(result: Any) -> None:
 
 def saved_view() -> None:
     import pandas as pd
+
+    if _sign_in_required():
+        return
+    viewer = _signed_in()
 
     c1, c2, c3, c4 = st.columns(4)
     with c1:
@@ -1199,7 +1239,7 @@ def saved_view() -> None:
     try:
         store = _store()
         found = store.search(substrate=q_sub or None, reagent=q_rea or None, verdict=q_ver or None,
-                             sample_id=q_sam or None, limit=200)
+                             sample_id=q_sam or None, limit=200, viewer=viewer)
     except SpecmatchError as exc:
         st.error(str(exc))
         return
@@ -1217,7 +1257,7 @@ def saved_view() -> None:
                           max_selections=2, key="compare_pick")
     if len(pick) == 2:
         try:
-            cmp = store.compare(pick[0], pick[1])
+            cmp = store.compare(pick[0], pick[1], viewer=viewer)
         except SpecmatchError as exc:
             st.error(str(exc))
             return

@@ -96,8 +96,9 @@ def test_insert_or_replace_is_refused_and_reported_if_forced(sqlite_url, capsys)
     assert main(["history", "list", "--store", sqlite_url]) == 0
     listed = capsys.readouterr()
     assert aid[:12] + "!" in listed.out and "guard trigger" in listed.err
-    exported = json.loads(open_store(sqlite_url).export_json(aid))
-    assert exported["integrity"].startswith("BROKEN")
+    with open_store(sqlite_url, read_only=True) as st:
+        assert json.loads(st.export_json(aid))["integrity"].startswith("BROKEN")
+        assert "Audit check failed" in st.export_html(aid)
 
 
 def test_replace_into_analysis_files_is_refused_and_reported_if_forced(sqlite_url, capsys):

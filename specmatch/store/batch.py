@@ -229,7 +229,7 @@ def read_manifest(path: str | os.PathLike) -> list[Sample]:
     """
     path = Path(path)
     raw = _read_guarded(path, MAX_MANIFEST_BYTES, label=f"the manifest '{path}'",
-                        what="a manifest")
+                        what="the manifest file (CSV)")
     try:
         text = raw.decode("utf-8-sig")  # spreadsheet exports add a BOM
     except UnicodeDecodeError:
@@ -253,7 +253,7 @@ def read_manifest(path: str | os.PathLike) -> list[Sample]:
     return samples
 
 
-def _read_guarded(path: Path, limit: int, *, label: str, what: str) -> bytes:
+def _read_guarded(path: Path, limit: int, *, label: str, what: str, hint: str = "") -> bytes:
     """Read a regular file of at most ``limit`` bytes; anything else is a clear error.
 
     Opened without blocking and checked on the open descriptor, so a FIFO, a device
@@ -265,18 +265,18 @@ def _read_guarded(path: Path, limit: int, *, label: str, what: str) -> bytes:
     except FileNotFoundError:
         raise SpecmatchError(f"cannot read {label}: no such file") from None
     except IsADirectoryError:
-        raise SpecmatchError(f"{label} is a folder; give {what} file") from None
+        raise SpecmatchError(f"{label} is a folder; give {what}{hint}") from None
     except OSError as exc:
         raise SpecmatchError(f"cannot read {label}: {exc.strerror}") from None
     try:
         info = os.fstat(fd)
         if stat.S_ISDIR(info.st_mode):
-            raise SpecmatchError(f"{label} is a folder; give {what} file")
+            raise SpecmatchError(f"{label} is a folder; give {what}{hint}")
         if not stat.S_ISREG(info.st_mode):
             kind = ("a device" if stat.S_ISCHR(info.st_mode) or stat.S_ISBLK(info.st_mode)
                     else "a pipe" if stat.S_ISFIFO(info.st_mode)
                     else "a socket" if stat.S_ISSOCK(info.st_mode) else "not a regular file")
-            raise SpecmatchError(f"{label} is {kind}, not a file; give {what} file")
+            raise SpecmatchError(f"{label} is {kind}, not a file; give {what}{hint}")
         if info.st_size > limit:
             raise SpecmatchError(f"{label} is {info.st_size / 1e6:.1f} MB, more than the "
                                  f"{limit / 1e6:.0f} MB allowed for {what}; check the path")
@@ -303,7 +303,8 @@ def read_named_file(base: Path, rel: str) -> bytes:
     if not p.exists() and not p.is_symlink():
         raise SpecmatchError(f"'{rel}' not found (paths are relative to the manifest, "
                              f"here {base})")
-    return _read_guarded(p, MAX_FILE_BYTES, label=f"'{rel}'", what="a spectrum (zip a data folder)")
+    return _read_guarded(p, MAX_FILE_BYTES, label=f"'{rel}'", what="a spectrum file",
+                         hint=" (zip an instrument data folder)")
 
 
 # ----------------------------------------------------------------------- the batch

@@ -31,8 +31,6 @@ def _json_default(obj: Any) -> Any:
         return sorted(obj) if isinstance(obj, (set, frozenset)) else list(obj)
     if hasattr(obj, "__fspath__"):
         return str(obj)
-    if hasattr(obj, "to_dict"):
-        return obj.to_dict()
     raise TypeError(f"{type(obj).__name__} is not JSON-serialisable")
 
 

@@ -1071,6 +1071,10 @@ class Store:
             if isinstance(vb, _dt.datetime):
                 vb = vb.isoformat()
             fields.append({"field": name, "a": va, "b": vb, "same": va == vb})
+        audit_a = "ok" if not a.problems else "BROKEN: " + "; ".join(a.problems)
+        audit_b = "ok" if not b.problems else "BROKEN: " + "; ".join(b.problems)
+        fields.append({"field": "audit check", "a": audit_a, "b": audit_b,
+                       "same": audit_a == audit_b})
         inputs_a = a.data.get("inputs") if isinstance(a.data.get("inputs"), dict) else {}
         inputs_b = b.data.get("inputs") if isinstance(b.data.get("inputs"), dict) else {}
         for key in sorted(set(inputs_a) | set(inputs_b)):
@@ -1247,4 +1251,4 @@ def _read_input(path: Path) -> bytes:
     from .batch import MAX_FILE_BYTES, _read_guarded
 
     return _read_guarded(path, MAX_FILE_BYTES, label=f"'{path}' (to save it with the analysis)",
-                         what="a spectrum")
+                         what="a spectrum file")

@@ -47,6 +47,8 @@ from scipy import optimize, stats
 ROOT = Path(__file__).resolve().parents[1]
 SHARED = ROOT.parent / "shared"
 sys.path.insert(0, str(ROOT))
+# the environment-code correction was fitted on these records: correct each out of its fold
+os.environ.setdefault("SPECMATCH_CROSS_VALIDATED", "1")
 
 from specmatch.errors import SpecmatchError  # noqa: E402
 from specmatch.identification.errormodel import ErrorModel, load_error_model, tables_digest  # noqa: E402

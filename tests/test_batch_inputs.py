@@ -168,7 +168,7 @@ def test_predict_and_rank_batches_run_on_the_executor(tmp_path, monkeypatch):
     for workers in ("0", "2"):
         monkeypatch.setenv("SPECMATCH_WORKERS", workers)
         out = tmp_path / f"out{workers}.jsonl"
-        assert main(["predict", "--batch", str(src), "--out", str(out)]) == 0
+        assert main(["predict", "--batch", str(src), "--out", str(out)]) == 1  # the bad line fails
         outs.append(out.read_text().splitlines())
     assert outs[0] == outs[1] and len(outs[0]) == 15
     assert '"ok": false' in outs[0][1] and "not a valid SMILES" in outs[0][1]

@@ -14,8 +14,23 @@ def _print_json(obj: Any) -> None:
     sys.stdout.write("\n")
 
 
+class _NoBar:
+    """Stand-in for a disabled progress bar."""
+
+    def __enter__(self) -> "_NoBar":
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        return None
+
+    def update(self, n: int = 1) -> None:
+        return None
+
+
 def _progress(total: int, desc: str):
     """A progress bar on stderr for long batches (silent for short ones or non-TTY)."""
+    if total < 200 or not sys.stderr.isatty():
+        return _NoBar()  # tqdm (and the numpy it pulls in) costs 0.3 s of start-up for nothing
     from tqdm import tqdm
 
     return tqdm(total=total, desc=desc, unit="item", file=sys.stderr,

@@ -4,32 +4,14 @@ from __future__ import annotations
 
 import argparse
 import json
-from typing import Any
+import sys
 
 from ..errors import SpecmatchError
 from ._common import _open_out, _print_json, _progress, _read_lines
 
-
-#: molecules that pay for a worker's start-up (a prediction takes a few milliseconds)
+#: molecules that pay for a worker's start-up (a prediction takes a few milliseconds,
+#: a spawned worker about a second to import RDKit and read the tables)
 PER_WORKER = 200
-
-
-def _predict_row(line: str, geometry: bool = False) -> dict[str, Any]:
-    """One line of a ``--batch`` file as its result row (run by the batch executor).
-
-    ``geometry`` turns on the 3D stereo layer (``--stereo-3d``)."""
-    from ..prediction import predict
-
-    smi = line.strip()
-    if not smi or smi.startswith("#"):
-        return {"smiles": line, "ok": False, "error": "empty line"}
-    smi = smi.split()[0]
-    try:
-        row = predict(smi, geometry=geometry).to_dict()
-        row["smiles"] = smi
-        return row
-    except SpecmatchError as exc:
-        return {"smiles": smi, "ok": False, "error": str(exc)}
 
 
 def cmd_predict(args: argparse.Namespace) -> int:
@@ -37,26 +19,7 @@ def cmd_predict(args: argparse.Namespace) -> int:
     from ..reports.tables_text import prediction_table
 
     if args.batch:
-        from contextlib import closing
-        from functools import partial
-
-        from ..executor import plan_workers, run_tasks
-
-        if not args.out:
-            raise SpecmatchError("--batch needs --out OUT.jsonl")
-        lines = _read_lines(args.batch)
-        # the 3D stereo layer costs 0.1-1 s per molecule with a relative configuration: opt-in here
-        task = partial(_predict_row, geometry=True) if args.stereo_3d else _predict_row
-        plan = plan_workers(len(lines), per_worker=PER_WORKER)
-        with _open_out(args.out) as out, _progress(len(lines), "predict") as bar, \
-                closing(run_tasks(task, lines, plan, ordered=True, chunk=16)) as outcomes:
-            for group in outcomes:
-                for o in group:
-                    row = o.value if o.ok else {"smiles": lines[o.index], "ok": False,
-                                                "error": o.error}
-                    out.write(json.dumps(row) + "\n")
-                    bar.update()
-        return 0
+        return _batch(args)
     if not args.smiles:
         raise SpecmatchError("give a SMILES, or --batch FILE --out OUT.jsonl")
     pred = predict(args.smiles)
@@ -67,6 +30,44 @@ def cmd_predict(args: argparse.Namespace) -> int:
     return 0
 
 
+def _batch(args: argparse.Namespace) -> int:
+    """Every line gets its row (in order, on the shared executor); a one-line summary on
+    stderr; exit 1 if any molecule failed."""
+    from contextlib import closing
+    from functools import partial
+
+    from ..executor import plan_workers, run_tasks
+    from ..prediction.batch import predict_row
+
+    if not args.out:
+        raise SpecmatchError("--batch needs --out OUT.jsonl")
+    lines = _read_lines(args.batch)
+    # the 3D stereo layer costs 0.1-1 s per molecule with a relative configuration: opt-in here
+    task = partial(predict_row, geometry=True) if args.stereo_3d else predict_row
+    plan = plan_workers(len(lines), args.workers, per_worker=PER_WORKER)
+    n_ok = n_failed = n_skipped = 0
+    first_error = ""
+    with _open_out(args.out) as out, _progress(len(lines), "predict") as bar, \
+            closing(run_tasks(task, lines, plan, ordered=True, chunk=64)) as outcomes:
+        for group in outcomes:
+            for o in group:
+                row = o.value if o.ok else {"smiles": lines[o.index], "ok": False, "error": o.error}
+                out.write(json.dumps(row) + "\n")
+                if row["ok"]:
+                    n_ok += 1
+                elif row.get("skipped"):
+                    n_skipped += 1
+                else:
+                    n_failed += 1
+                    first_error = first_error or f"line {o.index + 1}: {row['error']}"
+                bar.update()
+    summary = f"predict: {n_ok} predicted, {n_failed} failed, {n_skipped} blank/comment lines -> {args.out}"
+    if first_error:
+        summary += f" (first failure, {first_error})"
+    print(summary, file=sys.stderr)
+    return 1 if n_failed else 0
+
+
 def register(sub: argparse._SubParsersAction) -> None:
     """Add this module's subcommands to the ``specmatch`` parser."""
     p = sub.add_parser("predict", help="predict 1H and 13C spectra of a structure")
@@ -74,6 +75,9 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--json", action="store_true", help="print JSON")
     p.add_argument("--batch", metavar="FILE", help="one SMILES per line")
     p.add_argument("--out", metavar="OUT.jsonl", help="with --batch: where to write results")
+    p.add_argument("--workers", type=int, default=None, metavar="N",
+                   help="with --batch: 0 = this process, N = N worker processes "
+                        "(default: $SPECMATCH_WORKERS, else automatic for large batches)")
     p.add_argument("--stereo-3d", action="store_true",
                    help="with --batch: also run the 3D conformer layer for molecules with a relative "
                         "configuration (cis/trans, meso/dl); slower (single predictions always use it)")

@@ -29,10 +29,12 @@ def predict_structure(structure: Structure, *, geometry: bool = True) -> Predict
     """
     from .c13.predictor import TABLES_VERSION as C_VERSION, predict_carbons
     from .h1.predictor import TABLES_VERSION as H_VERSION, predict_protons
+    from .hose import MolCodes
     from .stereo import apply_stereo_layer, needs_stereo_layer
 
-    carbons, c_warn = predict_carbons(structure)
-    protons, h_warn = predict_protons(structure)
+    codes = MolCodes(structure.mol)  # one code builder for both nuclei
+    carbons, c_warn = predict_carbons(structure, codes=codes)
+    protons, h_warn = predict_protons(structure, codes=codes)
     prediction = Prediction(
         smiles=structure.smiles,
         canonical_smiles=structure.canonical_smiles,

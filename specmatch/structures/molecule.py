@@ -139,19 +139,109 @@ def _check_size(mol: Chem.Mol, what: str, max_heavy_atoms: int) -> None:
             f"{what} has {len(Chem.GetMolFrags(mol))} disconnected parts; give one molecule "
             "(drop counter-ions and solvent)"
         )
-    odd = sorted({a.GetSymbol() for a in mol.GetAtoms()} - _ALLOWED)
+    odd = sorted({mol.GetAtomWithIdx(i).GetSymbol() for i in range(mol.GetNumAtoms())} - _ALLOWED)
     if odd:
         raise SpecmatchError(f"{what} contains {', '.join(odd)}, which specmatch does not handle")
+
+
+#: RDKit atom property holding the number of deuterium atoms a heavy atom carried in the input
+DEUTERIUM_PROP = "specmatch_deuterium"
+
+
+def _check_species(mol: Chem.Mol, what: str) -> None:
+    """Refuse radicals and charged species: the tables describe closed-shell neutral molecules.
+
+    Charge-separated neutral groups on N, O, S, P (nitro, N-oxides, sulfoxides written
+    S+-O-) are accepted; a charged carbon, a net charge or an unpaired electron is not,
+    because predicting it as the parent molecule would be silently wrong.
+    """
+    radicals = [a for a in mol.GetAtoms() if a.GetNumRadicalElectrons()]
+    if radicals:
+        a = radicals[0]
+        raise SpecmatchError(
+            f"{what} is a radical (unpaired electron on {a.GetSymbol()} atom {a.GetIdx() + 1}); "
+            "specmatch predicts closed-shell molecules: write every atom's hydrogens "
+            "(e.g. C for methane, not [CH3])")
+    net = sum(a.GetFormalCharge() for a in mol.GetAtoms())
+    charged_c = [a for a in mol.GetAtoms() if a.GetFormalCharge() and a.GetAtomicNum() == 6]
+    if net or charged_c:
+        where = charged_c[0] if charged_c else next(a for a in mol.GetAtoms() if a.GetFormalCharge())
+        kind = "a carbocation" if where.GetAtomicNum() == 6 and where.GetFormalCharge() > 0 else \
+            "a carbanion" if where.GetAtomicNum() == 6 else "an ion"
+        raise SpecmatchError(
+            f"{what} is {kind} (charge {where.GetFormalCharge():+d} on {where.GetSymbol()} atom "
+            f"{where.GetIdx() + 1}, net charge {net:+d}); the tables describe neutral molecules: "
+            "give the neutral product (e.g. the alcohol or halide formed from a cation)")
+
+
+def _fold_deuterium(mol: Chem.Mol, what: str) -> Chem.Mol:
+    """Remove D atoms, counting them on their heavy atom (``DEUTERIUM_PROP``).
+
+    The carbon keeps its hydrogen count (a C-D is a C-H for the 13C increments); the
+    1H predictor leaves D out of integrals and multiplets. Partial labelling that
+    makes topologically equivalent atoms different (CH2D next to CH3) is refused:
+    symmetry is perceived on the unlabelled skeleton.
+    """
+    counts: dict[int, int] = {}
+    for a in mol.GetAtoms():
+        if a.GetAtomicNum() == 1:
+            if a.GetIsotope() not in (0, 1, 2):
+                raise SpecmatchError(f"{what} contains tritium or another hydrogen isotope ({a.GetIsotope()}H); "
+                                     "only D ([2H]) is handled")
+            if a.GetIsotope() == 2:
+                nbs = a.GetNeighbors()
+                if len(nbs) != 1:
+                    raise SpecmatchError(f"{what} has a D atom that is not bonded to exactly one heavy atom")
+                counts[nbs[0].GetIdx()] = counts.get(nbs[0].GetIdx(), 0) + 1
+        elif a.GetIsotope():
+            raise SpecmatchError(f"{what} gives a mass number for {a.GetSymbol()} atom {a.GetIdx() + 1} "
+                                 f"({a.GetIsotope()}{a.GetSymbol()}); isotope labels other than D are not handled: "
+                                 "drop the mass number")
+    if not counts:
+        return mol
+    # index of each heavy atom after the H atoms are removed (RemoveHs keeps heavy-atom order)
+    heavy = [a.GetIdx() for a in mol.GetAtoms() if a.GetAtomicNum() != 1]
+    new_index = {old: k for k, old in enumerate(heavy)}
+    params = Chem.RemoveHsParameters()
+    params.removeIsotopes = True
+    out = Chem.RemoveHs(mol, params)
+    for old, n in counts.items():
+        out.GetAtomWithIdx(new_index[old]).SetIntProp(DEUTERIUM_PROP, n)
+    out.SetIntProp(DEUTERIUM_PROP, sum(counts.values()))
+    ranks = list(Chem.CanonicalRankAtoms(out, breakTies=False, includeChirality=False))
+    seen: dict[int, int] = {}
+    for a in out.GetAtoms():
+        n = a.GetIntProp(DEUTERIUM_PROP) if a.HasProp(DEUTERIUM_PROP) else 0
+        r = ranks[a.GetIdx()]
+        if seen.setdefault(r, n) != n:
+            raise SpecmatchError(
+                f"{what}: the D label makes atoms different that are equivalent in the unlabelled "
+                "molecule; specmatch handles D only where it keeps the symmetry (e.g. CD3 groups, "
+                "all equivalent positions labelled); predict the unlabelled molecule instead")
+    return out
+
+
+def deuterium_counts(mol: Chem.Mol) -> tuple[int, ...]:
+    """Per heavy atom, the number of its hydrogens that are D (see :func:`mol_from_text`);
+    ``()`` for a molecule without D."""
+    if not mol.HasProp(DEUTERIUM_PROP):
+        return ()
+    return tuple(a.GetIntProp(DEUTERIUM_PROP) if a.HasProp(DEUTERIUM_PROP) else 0 for a in mol.GetAtoms())
 
 
 def mol_from_text(text: str, *, max_heavy_atoms: int = MAX_HEAVY_ATOMS) -> Chem.Mol:
     """Parse SMILES or a molfile (V2000/V3000 block) into a sanitised RDKit molecule.
 
+    D atoms ([2H]) are removed and counted on their heavy atom (see
+    :func:`deuterium_counts`); other isotope labels, radicals and charged species
+    are refused with the reason.
+
     Raises
     ------
     SpecmatchError
         With a message that says what is wrong: empty input, bad syntax, a valence
-        error, several fragments, a molecule too large.
+        error, several fragments, a molecule too large, a radical or ion, an
+        isotope label other than D.
     """
     if not isinstance(text, str):
         raise SpecmatchError(f"expected a SMILES string or molfile text, got {type(text).__name__}")
@@ -174,11 +264,18 @@ def mol_from_text(text: str, *, max_heavy_atoms: int = MAX_HEAVY_ATOMS) -> Chem.
         mol = Chem.MolFromSmiles(stripped)
         if mol is None:
             raise SpecmatchError(f"{what} is not a valid SMILES ({_smiles_problem(stripped)})")
-    numbers = {a.GetAtomicNum() for a in mol.GetAtoms()}  # one pass over the atoms
-    if 1 in numbers:
-        mol = Chem.RemoveHs(mol)
+    # one pass over the atoms, by index (RDKit's atom sequence wrapper is slow for small molecules)
+    numbers = {mol.GetAtomWithIdx(i).GetAtomicNum() for i in range(mol.GetNumAtoms())}
     if 0 in numbers:
         raise SpecmatchError(f"{what} contains a wildcard atom '*'; give a complete structure")
+    if 1 in numbers:
+        mol = Chem.RemoveHs(mol)  # keeps isotope-labelled H, folded next
+    # isotopes, charges and radicals need a bracket atom in a SMILES: skip the atom
+    # loops for the common plain SMILES
+    if what == "the molfile" or "[" in stripped:
+        if any(mol.GetAtomWithIdx(i).GetIsotope() for i in range(mol.GetNumAtoms())):
+            mol = _fold_deuterium(mol, what)
+        _check_species(mol, what)
     _check_size(mol, what if what != "the molfile" else "the molfile", max_heavy_atoms)
     return mol
 

@@ -13,9 +13,13 @@ The numbers are read once, at import, by :mod:`specmatch.prediction.c13.tables`.
 from __future__ import annotations
 
 import math
+from dataclasses import replace
+
 from rdkit.Chem import BondType
 
 from ...structures import Structure
+from ...structures.molecule import deuterium_counts
+from ..hose import MolCodes, fold_of_mol, load_table, rank_tags
 from ..model import CarbonShift
 from .environment import carbon_environments, is_correction, nearest_term
 from .tables import SIGMA as _SIGMA, SUPPORT as _SUPPORT, TABLES_VERSION, VALUE as _VALUE
@@ -27,6 +31,11 @@ MISSING_TERM_SIGMA_PPM = 8.0
 UNSEEN_CORRECTION_SIGMA_PPM = 2.0
 #: Sigma of a carbon whose class has no table at all (nearest class used), ppm.
 NO_CLASS_SIGMA_PPM = 20.0
+#: One-bond deuterium isotope shift on 13C per D, ppm: upfield, typically 0.2-0.4 ppm
+#: (CDCl3 77.16 vs CHCl3 77.36 ppm; from memory).
+D_ISOTOPE_SHIFT_PPM = -0.3
+#: 1J(13C, 2H), Hz: about 1J(C,H) / 6.5, i.e. 19-23 Hz for sp3 carbons (from memory).
+J_CD_HZ = 20.0
 #: Coverage buckets: a carbon's rarest term seen on >= 100 / >= 10 / fewer carbons.
 WELL_COVERED, THIN = 100, 10
 
@@ -44,6 +53,25 @@ def _class_sigma(kind: str, hydrogens: int, coverage: str) -> float:
     return NO_CLASS_SIGMA_PPM
 
 
+#: term -> (value added, support counted or None, missing main term?, unseen correction?),
+#: filled on first use: the same few thousand names recur in every molecule
+_TERM_INFO: dict[str, tuple[float, int | None, bool, bool]] = {}
+
+
+def _term_info(t: str) -> tuple[float, int | None, bool, bool]:
+    v = _VALUE.get(t)
+    corr = is_correction(t)
+    if v is not None:
+        info = (v, None if corr else _SUPPORT[t], False, False)
+    elif corr:
+        info = (0.0, None, False, True)
+    else:
+        alt = nearest_term(t)
+        info = (_VALUE.get(alt, 0.0) if alt else 0.0, 0, True, False)
+    _TERM_INFO[t] = info
+    return info
+
+
 def shift_of_terms(terms: tuple[str, ...]) -> tuple[float, int, list[str], int]:
     """Sum of the increments.
 
@@ -58,24 +86,17 @@ def shift_of_terms(terms: tuple[str, ...]) -> tuple[float, int, list[str], int]:
     min_support = 1 << 30
     missing = []
     unseen = 0
+    get = _TERM_INFO.get
     for t in terms:
-        v = _VALUE.get(t)
-        if v is None:
-            if is_correction(t):
-                unseen += 1
-                continue
-            alt = nearest_term(t)
-            v = _VALUE.get(alt) if alt else None
+        info = get(t) or _term_info(t)
+        total += info[0]
+        s = info[1]
+        if s is not None and s < min_support:
+            min_support = s
+        if info[2]:
             missing.append(t)
-            min_support = 0
-            if v is not None:
-                total += v
-            continue
-        total += v
-        if not is_correction(t):
-            s = _SUPPORT[t]
-            if s < min_support:
-                min_support = s
+        elif info[3]:
+            unseen += 1
     return total, min_support, missing, unseen
 
 
@@ -102,12 +123,23 @@ def _on_alkene(mol, atom: int) -> bool:
     return False
 
 
-def predict_carbons(structure: Structure) -> tuple[list[CarbonShift], list[str]]:
+def predict_carbons(structure: Structure, *, correction: bool = True, codes: MolCodes | None = None
+                    ) -> tuple[list[CarbonShift], list[str]]:
     """One :class:`CarbonShift` per set of equivalent carbons.
 
     Diastereotopic twin groups (the two methyls of an isopropyl next to a
     stereocentre) come out as two entries, split by a small fitted amount, since
     real spectra usually show two lines.
+
+    Parameters
+    ----------
+    structure : Structure
+    correction : bool
+        Add the environment-code correction (``tables/hose_c13.csv.gz``) to the
+        increment sum; False gives the increments alone (what the correction
+        table is fitted on).
+    codes : MolCodes, optional
+        Code builder of this molecule, if the caller already has one.
 
     Returns
     -------
@@ -136,6 +168,7 @@ def predict_carbons(structure: Structure) -> tuple[list[CarbonShift], list[str]]
             sets.extend(tuple(v) for v in by_terms.values())
         sets.sort()
     out: list[CarbonShift] = []
+    kinds: list[str] = []  # table class of each entry of out
     warnings: list[str] = []
     for atoms in sets:
         env = envs[atoms[0]]
@@ -159,6 +192,44 @@ def predict_carbons(structure: Structure) -> tuple[list[CarbonShift], list[str]]
             for sub, sign in zip(parts, (1.0, -1.0)):
                 out.append(CarbonShift(sub, shift + sign * half, sigma, env.hydrogens,
                                        env.label + ", diastereotopic", fallback))
+                kinds.append(env.kind)
         else:
             out.append(CarbonShift(atoms, shift, sigma, env.hydrogens, env.label, fallback))
+            kinds.append(env.kind)
+    table = load_table("13C") if correction else None
+    if table is not None and out:
+        codes = codes or MolCodes(mol)
+        cls = structure.symmetry_classes
+        fold = fold_of_mol(structure.mol)  # None unless SPECMATCH_CROSS_VALIDATED=1
+        tags = rank_tags([cls[c.atoms[0]] for c in out], [c.shift for c in out])
+        for k, (c, tag) in enumerate(zip(out, tags)):
+            if kinds[k] == "other":
+                continue
+            corr, sigma, depth = table.correct((x + tag for x in codes.iter_codes(c.atoms[0], table.max_radius)),
+                                               c.sigma, fold)
+            if depth:
+                out[k] = CarbonShift(c.atoms, c.shift + corr, sigma, c.hydrogens, c.environment, c.fallback)
+    if any(deuterium_counts(mol)):
+        out = _deuterated(out, deuterium_counts(mol), warnings)
     return out, warnings
+
+
+def _deuterated(carbons: list[CarbonShift], n_d: tuple[int, ...], warnings: list[str]) -> list[CarbonShift]:
+    """C-D carbons: isotope shift, DEPT-visible H count without the D, and a note on the C-D multiplet.
+
+    The increments treat C-D as C-H (the environment is the same); in a
+    1H-decoupled 13C spectrum the carbon is a 2n+1-line multiplet from spin-1 D.
+    """
+    out = []
+    for c in carbons:
+        d = n_d[c.atoms[0]]
+        if not d:
+            out.append(c)
+            continue
+        lines = 2 * d + 1
+        warnings.append(f"13C: atom {c.atoms[0]} carries {d} D: predicted {abs(D_ISOTOPE_SHIFT_PPM) * d:.1f} ppm upfield "
+                        f"of the C-H value, seen as a {lines}-line C-D multiplet (1J(C,D) about {J_CD_HZ:.0f} Hz) "
+                        f"that DEPT does not edit (it counts {c.hydrogens - d} H)")
+        out.append(replace(c, shift=c.shift + D_ISOTOPE_SHIFT_PPM * d, hydrogens=c.hydrogens - d,
+                           environment=c.environment + f", C-D x{d} ({lines}-line C-D multiplet)"))
+    return out

@@ -25,6 +25,7 @@ from dataclasses import dataclass
 from rdkit import Chem
 
 from ...structures import Structure
+from ...structures.molecule import DEUTERIUM_PROP
 
 HALOGENS = {9: "F", 17: "Cl", 35: "Br", 53: "I"}
 _O_TYPES = {"OH", "OR", "OCOR", "OAr", "Ovinyl"}
@@ -84,7 +85,7 @@ class _Graph:
     """Per-molecule arrays read once from RDKit (atom loops in pure Python are cheap,
     repeated RDKit calls are not)."""
 
-    __slots__ = ("mol", "z", "nh", "arom", "nbrs", "cls", "ring", "ri", "n_rings", "_sp3", "_dbl_o", "_types")
+    __slots__ = ("mol", "z", "nh", "nh_total", "arom", "nbrs", "cls", "ring", "ri", "n_rings", "_sp3", "_dbl_o", "_types")
 
     def __init__(self, structure: Structure) -> None:
         mol = structure.mol
@@ -93,7 +94,11 @@ class _Graph:
         # index access: RDKit's sequence wrappers are slow for small molecules
         atoms = [mol.GetAtomWithIdx(i) for i in range(n)]
         self.z = [a.GetAtomicNum() for a in atoms]
-        self.nh = [a.GetTotalNumHs() for a in atoms]
+        # nh: protons seen in 1H (D excluded: no signal, no resolved coupling); nh_total: H + D,
+        # which decides the increment class (a CHD2 group is typed as a methyl)
+        self.nh_total = [a.GetTotalNumHs() for a in atoms]
+        self.nh = self.nh_total if not mol.HasProp(DEUTERIUM_PROP) else [
+            h - (a.GetIntProp(DEUTERIUM_PROP) if a.HasProp(DEUTERIUM_PROP) else 0) for h, a in zip(self.nh_total, atoms)]
         self.arom = [a.GetIsAromatic() for a in atoms]
         self.nbrs: list[list[tuple[int, float]]] = [[] for _ in range(n)]
         for k in range(mol.GetNumBonds()):
@@ -152,12 +157,12 @@ def _substituent_type(g: _Graph, x: int, frm: int) -> str | None:
             if o == 3.0:
                 return "CN" if g.z[y] == 7 else "alkynyl"
         if any(o == 2.0 and g.z[y] == 8 for y, o in rest):
-            if g.nh[x]:
+            if g.nh_total[x]:
                 return "CHO"
             single = [y for y, o in rest if o == 1.0]
             for y in single:
                 if g.z[y] == 8:
-                    return "COOH" if g.nh[y] else "COOR"
+                    return "COOH" if g.nh_total[y] else "COOR"
             if any(g.z[y] in HALOGENS for y in single):
                 return "COX"
             if any(g.z[y] == 7 for y in single):
@@ -169,7 +174,7 @@ def _substituent_type(g: _Graph, x: int, frm: int) -> str | None:
         return "alkyl"
     if z == 8:
         others = [y for y, _ in g.nbrs[x] if y != frm]
-        if g.nh[x] or not others:
+        if g.nh_total[x] or not others:
             return "OH"
         y = others[0]
         if g.z[y] == 6:
@@ -245,7 +250,7 @@ def _ring_term(size: int) -> str | None:
 
 # --------------------------------------------------------------------------- sp3
 def _sp3_terms(g: _Graph, i: int) -> tuple[list[tuple[str, float]], str, str, bool]:
-    nh = g.nh[i]
+    nh = g.nh_total[i]
     hc = {4: "CH4", 3: "CH3", 2: "CH2", 1: "CH"}[min(nh, 4)]
     terms: list[tuple[str, float]] = [(f"sp3:base:alkyl:{hc}", 1.0)]
     fallback = False
@@ -536,7 +541,7 @@ def _aromatic_substituent_type(g: _Graph, s: int, r: int) -> str | None:
             return "CH2X"
         if n_n:
             return "CH2N"
-        return "CH3" if g.nh[s] == 3 else "alkyl"
+        return "CH3" if g.nh_total[s] == 3 else "alkyl"
     t = substituent_type(g, s, r)
     if t == "Ovinyl":
         return "OR"

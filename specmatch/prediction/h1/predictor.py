@@ -10,17 +10,46 @@ first-order multiplicity with estimated J. The environments are perceived in
 
 from __future__ import annotations
 
+from dataclasses import replace
+
+from ...errors import SpecmatchError
 from ...structures import Structure
+from ...structures.molecule import deuterium_counts
+from ..hose import MolCodes, fold_of_mol, load_table, rank_tags
 from ..model import ProtonGroup
 from ..multiplicity import multiplicity
 from .environment import proton_sites
 from .tables import load_tables
 
-TABLES_VERSION = "h1-2026.12-1"
+TABLES_VERSION = "h1-2026.12-1+codes-2026-12-02"
 
 
-def predict_protons(structure: Structure) -> tuple[list[ProtonGroup], list[str]]:
+def _check_deuterium(structure: Structure) -> None:
+    """D on an sp2 carbon that keeps one H (=CHD) leaves the remaining H's position
+    (cis or trans) undefined in the first-order model: refused with the reason."""
+    counts = deuterium_counts(structure.mol)
+    if not any(counts):
+        return
+    for i, n in enumerate(counts):
+        a = structure.mol.GetAtomWithIdx(i)
+        if n and a.GetTotalNumHs() > n and any(b.GetBondTypeAsDouble() != 1.0 for b in a.GetBonds()):
+            raise SpecmatchError(
+                f"atom {i + 1} carries both H and D on an sp2 carbon; the 1H prediction cannot place the "
+                "remaining H (cis or trans): give the fully protonated or fully deuterated group")
+
+
+def predict_protons(structure: Structure, *, correction: bool = True, codes: MolCodes | None = None
+                    ) -> tuple[list[ProtonGroup], list[str]]:
     """Predict every 1H signal of a perceived structure.
+
+    Parameters
+    ----------
+    structure : Structure
+    correction : bool
+        Add the environment-code correction (``tables/hose_h1.csv.gz``); False
+        gives the increments alone (what the correction table is fitted on).
+    codes : MolCodes, optional
+        Code builder of this molecule, if the caller already has one.
 
     Returns
     -------
@@ -28,6 +57,7 @@ def predict_protons(structure: Structure) -> tuple[list[ProtonGroup], list[str]]
         Groups ordered by atom index, and warnings for environments the tables do
         not cover (these get a generic value and a wide sigma, never an error).
     """
+    _check_deuterium(structure)
     tables = load_tables()
     value, sigma, j_hz = tables.value, tables.sigma, tables.j_hz
     groups: list[ProtonGroup] = []
@@ -55,4 +85,15 @@ def predict_protons(structure: Structure) -> tuple[list[ProtonGroup], list[str]]
             j_hz=js, exchangeable=site.exchangeable, diastereotopic=site.diastereotopic,
             environment=site.environment, couplings=site.couplings,
         ))
+    table = load_table("1H") if correction else None
+    if table is not None and groups:
+        codes = codes or MolCodes(structure.mol)
+        cls = structure.symmetry_classes
+        fold = fold_of_mol(structure.mol)  # None unless SPECMATCH_CROSS_VALIDATED=1
+        tags = rank_tags([cls[g.atoms[0]] for g in groups], [g.shift for g in groups])
+        for k, (g, tag) in enumerate(zip(groups, tags)):
+            corr, sigma, depth = table.correct((x + tag for x in codes.iter_codes(g.atoms[0], table.max_radius)),
+                                               g.sigma, fold)
+            if depth:
+                groups[k] = replace(g, shift=g.shift + corr, sigma=sigma)
     return groups, warnings

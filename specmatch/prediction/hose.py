@@ -1,0 +1,299 @@
+"""HOSE-style environment codes and the learned correction table built on them.
+
+An atom's environment is described sphere by sphere (Bremser, Anal. Chim. Acta
+1978, 103, 355): the atoms one bond away, two bonds away, ... each with the bond
+that reaches it, its element (lower case if aromatic) and its hydrogen count;
+a bond back into the same sphere (a ring closure) is marked ``&``. Our code is
+the canonical form of the shortest-path tree from the centre: every sphere is
+sorted, each atom's branch being written with its children sorted, so the code
+does not depend on the input's atom order. ``code(radius=r)`` keeps r spheres.
+
+Bond symbols: ``-`` single, ``=`` double, ``#`` triple, ``:`` aromatic.
+
+The correction table (``tables/hose_c13.csv.gz``, ``tables/hose_h1.csv.gz``,
+written by ``benchmarks/fit_hose.py``) holds, per nucleus, radius and code, the
+count, mean and spread of the residuals (experimental minus increment prediction)
+on the nmrshiftdb2 development data. A prediction walks from radius 1 outward and
+shrinks each radius's mean toward the previous radius by its count
+(``n / (n + k)``): a code seen on many atoms moves the prediction, a rare one
+barely does, an unknown one stops the walk and the increments stand. The
+variance is shrunk the same way from the increment sigma, so rare environments
+keep the wide increment sigma.
+
+Cross-validated mode. Each row also keeps its statistics per development fold
+(5 folds by InChIKey connectivity block, the folds of the fitting scripts). With
+the environment variable ``SPECMATCH_CROSS_VALIDATED=1`` a molecule is corrected
+with the table minus its own fold's contribution, so fitting the identification
+error model or benchmarking on the development data sees out-of-fold errors
+rather than the table's memory of those very molecules. Users never need it.
+"""
+
+from __future__ import annotations
+
+import gzip
+import hashlib
+import io
+import math
+import os
+import re
+from dataclasses import dataclass, field
+from functools import lru_cache
+from collections.abc import Iterable, Iterator
+from pathlib import Path
+from typing import NamedTuple
+
+from rdkit import Chem
+
+TABLE_DIR = Path(__file__).resolve().parent / "tables"
+MAX_RADIUS = 4
+FOLDS = 5
+#: correct development molecules with their own fold left out (see the module docstring)
+CROSS_VALIDATED = os.environ.get("SPECMATCH_CROSS_VALIDATED", "") == "1"
+
+
+def fold_of_block(block: str) -> int:
+    """Development fold of an InChIKey connectivity block (as the fitting scripts split)."""
+    return int(hashlib.md5(block.encode()).hexdigest(), 16) % FOLDS
+
+
+def fold_of_mol(mol: Chem.Mol) -> int | None:
+    """The fold of a molecule in cross-validated mode, None otherwise."""
+    if not CROSS_VALIDATED:
+        return None
+    return fold_of_block(Chem.MolToInchiKey(mol).split("-")[0])
+
+
+_BOND = {Chem.BondType.SINGLE: "-", Chem.BondType.DOUBLE: "=", Chem.BondType.TRIPLE: "#",
+         Chem.BondType.AROMATIC: ":"}
+
+
+class MolCodes:
+    """Per-molecule arrays for code building (read once from RDKit)."""
+
+    __slots__ = ("n", "token", "nbrs")
+
+    def __init__(self, mol: Chem.Mol):
+        n = self.n = mol.GetNumAtoms()
+        token = []
+        for i in range(n):
+            a = mol.GetAtomWithIdx(i)
+            s = a.GetSymbol()
+            token.append((s.lower() if a.GetIsAromatic() else s) + str(a.GetTotalNumHs()))
+        self.token = token
+        # per atom: (neighbour, bond symbol, bond symbol + neighbour token), strings built once
+        nbrs: list[list[tuple[int, str, str]]] = [[] for _ in range(n)]
+        for k in range(mol.GetNumBonds()):
+            b = mol.GetBondWithIdx(k)
+            i, j = b.GetBeginAtomIdx(), b.GetEndAtomIdx()
+            sym = _BOND.get(b.GetBondType(), "~")
+            nbrs[i].append((j, sym, sym + token[j]))
+            nbrs[j].append((i, sym, sym + token[i]))
+        self.nbrs = nbrs
+
+    def codes(self, centre: int, max_radius: int = MAX_RADIUS) -> list[str]:
+        """Codes of radius 1..max_radius around one atom (index r-1 is radius r)."""
+        return list(self.iter_codes(centre, max_radius))
+
+    def iter_codes(self, centre: int, max_radius: int = MAX_RADIUS) -> Iterator[str]:
+        """The codes of radius 1, 2, ... one at a time: a lookup that stops at an unknown
+        code never pays for the larger spheres."""
+        nbrs, token = self.nbrs, self.token
+        # distances from the centre by breadth-first search, up to max_radius
+        d = {centre: 0}
+        frontier = [centre]
+        for r in range(1, max_radius + 1):
+            nxt = []
+            for x in frontier:
+                for y, _, _ in nbrs[x]:
+                    if y not in d:
+                        d[y] = r
+                        nxt.append(y)
+            frontier = nxt
+            if not frontier:
+                break
+        memo: dict[tuple[int, int], str] = {}
+
+        def branch(x: int, depth: int) -> str:
+            # the children of x: neighbours one sphere further out; ring closures within x's sphere
+            key = (x, depth)
+            got = memo.get(key)
+            if got is not None:
+                return got
+            dx = d[x]
+            parts = []
+            for y, b, bt in nbrs[x]:
+                dy = d.get(y)
+                if dy is None:
+                    continue
+                if dy == dx + 1:
+                    parts.append(bt if depth == 1 else bt + branch(y, depth - 1))
+                elif dy == dx and dx > 0:
+                    parts.append(b + "&")
+            s = "(" + ",".join(sorted(parts)) + ")" if parts else ""
+            memo[key] = s
+            return s
+
+        head = token[centre]
+        for r in range(1, max_radius + 1):
+            yield head + branch(centre, r)
+
+
+def rank_tags(keys: list[int], shifts: list[float]) -> list[str]:
+    """Tags telling apart signals of one symmetry class (diastereotopic halves, the cis
+    and trans members of twin groups on an alkene, the two =CH2 protons): ``|0``,
+    ``|1`` by increment shift; ``""`` for a class with one signal.
+
+    The codes of such signals are identical (the code has no geometry), while their
+    residuals differ systematically, so each member gets its own row.
+    """
+    by_key: dict[int, list[int]] = {}
+    for k, key in enumerate(keys):
+        by_key.setdefault(key, []).append(k)
+    tags = [""] * len(keys)
+    for members in by_key.values():
+        if len(members) > 1:
+            for rank, k in enumerate(sorted(members, key=lambda i: shifts[i])):
+                tags[k] = f"|{rank}"
+    return tags
+
+
+class HoseEntry(NamedTuple):
+    """Residual statistics of one code: count, mean and standard deviation (ppm).
+
+    Built on lookup (:meth:`HoseTable.entry`), many times per molecule, so a named
+    tuple (fast to build) rather than a dataclass.
+    """
+
+    n: int
+    mean: float
+    sd: float
+
+
+@dataclass(frozen=True)
+class HoseTable:
+    """A fitted correction table for one nucleus.
+
+    Attributes
+    ----------
+    rows : dict
+        ``'radius,"code"'`` -> ``"n,mean,sd"``, the file's own text: parsed on
+        lookup (:meth:`entry`), so reading 10^5 rows costs a regular-expression
+        pass instead of 10^5 conversions at start-up.
+    shrink : float
+        The k of the count shrinkage ``n / (n + k)``.
+    max_radius : int
+    sigma_scale : float
+        Factor on the shrunk spread so that about 68 % of out-of-fold errors fall
+        within one sigma (the spread of training residuals is optimistic).
+    provenance : str
+        What the table was fitted on and how (the file's header lines).
+    """
+
+    rows: dict[str, str]
+    shrink: float
+    max_radius: int
+    provenance: str
+    sigma_scale: float = 1.0
+    #: parsed entries met so far (common codes recur in almost every molecule)
+    _parsed: dict[str, HoseEntry | None] = field(default_factory=dict, compare=False, repr=False)
+
+    def entry(self, radius: int, code: str, exclude_fold: int | None = None) -> HoseEntry | None:
+        """Statistics of one code at one radius, or None if the code was not seen.
+
+        With ``exclude_fold`` the statistics leave out that development fold.
+        """
+        key = f'{radius},"{code}"'
+        if exclude_fold is None:
+            got = self._parsed.get(key, False)
+            if got is not False:
+                return got
+        v = self.rows.get(key)
+        if v is None:
+            return None
+        n_t, mean_t, sd_t, folds = v.split(",")
+        n, mean, sd = int(n_t), float(mean_t), float(sd_t)
+        if exclude_fold is None:
+            e = self._parsed[key] = HoseEntry(n, mean, sd)
+            return e
+        for part in folds.split(";"):
+            f, nf_t, mf_t, sf_t = part.split(":")
+            if int(f) == exclude_fold:
+                nf, mf, sf = int(nf_t), float(mf_t), float(sf_t)
+                rest = n - nf
+                if rest <= 0:
+                    return None
+                m = (n * mean - nf * mf) / rest
+                ss = n * (sd * sd + mean * mean) - nf * (sf * sf + mf * mf)
+                return HoseEntry(rest, m, math.sqrt(max(ss / rest - m * m, 0.0)))
+        return HoseEntry(n, mean, sd)
+
+    def correct(self, codes: Iterable[str], base_sigma: float, exclude_fold: int | None = None
+                ) -> tuple[float, float, int]:
+        """Correction (ppm), sigma (ppm) and the deepest radius found for one atom.
+
+        Each radius's mean is shrunk toward the previous radius's corrected value,
+        and its variance toward the previous variance (starting from the
+        increment sigma), by the code's count; the code's spread is itself
+        regularised by one pseudo-observation of the previous variance.
+        """
+        corr = 0.0
+        var = base_sigma * base_sigma
+        depth = 0
+        k = self.shrink
+        for r, code in enumerate(codes, start=1):
+            if r > self.max_radius:
+                break
+            e = self.entry(r, code, exclude_fold)
+            if e is None:
+                break
+            w = e.n / (e.n + k)
+            corr = w * e.mean + (1.0 - w) * corr
+            # the code's own spread, itself shrunk toward the previous variance by one
+            # pseudo-observation (a code seen once has no spread of its own)
+            var = w * (e.n * e.sd * e.sd + var) / (e.n + 1) + (1.0 - w) * var
+            depth = r
+        return corr, math.sqrt(var) * (self.sigma_scale if depth else 1.0), depth
+
+
+_ROW = re.compile(r'^(\d+,"[^"]*"),(.*)$', re.M)
+
+
+def read_table(path: Path) -> HoseTable:
+    """Read a correction table (gzip CSV with ``#`` provenance lines, written by :func:`write_table`)."""
+    head: list[str] = []
+    shrink, max_radius, scale = 4.0, MAX_RADIUS, 1.0
+    with gzip.open(path, "rt", encoding="utf-8", newline="") as fh:
+        text = fh.read()
+    for line in text[: text.find("\nradius,")].splitlines():
+        head.append(line[1:].strip())
+        if line.startswith("# shrink "):
+            shrink = float(line.split()[2])
+        elif line.startswith("# max_radius "):
+            max_radius = int(line.split()[2])
+        elif line.startswith("# sigma_scale "):
+            scale = float(line.split()[2])
+    return HoseTable(dict(_ROW.findall(text)), shrink, max_radius, "\n".join(head), scale)
+
+
+def write_table(path: Path, rows: list[tuple[int, str, int, float, float, str]], provenance: list[str],
+                shrink: float, max_radius: int, sigma_scale: float) -> None:
+    """Write a correction table: provenance lines, then radius, code, n, mean, sd and the
+    per-fold statistics (``fold:n:mean:sd`` joined by ``;``) per row."""
+    with gzip.GzipFile(path, "wb", mtime=0) as raw:  # mtime 0: same bytes for the same table
+        with io.TextIOWrapper(raw, encoding="utf-8", newline="") as fh:
+            for line in provenance:
+                fh.write(f"# {line}\n")
+            fh.write(f"# shrink {shrink:g}\n# max_radius {max_radius}\n# sigma_scale {sigma_scale:.3f}\n")
+            # codes are always quoted (they hold commas) and never contain quotes
+            fh.write("radius,code,n,mean_ppm,sd_ppm,by_fold\n")
+            for r, code, n, mean, sd, folds in rows:
+                fh.write(f'{r},"{code}",{n},{mean:.4f},{sd:.4f},{folds}\n')
+
+
+@lru_cache(maxsize=4)
+def load_table(nucleus: str) -> HoseTable | None:
+    """The shipped table for "13C" or "1H" (None if the file is absent), read once."""
+    path = TABLE_DIR / ("hose_c13.csv.gz" if nucleus == "13C" else "hose_h1.csv.gz")
+    if not path.exists():
+        return None
+    return read_table(path)

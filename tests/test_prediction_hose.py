@@ -1,0 +1,89 @@
+"""Environment codes (HOSE-style, Bremser, Anal. Chim. Acta 1978, 103, 355) and the correction table."""
+
+from __future__ import annotations
+
+import pytest
+from rdkit import Chem
+
+from specmatch.prediction.hose import HoseEntry, HoseTable, MolCodes, load_table, rank_tags
+
+
+def codes_of(smiles: str, atom: int, radius: int = 3) -> list[str]:
+    return MolCodes(Chem.MolFromSmiles(smiles)).codes(atom, radius)
+
+
+def test_ethanol_codes_sphere_by_sphere():
+    # CH2 of ethanol: one sphere holds the methyl and the OH oxygen, the next is empty
+    c1, c2, c3 = codes_of("CCO", 1)
+    assert c1 == "C2(-C3,-O1)"
+    assert c2 == c3 == c1  # nothing beyond two bonds
+
+
+def test_codes_do_not_depend_on_atom_order():
+    # 2-methylcyclohexanol C1 written from three different starting atoms
+    smiles = ["OC1CCCCC1C", "CC1CCCCC1O", "C1CCC(O)C(C)C1"]
+    centre = []
+    for s in smiles:
+        m = Chem.MolFromSmiles(s)
+        centre.append(next(a.GetIdx() for a in m.GetAtoms()
+                           if a.GetSymbol() == "C" and any(n.GetSymbol() == "O" for n in a.GetNeighbors())))
+    got = {tuple(codes_of(s, c, 4)) for s, c in zip(smiles, centre)}
+    assert len(got) == 1
+
+
+def test_ring_closure_is_marked_and_rings_differ_from_chains():
+    # cyclopropane closes within the first sphere; propane does not
+    ring = codes_of("C1CC1", 0, 2)
+    chain = codes_of("CCC", 1, 2)
+    assert "&" in ring[1] and "&" not in chain[1]
+    assert ring != chain
+
+
+def test_different_environments_get_different_codes():
+    # the CH2 of 1-bromopropane vs 1-chloropropane at radius 1
+    assert codes_of("CCCBr", 2, 1) != codes_of("CCCCl", 2, 1)
+
+
+def test_shrinkage_walks_outward_and_stops_at_an_unknown_code():
+    table = HoseTable({'1,"a"': "3,2.0,0.5,0:3:2.0:0.5", '2,"b"': "1,10.0,0.1,3:1:10.0:0.1"},
+                      shrink=1.0, max_radius=3, provenance="test")
+    assert table.entry(1, "a") == HoseEntry(3, 2.0, 0.5) and table.entry(1, "b") is None
+    corr, sigma, depth = table.correct(["a", "b", "unknown"], base_sigma=2.0)
+    # radius 1: w = 3/4 -> 1.5; radius 2: w = 1/2 -> 0.5*10 + 0.5*1.5 = 5.75
+    assert corr == pytest.approx(5.75) and depth == 2
+    # variances: the code's spread regularised by one pseudo-observation, then shrunk by count
+    var1 = 0.75 * (3 * 0.25 + 4.0) / 4 + 0.25 * 4.0
+    var2 = 0.5 * (1 * 0.01 + var1) / 2 + 0.5 * var1
+    assert sigma == pytest.approx(var2 ** 0.5)
+    # an unknown first code leaves the increments alone
+    assert table.correct(["x", "b"], base_sigma=2.0) == (0.0, 2.0, 0)
+
+
+def test_leaving_a_fold_out_removes_its_contribution():
+    # cross-validated mode: statistics without fold 3 are those of fold 0 alone
+    # (residuals 1, 2 in fold 0 and 3 in fold 3: all three have mean 2, sd 0.8165)
+    table = HoseTable({'1,"a"': "3,2.0,0.8165,0:2:1.5:0.5;3:1:3.0:0.0", '2,"b"': "1,10.0,0.1,3:1:10.0:0.1"},
+                      shrink=1.0, max_radius=3, provenance="test")
+    e = table.entry(1, "a", exclude_fold=3)
+    assert e.n == 2 and e.mean == pytest.approx(1.5) and e.sd == pytest.approx(0.5, abs=1e-3)
+    assert table.entry(2, "b", exclude_fold=3) is None  # seen only in the left-out fold
+    assert table.entry(1, "a", exclude_fold=1) == table.entry(1, "a")
+
+
+def test_rank_tags_only_for_repeated_classes():
+    assert rank_tags([5, 7, 5], [20.0, 10.0, 19.0]) == ["|1", "", "|0"]
+
+
+@pytest.mark.parametrize("nucleus", ["13C", "1H"])
+def test_shipped_table_names_its_provenance(nucleus):
+    table = load_table(nucleus)
+    assert table is not None and len(table.rows) > 1000
+    assert "nmrshiftdb2" in table.provenance and "Kuhn" in table.provenance
+    assert "cross-validation" in table.provenance and "fit_hose.py" in table.provenance
+    assert 0 < table.shrink and 1 <= table.max_radius <= 6 and 0.3 < table.sigma_scale < 3
+    # every row parses; the first-sphere code of an ethyl CH3 is common enough to be there
+    for key in list(table.rows)[:2000]:
+        r, code = key.split(",", 1)
+        e = table.entry(int(r), code[1:-1])
+        assert e.n >= 1 and e.sd >= 0
+    assert table.entry(1, "C3(-C2)").n >= 20

@@ -249,12 +249,12 @@ def test_every_generated_carbon_gets_finite_shift_and_sigma(smiles):
     for c in carbons:
         assert math.isfinite(c.shift), (smiles, c)
         # class windows of the common 13C shift charts (common practice): sp3 -10..135
-        # (CF3 near 125), alkene/aromatic 70..170 (enol ether CH2 near 85), alkyne 20..105 (ynol ether beta C near 30), carbonyl 150..225 (carbonates, formyl anhydrides near 155)
+        # (CF3 near 125), alkene/aromatic 70..170 (enol ether CH2 near 85), alkyne 20..105 (ynol ether beta C near 30), carbonyl 145..225 (carbonates and formyl anhydrides near 155, vinyl carbonates a little lower; 5 ppm left for the prediction error)
         atom = structure.mol.GetAtomWithIdx(c.atoms[0])
         orders = [b.GetBondTypeAsDouble() for b in atom.GetBonds()]
         to_o = any(b.GetBondTypeAsDouble() == 2 and b.GetOtherAtom(atom).GetSymbol() == "O" for b in atom.GetBonds())
         if to_o:
-            window = (150, 225)
+            window = (145, 225)
         elif 3.0 in orders:
             window = (20, 105)
         elif atom.GetIsAromatic() or 2.0 in orders:

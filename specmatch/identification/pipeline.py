@@ -61,10 +61,13 @@ MIXTURE_MAX_COMPONENTS = 6
 
 
 def _mixture_candidates(ranking) -> list[str]:
-    """Candidates worth a place in the mixture fit: anything the spectra or the
-    mechanism do not rule out (p >= 0.001 or an expected major/minor product)."""
-    keep = [c.smiles for c in ranking.candidates
-            if c.probability >= 1e-3 or c.role in ("major", "minor")]
+    """Candidates worth a place in the mixture fit: those the hypotheses do not
+    rule out (posterior probability of being present >= 0.001), at least two.
+
+    The mechanism's expectation is already in that posterior (through the prior);
+    adding every expected minor product on top of it let an absent E1 alkene take
+    a share of an overlapped envelope and spoil the ratio of the resolved signals."""
+    keep = [c.smiles for c in ranking.candidates if c.p_present >= 1e-3]
     for c in ranking.candidates:
         if len(keep) >= 2:
             break

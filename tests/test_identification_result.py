@@ -296,3 +296,9 @@ def test_ratio_and_verdict_never_contradict():
     as_mix = dc_replace(r, verdict=dc_replace(r.verdict, kind="mixture", components=("CCC(C)Br", "CCCCBr"),
                                               fractions=(0.5, 0.5)))
     assert reconcile(as_mix, est(0.995, 0.0)).verdict.kind == "undecided"
+
+
+def test_candidate_file_naming_a_device_is_refused_quickly():
+    # a character device reports size 0; it must be refused, not read without end
+    with pytest.raises(SpecmatchError, match="device"):
+        read_candidates("/dev/zero")

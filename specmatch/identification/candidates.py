@@ -19,6 +19,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from ..errors import SpecmatchError
+from ..safeio import read_bytes
 
 __all__ = ["CandidateLine", "parse_candidates", "read_candidates"]
 
@@ -63,7 +64,9 @@ def read_candidates(path: str | Path) -> list[CandidateLine]:
         if p.stat().st_size > MAX_BYTES:
             raise SpecmatchError(f"candidate file '{path}' is larger than {MAX_BYTES // 1024} KiB; "
                                  "a candidate list is one SMILES per line")
-        text = p.read_text(encoding="utf-8-sig")
+        # the guarded reader refuses devices and FIFOs and never reads past its limit
+        # (a /dev/zero reports size 0 and would otherwise be read without end)
+        text = read_bytes(p, kind="candidates").decode("utf-8-sig")
     except FileNotFoundError:
         raise SpecmatchError(f"candidate file '{path}' not found") from None
     except UnicodeDecodeError:

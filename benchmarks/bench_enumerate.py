@@ -92,7 +92,7 @@ def main() -> None:
         _, first, _, n = _time(s, r, 1, use_xtb=True)
         _, cached, _, _ = _time(s, r, 1, use_xtb=True)
         res = enumerate_products(s, r, use_xtb=True)
-        print(f"  {s:<20}{r:<8} first {first:>8.0f} ms wall   cached {cached:>6.1f} ms wall   {res.model}")
+        print(f"  {s:<20}{r:<8} first {first:>8.0f} ms wall   cached {cached:>6.1f} ms wall   {res.ranked_by}")
 
 
 if __name__ == "__main__":

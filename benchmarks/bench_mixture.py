@@ -120,7 +120,7 @@ def main_peaklists(limit: int) -> None:
     from specmatch.errors import SpecmatchError
     from specmatch.identification.mixture import estimate_mixture
     from specmatch.prediction import predict
-    from specmatch.spectra.model import Multiplet, PeakList
+    from specmatch.spectra.types import Multiplet, PeakList
 
     tasks, dev = peaklist_tasks(limit)
     print(f"inputs: {dev}; {len({(t['a'], t['b']) for t in tasks})} isomer pairs with experimental 1H, "
@@ -182,7 +182,7 @@ def main() -> None:
     sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
     from mixture_synth import experimental_groups, synthetic_spectrum  # test helper, not production code
     from specmatch.prediction import predict
-    from specmatch.spectra.model import PeakList
+    from specmatch.spectra.types import PeakList
 
     data = json.loads(DATA.read_text(encoding="utf-8"))
     recs = {r["nmrshiftdb2_id"]: r for r in data["records"]}

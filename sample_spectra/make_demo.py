@@ -40,7 +40,7 @@ from specmatch.demo import LAB_NAME, demo_cases  # noqa: E402
 from specmatch.prediction import predict  # noqa: E402
 from specmatch.prediction.simulate import lorentzian_sum, prediction_lines  # noqa: E402
 from specmatch.spectra import write_jcampdx  # noqa: E402
-from specmatch.spectra.model import Spectrum  # noqa: E402
+from specmatch.spectra.types import Spectrum  # noqa: E402
 
 SEED = 20260419
 JCAMP_FORM = "DIFDUP"  # compressed (X++(Y..Y)) form; smaller files, same numbers

@@ -18,8 +18,8 @@ from collections.abc import Mapping, Sequence
 import numpy as np
 
 from specmatch.identification.mixture.estimate import VICINAL_J_HZ, first_order_couplings
-from specmatch.prediction.model import ProtonGroup
-from specmatch.spectra.model import Spectrum
+from specmatch.prediction.types import ProtonGroup
+from specmatch.spectra.types import Spectrum
 from specmatch.structures import parse_structure
 
 __all__ = ["experimental_groups", "synthetic_spectrum"]

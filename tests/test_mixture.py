@@ -24,9 +24,9 @@ from specmatch.identification.mixture import (
     selectivity_words,
 )
 from mixture_synth import experimental_groups, synthetic_spectrum
-from specmatch.prediction.model import Prediction
+from specmatch.prediction.types import Prediction
 from specmatch.reports.mixture_text import mixture_text
-from specmatch.spectra.model import Multiplet, Peak, PeakList, Spectrum
+from specmatch.spectra.types import Multiplet, Peak, PeakList, Spectrum
 
 DATA = json.loads((Path(__file__).parent / "data" / "mixture_isomer_pairs.json").read_text(encoding="utf-8"))
 RECS = {r["name"]: r for r in DATA["records"]}

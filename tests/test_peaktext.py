@@ -8,10 +8,10 @@ import pytest
 
 from specmatch.errors import SpecmatchError
 from specmatch.prediction import predict_structure
-from specmatch.prediction.model import CarbonShift, Prediction, ProtonGroup
+from specmatch.prediction.types import CarbonShift, Prediction, ProtonGroup
 from specmatch.prediction.h1.predictor import predict_protons
 from specmatch.reports.journal_text import measured_peak_text, predicted_peak_text
-from specmatch.spectra.model import Multiplet, Peak, PeakList
+from specmatch.spectra.types import Multiplet, Peak, PeakList
 from specmatch.structures import parse_structure
 
 

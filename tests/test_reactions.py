@@ -211,10 +211,10 @@ def test_e1_byproducts_and_unreacted_substrate_are_candidates():
 
 def test_to_dict_shape():
     d = enumerate_products("C=CC", "HBr").to_dict()
-    assert set(d) >= {"substrate", "reagent", "candidates", "warnings", "model"}
+    assert set(d) >= {"substrate", "reagent", "candidates", "warnings", "ranked_by"}
     assert set(d["candidates"][0]) >= {"smiles", "label", "pathway", "prior", "role"}
     assert d["reagent"] == "HBr" and isinstance(d["candidates"][0]["pathway"], list)
-    assert "empirical" in d["model"]
+    assert "empirical" in d["ranked_by"]
 
 
 def test_molfile_substrate():
@@ -245,9 +245,9 @@ def test_bad_input_gives_clear_error(substrate, reagent, kwargs, fragment):
 def test_explosion_cap(monkeypatch):
     from specmatch.reactions import scales
 
-    params = dict(scales.model_params())
+    params = dict(scales.prior_parameters())
     params["candidates"] = dict(params["candidates"], max_intermediates=3)
-    monkeypatch.setattr("specmatch.reactions.enumeration.model_params", lambda: params)
+    monkeypatch.setattr("specmatch.reactions.enumeration.prior_parameters", lambda: params)
     with pytest.raises(SpecmatchError, match="explosion cap"):
         enumerate_products("C=CC(C)CC", "HBr")
 
@@ -257,7 +257,7 @@ def test_xtb_flag_reports_model():
     from specmatch.reactions.xtb import available
 
     if available():
-        assert "GFN2-xTB" in res.model
+        assert "GFN2-xTB" in res.ranked_by
     else:
         assert any("tblite" in w for w in res.warnings)
     # xTB only reorders within the close band: the downhill hydride shift still wins

@@ -13,7 +13,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from specmatch.errors import SpecmatchError
-from specmatch.prediction.model import CarbonShift, Prediction, ProtonGroup
+from specmatch.prediction.types import CarbonShift, Prediction, ProtonGroup
 from specmatch.prediction.simulate import (
     default_axis,
     lorentzian_sum,

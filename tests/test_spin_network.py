@@ -14,7 +14,7 @@ import pytest
 from specmatch.errors import SpecmatchError
 from specmatch.prediction import predict
 from specmatch.prediction.couplings import coupling_network, coupling_table
-from specmatch.prediction.model import Prediction, ProtonGroup
+from specmatch.prediction.types import Prediction, ProtonGroup
 from specmatch.prediction.simulate import prediction_lines, simulate_1h, sticks_1h
 from specmatch.prediction.spin import equivalence_groups
 

@@ -102,7 +102,7 @@ def _write(path: str, axis, y, f: float, what: str) -> None:
         return
     if suffix in (".jdx", ".dx", ".jcamp"):
         from ..spectra import write_jcampdx
-        from ..spectra.model import Spectrum
+        from ..spectra.types import Spectrum
 
         spec = Spectrum(nucleus="1H", ppm=axis, intensity=y, frequency_mhz=f, solvent=None,
                         source=f"{Path(path).name} (JCAMP-DX)")

@@ -14,7 +14,7 @@ from typing import Any, Sequence
 
 from .. import __version__, safeio
 from ..errors import SpecmatchError
-from ..spectra.model import Peak, PeakList
+from ..spectra.types import Peak, PeakList
 from .errormodel import ErrorModel, load_error_model
 from .mixture import MixtureEstimate, estimate_mixture
 from .ranking import Ranking, rank
@@ -307,7 +307,7 @@ def identify(substrate: str | None = None, reagent: str | None = None, *, alcoho
         "error_model": model.version,
         "error_model_fitted_on": model.fitted_on,
         "prediction_tables_sha256": tables_digest(),
-        "reaction_model": enumeration.model if enumeration is not None else "",
+        "reaction_ranked_by": enumeration.ranked_by if enumeration is not None else "",
         "rdkit": rdkit.__version__, "numpy": numpy.__version__, "scipy": scipy.__version__,
     }
     inputs = {

@@ -61,6 +61,13 @@ POOR_FIT_SIGMA = 4.0
 VERDICT_KINDS = ("pure", "mixture", "undecided")
 
 
+#: columns of the per-signal assignment table (CSV export, ``assignments_frame``)
+ASSIGNMENT_COLUMNS = (
+    "rank", "smiles", "probability", "nucleus", "status", "observed_ppm", "predicted_ppm",
+    "sigma_ppm", "deviation_sigma", "hydrogens", "protons", "observed_integral", "multiplicity",
+    "atoms", "environment",
+)
+
 def percent(p: float) -> str:
     """A probability as a percentage for people: "99.8%", "<0.1%", ">99.9%"."""
     if p < 0.0005:
@@ -302,6 +309,23 @@ class Ranking:
                 "worst_deviation_sigma": round(c.worst_deviation_sigma, 2),
             })
         return pd.DataFrame(rows).set_index("rank")
+
+    def assignment_rows(self) -> list[dict]:
+        """One row per candidate and signal (13C then 1H), candidates in rank order.
+
+        Columns are :data:`ASSIGNMENT_COLUMNS`; atoms are 1-based and space separated, as a
+        chemist counts (the numbering of every text output).
+        """
+        rows = []
+        for i, c in enumerate(self.candidates, 1):
+            for r in c.c13_table + c.h1_table:
+                d = r.to_dict()
+                rows.append({
+                    "rank": i, "smiles": c.smiles, "probability": round(c.probability, 6),
+                    **{k: d[k] for k in ASSIGNMENT_COLUMNS[3:] if k != "atoms"},
+                    "atoms": " ".join(str(a + 1) for a in r.atoms),
+                })
+        return rows
 
 
 # ------------------------------------------------------------------ fast numbers

@@ -11,12 +11,12 @@ from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any, Mapping
 
 from ..errors import SpecmatchError
-from ..spectra.model import Multiplet, Peak, PeakList, Spectrum
+from ..spectra.types import Multiplet, Peak, PeakList, Spectrum
 from .mixture.estimate import MixtureEstimate
-from .ranking import CandidateScore, DiscriminatingSignal, Hypothesis, Ranking, Verdict
+from .ranking import ASSIGNMENT_COLUMNS, CandidateScore, DiscriminatingSignal, Hypothesis, Ranking, Verdict
 
 if TYPE_CHECKING:
-    from ..reactions.model import Enumeration
+    from ..reactions.types import Enumeration
 
 __all__ = ["ADVISORY_CAUTION", "RESULT_SCHEMA_VERSION", "Result", "peaklist_from_dict", "peaklist_to_dict"]
 
@@ -256,15 +256,26 @@ class Result:
 
     def assignments_frame(self):
         """Every candidate's per-signal table as one long pandas DataFrame."""
-        from ..reports.exports import assignment_rows
         import pandas as pd
 
-        return pd.DataFrame(assignment_rows(self))
+        return pd.DataFrame(self.ranking.assignment_rows(), columns=list(ASSIGNMENT_COLUMNS))
 
     def _repr_html_(self) -> str:
-        from ..reports.html import report_html
+        """A compact summary for notebooks: verdict and candidate table.
 
-        return report_html(self, fragment=True)
+        Self-contained on purpose: the identification stage does not import the reports
+        stage (the import graph runs one way); ``reports.html.report_html`` renders the
+        full report.
+        """
+        from html import escape
+
+        rows = "".join(
+            f"<tr><td>{i}</td><td><code>{escape(c.smiles)}</code></td><td>{escape(c.label)}</td>"
+            f"<td>{c.probability:.3f}</td><td>{c.p_present:.3f}</td></tr>"
+            for i, c in enumerate(self.ranking.candidates, 1))
+        return (f"<div><p><b>Verdict</b>: {escape(self.verdict.text)}</p>"
+                "<table><tr><th>rank</th><th>SMILES</th><th>label</th><th>probability</th>"
+                f"<th>present</th></tr>{rows}</table><p><i>{escape(self.caution)}</i></p></div>")
 
     def __repr__(self) -> str:
         return f"<specmatch Result: {self.verdict.text}>"

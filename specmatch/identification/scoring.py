@@ -98,7 +98,7 @@ def _num(x: Any, what: str) -> float:
 
 def observed_c13(lines: Any) -> ObservedC13:
     """Normalise 13C input: ppm numbers, ``{"shift", "hydrogens"?, "sign"?}`` dicts,
-    :class:`~specmatch.spectra.model.Peak` objects or a ``PeakList`` (flagged solvent
+    :class:`~specmatch.spectra.types.Peak` objects or a ``PeakList`` (flagged solvent
     and impurity lines are left out)."""
     if lines is None:
         lines = []
@@ -140,7 +140,7 @@ def observed_c13(lines: Any) -> ObservedC13:
 
 def observed_h1(multiplets: Any) -> ObservedH1:
     """Normalise 1H input: ``{"shift", "integral", "multiplicity"?, "j_hz"?}`` dicts,
-    :class:`~specmatch.spectra.model.Multiplet` objects or a ``PeakList``."""
+    :class:`~specmatch.spectra.types.Multiplet` objects or a ``PeakList``."""
     if multiplets is None:
         multiplets = []
     if hasattr(multiplets, "compound_multiplets"):

@@ -9,7 +9,7 @@ from __future__ import annotations
 from functools import lru_cache
 from typing import TYPE_CHECKING
 
-from .model import CarbonShift, Prediction, ProtonGroup
+from .types import CarbonShift, Prediction, ProtonGroup
 
 if TYPE_CHECKING:  # RDKit is loaded on first prediction, so small submodules import fast
     from ..structures import Structure

@@ -1,6 +1,6 @@
 """The H-H coupling network of a predicted molecule, for exact spin simulation.
 
-:func:`coupling_network` turns a :class:`~specmatch.prediction.model.Prediction`
+:func:`coupling_network` turns a :class:`~specmatch.prediction.types.Prediction`
 into individual proton spins (one per H; each spin belongs to one proton group)
 and signed couplings between them, from the constitution:
 
@@ -30,7 +30,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import SpecmatchError
-from .model import Prediction
+from .types import Prediction
 
 __all__ = ["SpinNetwork", "coupling_network", "coupling_table"]
 

@@ -18,7 +18,7 @@ import numpy as np
 
 from functools import lru_cache
 
-from .model import CarbonShift, Prediction, ProtonGroup
+from .types import CarbonShift, Prediction, ProtonGroup
 from .spin import SpinLines
 
 __all__ = ["default_axis", "lorentzian_sum", "prediction_lines", "simulate_13c", "simulate_1h", "sticks_1h"]

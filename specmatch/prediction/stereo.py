@@ -33,7 +33,7 @@ import numpy as np
 from rdkit import Chem
 
 from ..structures import Structure
-from .model import Prediction, ProtonGroup
+from .types import Prediction, ProtonGroup
 from .multiplicity import multiplicity
 
 _TABLE = Path(__file__).with_name("tables") / "stereo.csv"

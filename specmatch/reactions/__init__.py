@@ -11,7 +11,7 @@ source); the mechanism model is documented in :mod:`specmatch.reactions.network`
 """
 
 from .enumeration import enumerate_products
-from .model import ROLES, Candidate, Enumeration
+from .types import ROLES, Candidate, Enumeration
 from .reagents import Reagent, known_reagents, parse_reagent
 
 __all__ = ["ROLES", "Candidate", "Enumeration", "Reagent", "enumerate_products", "known_reagents",

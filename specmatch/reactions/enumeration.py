@@ -15,7 +15,7 @@ from rdkit import Chem
 
 from ..errors import SpecmatchError
 from ..structures import mol_from_text
-from .model import Candidate, Enumeration
+from .types import Candidate, Enumeration
 from .network import (
     SINGLE,
     Channel,
@@ -37,7 +37,7 @@ from .network import (
 )
 from .scales import alkene_dh
 from .reagents import ADDITION_CLASSES, Reagent, parse_reagent
-from .scales import model_params
+from .scales import prior_parameters
 
 _HALIDE_NAME = {"Cl": "Cl-", "Br": "Br-", "I": "I-"}
 
@@ -440,7 +440,7 @@ def _manifold_channels(ctx: Context, node: Intermediate, nucleophiles: list[Nucl
     """Capture of the cyclopropylcarbinyl/cyclobutyl/homoallyl manifold (Roberts & Mazur 1951).
 
     The three cations interconvert faster than capture, so each nucleophile gives all three
-    skeletons in fixed shares (``[cyclopropylcarbinyl]`` in model.toml), whatever the
+    skeletons in fixed shares (``[cyclopropylcarbinyl]`` in prior_parameters.toml), whatever the
     empirical scale says about the separate classical cations.
     """
     par = ctx.par["cyclopropylcarbinyl"]
@@ -1064,16 +1064,16 @@ def _finalise(ctx: Context, outcomes: list[Outcome], substrate_input: str, alcoh
                                constitution=constitution, racemic=bool(conf is not None and conf.racemic),
                                configuration=conf.words if conf is not None else ""))
     cands.sort(key=lambda c: (-c.prior, c.smiles))
-    model = "empirical cation scale (specmatch/reactions/data)"
+    ranked_by = "empirical cation scale (specmatch/reactions/data)"
     if ctx.cls in {"hydroboration", "oxymercuration", "halogenation", "halohydrin", "hx_radical"}:
-        model = "empirical regiochemistry rules and cation/radical scales (specmatch/reactions/data)"
+        ranked_by = "empirical regiochemistry rules and cation/radical scales (specmatch/reactions/data)"
     if ctx.use_xtb:
-        model += (f" + GFN2-xTB (tblite) for {ctx.xtb_used[0]} close cation(s)" if ctx.xtb_used[0]
+        ranked_by += (f" + GFN2-xTB (tblite) for {ctx.xtb_used[0]} close cation(s)" if ctx.xtb_used[0]
                   else "; GFN2-xTB requested but no close cation pair needed it")
     return Enumeration(substrate=Chem.MolToSmiles(Chem.MolFromSmiles(sub_key)),
                        substrate_stereo=_substrate_stereo(ctx.sub),
                        reagent=ctx.reagent, candidates=tuple(cands), warnings=tuple(dict.fromkeys(ctx.warnings)),
-                       model=model, alcohol=alcohol, reaction_class=ctx.cls, substrate_input=substrate_input,
+                       ranked_by=ranked_by, alcohol=alcohol, reaction_class=ctx.cls, substrate_input=substrate_input,
                        safety=ctx.reagent.safety)
 
 
@@ -1109,7 +1109,7 @@ def enumerate_products(substrate: str, reagent: str | Reagent, *, alcohol: str |
     Returns
     -------
     Enumeration
-        Candidates sorted by prior (priors sum to 1), warnings, and the model used.
+        Candidates sorted by prior (priors sum to 1), warnings, and what ranked the pathways.
 
     Examples
     --------
@@ -1117,7 +1117,7 @@ def enumerate_products(substrate: str, reagent: str | Reagent, *, alcohol: str |
     >>> res.candidates[0].smiles, res.candidates[0].label
     ('CCC(C)(C)Cl', 'after 1,2-hydride shift')
     """
-    par = model_params()
+    par = prior_parameters()
     cand = par["candidates"]
     if isinstance(max_shifts, bool) or not isinstance(max_shifts, int) or not 0 <= max_shifts <= cand["max_shifts_allowed"]:
         raise SpecmatchError(f"--max-shifts must be a whole number from 0 to {cand['max_shifts_allowed']} "

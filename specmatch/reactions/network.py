@@ -37,7 +37,7 @@ from .scales import (
     cation_centre_score,
     cation_terms,
     migratory_aptitudes,
-    model_params,
+    prior_parameters,
     radical_centre_score,
     radical_terms,
     ring_strain,
@@ -503,7 +503,7 @@ def terminus_shares(node: Intermediate) -> list[float]:
     """Kinetic capture share of each resonance terminus (more stable contributor captured faster)."""
     if len(node.forms) == 1:
         return [1.0]
-    par = model_params()
+    par = prior_parameters()
     a, rt = par["capture"]["alpha_termini"], par["thermal"]["rt_kcal_mol"]
     lo = min(node.local)
     w = [math.exp(-a * (e - lo) / rt) for e in node.local]
@@ -517,7 +517,7 @@ def e1_alkenes(node: Intermediate, rt: float, alpha: float | None = None) -> lis
     Weight of an alkene: exp(-alpha * dH_hydrogenation / RT), alpha from ``elimination.alpha``
     or, under heat (dehydration), ``elimination.alpha_heat``.
     """
-    par = model_params()["elimination"]
+    par = prior_parameters()["elimination"]
     found: dict[str, list] = {}
     for mol, c in node.forms:
         catom = mol.GetAtomWithIdx(c)

@@ -1,6 +1,6 @@
 """Empirical energy scales: carbocations, radicals, alkenes, ring strain (all kcal/mol).
 
-The numbers live in ``data/*.csv`` (one ``source`` column per row) and ``data/model.toml``;
+The numbers live in ``data/*.csv`` (one ``source`` column per row) and ``data/prior_parameters.toml``;
 this module reads them once and scores RDKit molecules with them.
 
 Cation scale: 0 = tert-alkyl cation; larger = less stable. The energy of a cation is the
@@ -53,8 +53,8 @@ def alkene_terms() -> dict[str, float]:
 
 
 @lru_cache(maxsize=1)
-def model_params() -> dict:
-    with open(DATA_DIR / "model.toml", "rb") as fh:
+def prior_parameters() -> dict:
+    with open(DATA_DIR / "prior_parameters.toml", "rb") as fh:
         return tomllib.load(fh)
 
 

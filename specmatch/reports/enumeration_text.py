@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from ..reactions.model import Enumeration
+from ..reactions.types import Enumeration
 
 
 def enumeration_table(result: Enumeration, *, pathways: bool = True) -> str:
@@ -15,7 +15,7 @@ def enumeration_table(result: Enumeration, *, pathways: bool = True) -> str:
              "Atom numbers C1, C2, ... count the heavy atoms of the substrate SMILES as typed, from 1."]
     if result.alcohol:
         lines.append(f"Alcohol: {result.alcohol}")
-    lines.append(f"Ranked by: {result.model}")
+    lines.append(f"Ranked by: {result.ranked_by}")
     lines.append("")
     width = max([len(c.smiles) for c in result.candidates] + [6])
     lines.append(f"  {'#':>2}  {'prior':>6}  {'role':<14}{'SMILES':<{width + 2}}{'config':<7}label")

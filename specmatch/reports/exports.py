@@ -10,26 +10,12 @@ from typing import Any
 __all__ = ["ASSIGNMENT_COLUMNS", "assignment_rows", "assignments_csv", "result_json",
            "write_assignments_csv", "write_json"]
 
-ASSIGNMENT_COLUMNS = (
-    "rank", "smiles", "probability", "nucleus", "status", "observed_ppm", "predicted_ppm",
-    "sigma_ppm", "deviation_sigma", "hydrogens", "protons", "observed_integral", "multiplicity",
-    "atoms", "environment",
-)
+from ..identification.ranking import ASSIGNMENT_COLUMNS
 
 
 def assignment_rows(result: Any) -> list[dict[str, Any]]:
-    """One row per candidate and signal (13C then 1H), candidates in rank order."""
-    ranking = getattr(result, "ranking", result)
-    rows = []
-    for i, c in enumerate(ranking.candidates, 1):
-        for r in c.c13_table + c.h1_table:
-            d = r.to_dict()
-            rows.append({
-                "rank": i, "smiles": c.smiles, "probability": round(c.probability, 6),
-                **{k: d[k] for k in ASSIGNMENT_COLUMNS[3:] if k != "atoms"},
-                "atoms": " ".join(str(a + 1) for a in r.atoms),  # 1-based, as a chemist counts
-            })
-    return rows
+    """One row per candidate and signal (see :meth:`Ranking.assignment_rows`)."""
+    return result.ranking.assignment_rows()
 
 
 def assignments_csv(result: Any) -> str:

@@ -14,8 +14,8 @@ from __future__ import annotations
 from collections.abc import Iterable, Sequence
 
 from ..errors import SpecmatchError
-from ..prediction.model import Prediction, ProtonGroup
-from ..spectra.model import Multiplet, Peak, PeakList
+from ..prediction.types import Prediction, ProtonGroup
+from ..spectra.types import Multiplet, Peak, PeakList
 
 __all__ = ["measured_peak_text", "predicted_peak_text"]
 

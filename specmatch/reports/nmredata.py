@@ -28,7 +28,7 @@ from typing import Any
 
 from .. import __version__
 from ..errors import SpecmatchError
-from ..spectra.model import PeakList
+from ..spectra.types import PeakList
 
 __all__ = ["nmredata_sdf", "write_nmredata", "NMREDATA_VERSION"]
 

@@ -3,8 +3,8 @@
 
 from __future__ import annotations
 
-from ..prediction.model import Prediction
-from ..spectra.model import PeakList
+from ..prediction.types import Prediction
+from ..spectra.types import PeakList
 from .journal_text import predicted_peak_text
 
 __all__ = ["peaklist_table", "prediction_table"]

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING, Any
 
-from .model import Multiplet, Peak, PeakList, Spectrum
+from .types import Multiplet, Peak, PeakList, Spectrum
 
 if TYPE_CHECKING:  # pragma: no cover
     from .archive import extract_archive

@@ -31,7 +31,7 @@ from .. import safeio
 from ..errors import SpecmatchError
 from .experiment import classify_experiment
 from .jcampdx import check_frequency, normalise_nucleus
-from .model import PeakList, Spectrum
+from .types import PeakList, Spectrum
 
 MAX_DEPTH = 6
 

@@ -25,7 +25,7 @@ import numpy as np
 from ..errors import SpecmatchError
 from .asdf import FORMS, decode_xy_lines, encode_xy_lines
 from .experiment import classify_experiment, resolve_solvent
-from .model import Peak, PeakList, Spectrum
+from .types import Peak, PeakList, Spectrum
 
 __all__ = ["read_jcampdx", "write_jcampdx", "parse_blocks", "normalise_nucleus", "looks_like_jcampdx"]
 

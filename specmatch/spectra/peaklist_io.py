@@ -20,7 +20,7 @@ import numpy as np
 from .. import safeio
 from ..errors import SpecmatchError
 from ..prediction.multiplicity import normalise as normalise_multiplicity
-from .model import Multiplet, Peak, PeakList, Spectrum
+from .types import Multiplet, Peak, PeakList, Spectrum
 
 _COLS = {
     "shift": ("shift", "ppm", "delta", "shift_ppm", "shift ppm", "δ", "cs", "chemical shift", "position"),

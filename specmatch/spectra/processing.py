@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import SpecmatchError
-from .model import Multiplet, Peak, PeakList, Spectrum
+from .types import Multiplet, Peak, PeakList, Spectrum
 from .solvents import SolventLine, canonical_solvent, lines_for, pattern_ppm
 
 # Tolerances (ppm) for recognising table lines after referencing; common practice.

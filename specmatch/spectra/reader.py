@@ -12,7 +12,7 @@ from pathlib import Path
 
 from .. import safeio
 from ..errors import SpecmatchError
-from .model import PeakList, Spectrum
+from .types import PeakList, Spectrum
 
 #: largest total size a zip may expand to (its own bombs/entries checks in archive.py)
 MAX_FILE_BYTES = 256 * 1024 * 1024

@@ -26,7 +26,7 @@ _LAZY = {
     "AnalysisRecord": "specmatch.store.records",
     "input_key": "specmatch.store.records",
     "records_frame": "specmatch.store.records",
-    "SCHEMA_VERSION": "specmatch.store.models",
+    "SCHEMA_VERSION": "specmatch.store.schema",
     "run_batch": "specmatch.store.batch",
     "run_sample": "specmatch.store.batch",
 }

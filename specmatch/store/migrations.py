@@ -3,11 +3,11 @@
 Each migration moves the schema from version ``n - 1`` to ``n`` and runs in its own
 transaction together with the row that records it in ``schema_version``, so a store
 is always at a whole version. Opening a store upgrades it to
-:data:`~specmatch.store.models.SCHEMA_VERSION`; a store written by a newer release is
+:data:`~specmatch.store.schema.SCHEMA_VERSION`; a store written by a newer release is
 refused rather than guessed at.
 
 To change the schema: append a :class:`Migration` (never edit a released one), bump
-``SCHEMA_VERSION`` in ``models.py`` and update the table objects there to match.
+``SCHEMA_VERSION`` in ``schema.py`` and update the table objects there to match.
 """
 
 from __future__ import annotations
@@ -20,7 +20,7 @@ from sqlalchemy import (Column, Float, ForeignKey, Index, Integer, LargeBinary, 
                         Table, Text, func, inspect, select, text)
 from sqlalchemy.engine import Connection, Engine
 
-from .models import SCHEMA_VERSION, UTCDateTime, schema_version
+from .schema import SCHEMA_VERSION, UTCDateTime, schema_version
 
 
 @dataclass(frozen=True)

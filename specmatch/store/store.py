@@ -38,7 +38,7 @@ from sqlalchemy.exc import ArgumentError, DBAPIError, NoSuchModuleError, Operati
 from ..errors import SpecmatchError
 from . import migrations
 from .chain import GENESIS, link_hash, row_content
-from .models import SCHEMA_VERSION, analyses, analysis_files, audit_chain, blobs
+from .schema import SCHEMA_VERSION, analyses, analysis_files, audit_chain, blobs
 from .records import AnalysisRecord, canonical_json, sha256_hex, summarise
 
 ENV_STORE = "SPECMATCH_STORE"

@@ -60,7 +60,7 @@ from ...errors import SpecmatchError
 from ...prediction.multiplicity import partners_of
 
 if TYPE_CHECKING:  # the fit module is heavy; only its type is needed here
-    from ...prediction.model import ProtonGroup
+    from ...prediction.types import ProtonGroup
     from ...structures import Structure
     from .spectrum_fit import SpectrumFit
 
@@ -613,7 +613,7 @@ def _observed_integral_ratio(cands: Sequence[_Candidate], fit, peaklist, f_mhz: 
         k = owners[0]
         if obs is None:
             # no clean pattern: the fitted model must say the multiplet is k's alone
-            model_in = fit.component_models[:, sel].sum(axis=1)
+            model_in = fit.component_curves[:, sel].sum(axis=1)
             if model_in.sum() <= 0 or (model_in.sum() - model_in[k]) > _FOREIGN_MAX * model_in.sum():
                 continue
         # the most plausible matching group (closest to its prediction in sigmas); more
@@ -861,8 +861,8 @@ def _from_spectrum(cands, spectrum, peaklist, solvent, f_mhz, warnings, src) -> 
         warnings.append(
             f"the fit leaves structured residual (reduced chi-square {fit.chi2_red:.1f} over the signals): "
             "second-order multiplets, an impurity or a candidate missing from the list")
-    resid = (fit.y - fit.model)[fit.used]
-    sig = (fit.model - fit.baseline_curve)[fit.used]
+    resid = (fit.y - fit.fitted)[fit.used]
+    sig = (fit.fitted - fit.baseline_curve)[fit.used]
     unexplained = 0.0
     if sig.sum() > 0:
         # positive residual well above the noise: lines no candidate accounts for
@@ -961,7 +961,7 @@ def mixture_from_files(h1_path: str | Path, candidates_path: str | Path, *, solv
             f"'{h1_path}' is a {obj.nucleus} file. 13C intensities are not quantitative under routine "
             "conditions (nuclear Overhauser enhancement, unequal relaxation), so specmatch does not "
             "report a ratio from them; give the 1H spectrum")
-    from ...spectra.model import PeakList
+    from ...spectra.types import PeakList
 
     if isinstance(obj, PeakList):
         return estimate_mixture(smiles, peaklist=obj, solvent=solvent, names=names)

@@ -31,8 +31,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ...prediction.model import ProtonGroup
-from ...spectra.model import Multiplet
+from ...prediction.types import ProtonGroup
+from ...spectra.types import Multiplet
 from .spectrum_fit import MAX_BOUND_PPM, MIN_BOUND_PPM, OH_RANGE_PPM, SignalRegion
 
 INTEGRAL_REL_SD = 0.02

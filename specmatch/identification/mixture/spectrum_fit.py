@@ -44,7 +44,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ...errors import SpecmatchError
-from ...prediction.model import ProtonGroup
+from ...prediction.types import ProtonGroup
 
 #: groups may move this many prediction sigmas from the predicted shift
 BOUND_SIGMAS = 3.0
@@ -140,8 +140,8 @@ class SpectrumFit:
     x: np.ndarray
     y: np.ndarray
     used: np.ndarray  # bool mask of points entering the fit
-    model: np.ndarray
-    component_models: np.ndarray  # (K, N)
+    fitted: np.ndarray
+    component_curves: np.ndarray  # (K, N)
     baseline_curve: np.ndarray
     noise_sd: float
     chi2_red: float
@@ -728,8 +728,8 @@ def _assemble(model: _Model, theta: np.ndarray, undetected: dict[int, float], gr
         oh=tuple(float(v) for v in theta[model.i_free[0]]) if with_oh else None,
         extra_lines={name: tuple(float(v) for v in theta[model.i_free[q]]) for q, (name, *_) in enumerate(free)},
         x=x, y=y, used=used,
-        model=model.evaluate(theta, x, model.leg_all),
-        component_models=w[:, None] * full_comp,
+        fitted=model.evaluate(theta, x, model.leg_all),
+        component_curves=w[:, None] * full_comp,
         baseline_curve=model.leg_all @ theta[model.i_b],
         noise_sd=noise,
         chi2_red=chi2_sig,
@@ -1217,8 +1217,8 @@ def exact_polish(fit: SpectrumFit, model: _Model, theta: np.ndarray, lb: np.ndar
     if fit.oh is not None:
         fit.oh = tuple(float(v) for v in t[em.i_free[0]])
     fit.extra_lines = {name: tuple(float(v) for v in t[em.i_free[q]]) for q, name in enumerate(fit.extra_lines)}
-    fit.model = em.evaluate(t, x, model.leg_all)
-    fit.component_models = w[:, None] * comp_full
+    fit.fitted = em.evaluate(t, x, model.leg_all)
+    fit.component_curves = w[:, None] * comp_full
     fit.baseline_curve = model.leg_all @ t[em.i_b]
     fit.chi2_red = chi2_sig
     fit.inflation = float(inflation)

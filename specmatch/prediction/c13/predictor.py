@@ -20,7 +20,7 @@ from rdkit.Chem import BondType
 from ...structures import Structure
 from ...structures.molecule import deuterium_counts
 from ..hose import MolCodes, fold_of_mol, load_table, rank_tags
-from ..model import CarbonShift
+from ..types import CarbonShift
 from .environment import carbon_environments, is_correction, nearest_term
 from .tables import SIGMA as _SIGMA, SUPPORT as _SUPPORT, TABLES_VERSION, VALUE as _VALUE
 

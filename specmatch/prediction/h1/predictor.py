@@ -1,6 +1,6 @@
 """1H prediction from additive increment tables.
 
-One :class:`~specmatch.prediction.model.ProtonGroup` per set of equivalent
+One :class:`~specmatch.prediction.types.ProtonGroup` per set of equivalent
 protons (diastereotopic protons and groups as separate signals): shift from the
 additive tables (Shoolery's rule extended to CH for sp3 C-H, Pascual-Meier-Simon
 for alkenes, benzene increments for aromatics), sigma per environment class,
@@ -16,7 +16,7 @@ from ...errors import SpecmatchError
 from ...structures import Structure
 from ...structures.molecule import deuterium_counts
 from ..hose import MolCodes, fold_of_mol, load_table, rank_tags
-from ..model import ProtonGroup
+from ..types import ProtonGroup
 from ..multiplicity import multiplicity
 from .environment import proton_sites
 from .tables import load_tables

@@ -80,8 +80,8 @@ class Enumeration:
         Sorted by descending prior; priors sum to 1.
     warnings : tuple of str
         Things the chemist should know (model limits, reagent read as ..., caps).
-    model : str
-        Which model ranked the pathways ("empirical cation scale" or "... + GFN2-xTB (tblite)").
+    ranked_by : str
+        What ranked the pathways ("empirical cation scale" or "... + GFN2-xTB (tblite)").
     alcohol : str or None
         Canonical SMILES of the alcohol nucleophile, if any.
     reaction_class : str
@@ -97,7 +97,7 @@ class Enumeration:
     reagent: Reagent
     candidates: tuple[Candidate, ...]
     warnings: tuple[str, ...] = ()
-    model: str = "empirical cation scale"
+    ranked_by: str = "empirical cation scale"
     alcohol: str | None = None
     reaction_class: str = ""
     substrate_input: str = ""
@@ -139,7 +139,7 @@ class Enumeration:
     def to_dict(self) -> dict:
         return {"substrate": self.substrate, "reagent": self.reagent.name,
                 "candidates": [c.to_dict() for c in self.candidates], "warnings": list(self.warnings),
-                "model": self.model, "reaction_class": self.reaction_class, "alcohol": self.alcohol,
+                "ranked_by": self.ranked_by, "reaction_class": self.reaction_class, "alcohol": self.alcohol,
                 "substrate_input": self.substrate_input, "reagent_key": self.reagent.key,
                 "substrate_stereo": list(self.substrate_stereo),
                 "safety": list(self.safety)}

@@ -7,15 +7,15 @@ from __future__ import annotations
 
 import json
 from contextlib import closing, nullcontext
-from typing import Any, Callable
-
-import numpy as np
+from typing import TYPE_CHECKING, Any, Callable
 
 from ..errors import SpecmatchError
-from .errormodel import ErrorModel, load_error_model
-from .hypotheses import score_hypotheses
-from .ranking import _normalise_priors, combined_score, hypothesis_posterior, log_likelihoods, softmax
-from .scoring import observed_c13, observed_h1, prepare, prepare_c13
+
+if TYPE_CHECKING:
+    from .errormodel import ErrorModel
+
+# numpy, scipy and the scorers are imported on first use: ``specmatch --help`` reads
+# FORMATS from this module and must stay fast
 
 __all__ = ["FORMATS", "rank_batch", "rank_task"]
 
@@ -59,6 +59,13 @@ def rank_task(task: Any, model: ErrorModel | None = None, max_components: int = 
     ``max_components`` (1, 2 or 3; a task's own ``"max_components"`` key wins) is
     the largest mixture scored among the hypotheses.
     """
+    import numpy as np
+
+    from .errormodel import load_error_model
+    from .hypotheses import score_hypotheses
+    from .ranking import _normalise_priors, combined_score, hypothesis_posterior, log_likelihoods, softmax
+    from .scoring import observed_c13, observed_h1, prepare, prepare_c13
+
     model = model or load_error_model()
     if not isinstance(task, dict):
         raise SpecmatchError("the task is not a JSON object")
@@ -111,6 +118,8 @@ def rank_task(task: Any, model: ErrorModel | None = None, max_components: int = 
 
 
 def _row(item: tuple[int, str, int]) -> dict[str, Any]:
+    from .errormodel import load_error_model
+
     n, line, max_components = item
     tid = None
     try:
@@ -131,6 +140,8 @@ PER_WORKER = 150
 
 def _warm() -> None:
     """Worker initializer: read the error model once per worker."""
+    from .errormodel import load_error_model
+
     load_error_model()
 
 

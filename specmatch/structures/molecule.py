@@ -72,7 +72,8 @@ class Structure:
     stereocentres: tuple[int, ...]
     isomeric_smiles: str = ""
     specified_stereo: tuple[int, ...] = ()
-    _classes: dict[int, tuple[int, ...]] = field(default_factory=dict, repr=False, compare=False)
+    #: views derived on demand and kept with the structure (``structures.graph.graph_of``)
+    _memo: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def n_heavy(self) -> int:

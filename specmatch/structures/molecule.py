@@ -297,11 +297,21 @@ def _label_atom(mol: Chem.Mol, atom: int) -> Chem.Mol:
     return rw.GetMol()
 
 
-def _stereo_elements(mol: Chem.Mol) -> list[tuple[str, int, bool]]:
-    """(type, centre atom or bond, configuration specified?) of every potential stereo element."""
-    mol = Chem.Mol(mol)
+_STEREO_KIND = {Chem.StereoType.Atom_Tetrahedral: "Atom_Tetrahedral", Chem.StereoType.Bond_Double: "Bond_Double"}
+_SPECIFIED = Chem.StereoSpecified.Specified
+
+
+def _stereo_elements(mol: Chem.Mol, *, copy: bool = True) -> list[tuple[str, int, bool]]:
+    """(type, centre atom or bond, configuration specified?) of every potential stereo element.
+
+    The search cleans the molecule's stereo flags, so it runs on a copy unless the caller
+    owns a throw-away molecule (``copy=False``).
+    """
+    if copy:
+        mol = Chem.Mol(mol)
     info = Chem.FindPotentialStereo(mol, cleanIt=True, flagPossible=True)
-    return [(str(s.type), s.centeredOn, s.specified == Chem.StereoSpecified.Specified) for s in info]
+    kind = _STEREO_KIND
+    return [(kind.get(s.type) or str(s.type), s.centeredOn, s.specified == _SPECIFIED) for s in info]
 
 
 def _mirror(mol: Chem.Mol) -> Chem.Mol:
@@ -336,7 +346,7 @@ def _is_diastereotopic_after_label(labelled: Chem.Mol, centre: int) -> bool:
     every other element is specified the labelled molecules are compared exactly
     (the CH2 of meso- and dl-pentane-2,4-diol differ).
     """
-    elements = _stereo_elements(labelled)
+    elements = _stereo_elements(labelled, copy=False)  # `labelled` is our own copy
     if not any(kind == "Atom_Tetrahedral" and at == centre for kind, at, _ in elements):
         return False
     others = [(kind, spec) for kind, at, spec in elements if at != centre and kind != "Bond_Double"]
@@ -368,6 +378,15 @@ def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: li
     # diastereotopic, which spares the labelled-molecule test for most small molecules.
     if not original_stereo and not any(_may_be_prochiral(a, classes) for a in mol.GetAtoms()):
         return frozenset(), ()
+    # Fast path of the substitution test, without building the labelled molecule: when no
+    # configuration is specified, the test says "diastereotopic" as soon as the labelled
+    # centre is stereogenic and another stereo element (not a C=C) exists. Both are known
+    # beforehand in the common cases: the centre's other ligands fall in different symmetry
+    # classes (labelling only refines classes), and the unlabelled molecule already has a
+    # stereo element elsewhere (it keeps it after labelling). Every other case runs the test.
+    tetra = [(at, spec) for kind, at, spec in original_stereo if kind != "Bond_Double"]
+    fast = not any(spec for _, spec in tetra)
+    elsewhere = {at for at, _ in tetra}
     ch2: set[int] = set()
     pairs: list[tuple[int, int]] = []
     for atom in mol.GetAtoms():
@@ -375,8 +394,12 @@ def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: li
         if atom.GetAtomicNum() != 6 or atom.GetHybridization() != Chem.HybridizationType.SP3:
             continue
         neighbours = [nb.GetIdx() for nb in atom.GetNeighbors()]
-        if atom.GetTotalNumHs() == 2 and len(neighbours) == 2:
-            if _is_diastereotopic_after_label(_label_one_h(mol, idx), idx):
+        n_h = atom.GetTotalNumHs()
+        other_element = fast and bool(elsewhere - {idx})
+        if n_h == 2 and len(neighbours) == 2:
+            if other_element and classes[neighbours[0]] != classes[neighbours[1]]:
+                ch2.add(idx)
+            elif _is_diastereotopic_after_label(_label_one_h(mol, idx), idx):
                 ch2.add(idx)
         by_class: dict[int, list[int]] = {}
         for nb in neighbours:
@@ -384,7 +407,12 @@ def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: li
         for members in by_class.values():
             if len(members) == 2:
                 a, b = members
-                if _is_diastereotopic_after_label(_label_atom(mol, a), idx):
+                if n_h >= 2:
+                    continue  # two H on the centre: never a stereocentre, whatever is labelled
+                rest = [x for x in neighbours if x != a and x != b]
+                if other_element and (n_h == 1 or (len(rest) == 2 and classes[rest[0]] != classes[rest[1]])):
+                    pairs.append((a, b))
+                elif _is_diastereotopic_after_label(_label_atom(mol, a), idx):
                     pairs.append((a, b))
     return frozenset(ch2), tuple(pairs)
 

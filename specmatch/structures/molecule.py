@@ -327,10 +327,11 @@ def _mirror(mol: Chem.Mol) -> Chem.Mol:
 
 
 def _with_tag(mol: Chem.Mol, centre: int, tag: Chem.ChiralType) -> str:
+    """SMILES of `mol` (plain H already removed) with the centre's configuration set."""
     m = Chem.Mol(mol)
     m.GetAtomWithIdx(centre).SetChiralTag(tag)
     m.ClearComputedProps()
-    return Chem.MolToSmiles(Chem.RemoveHs(m))
+    return Chem.MolToSmiles(m)
 
 
 def _is_diastereotopic_after_label(labelled: Chem.Mol, centre: int) -> bool:
@@ -346,7 +347,7 @@ def _is_diastereotopic_after_label(labelled: Chem.Mol, centre: int) -> bool:
     every other element is specified the labelled molecules are compared exactly
     (the CH2 of meso- and dl-pentane-2,4-diol differ).
     """
-    elements = _stereo_elements(labelled, copy=False)  # `labelled` is our own copy
+    elements = _stereo_elements(labelled)
     if not any(kind == "Atom_Tetrahedral" and at == centre for kind, at, _ in elements):
         return False
     others = [(kind, spec) for kind, at, spec in elements if at != centre and kind != "Bond_Double"]
@@ -354,11 +355,14 @@ def _is_diastereotopic_after_label(labelled: Chem.Mol, centre: int) -> bool:
         return False
     if not all(spec for _, spec in others):
         return True
-    one = _with_tag(labelled, centre, Chem.ChiralType.CHI_TETRAHEDRAL_CW)
-    two = _with_tag(labelled, centre, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
+    # the plain H removed once (the label stays; heavy-atom indices do not change); the
+    # centre has no tag yet, so no configuration is lost
+    bare = Chem.RemoveHs(labelled) if labelled.GetNumAtoms() > labelled.GetNumHeavyAtoms() else labelled
+    one = _with_tag(bare, centre, Chem.ChiralType.CHI_TETRAHEDRAL_CW)
+    two = _with_tag(bare, centre, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
     if one == two:
         return False
-    mirror = _with_tag(_mirror(labelled), centre, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
+    mirror = _with_tag(_mirror(bare), centre, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
     return two != mirror
 
 

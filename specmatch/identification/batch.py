@@ -134,15 +134,19 @@ def _row(item: tuple[int, str, int]) -> dict[str, Any]:
         return {"id": tid, "ok": False, "error": f"internal error: {type(exc).__name__}: {exc}"}
 
 
-#: tasks that pay for a worker's start-up (a task takes a few milliseconds)
-PER_WORKER = 150
+#: tasks that pay for a worker's start-up (a task takes a few milliseconds; workers are
+#: forked after the parent has loaded the scorers and the error model)
+PER_WORKER = 40
 
 
 def _warm() -> None:
-    """Worker initializer: read the error model once per worker."""
+    """Load the scorers, the predictor's tables and the error model once per process."""
+    from ..prediction.batch import warm
+    from . import hypotheses, scoring  # noqa: F401 - imported for the side effect: loaded once
     from .errormodel import load_error_model
 
     load_error_model()
+    warm()
 
 
 def rank_batch(in_path: str, out_path: str, progress: Callable[[int, str], Any] | None = None,
@@ -172,8 +176,9 @@ def rank_batch(in_path: str, out_path: str, progress: Callable[[int, str], Any] 
     items = [(n, line, max_components) for n, line in enumerate(lines, 1)]
     failed = 0
     bar_cm = progress(len(lines), "rank") if progress else nullcontext()
+    _warm()  # before the workers are forked: they inherit the loaded modules and model
     with out, bar_cm as bar, closing(run_tasks(_row, items, plan, ordered=True, chunk=16,
-                                                initializer=_warm)) as outcomes:
+                                                initializer=_warm, fork=True)) as outcomes:
         for group in outcomes:
             for o in group:
                 # _row turns every error into a row; a lost worker still gives one

@@ -376,8 +376,12 @@ def _may_be_prochiral(atom: Chem.Atom, classes: tuple[int, ...]) -> bool:
     return max(counts.values(), default=0) == 2
 
 
-def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: list[tuple[str, int, bool]]
-                    ) -> tuple[frozenset[int], tuple[tuple[int, int], ...]]:
+def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: list[tuple[str, int, bool]],
+                    *, fast: bool = True) -> tuple[frozenset[int], tuple[tuple[int, int], ...]]:
+    """Diastereotopic CH2 carbons and pairs of diastereotopic twin groups.
+
+    ``fast=False`` runs the full substitution test everywhere (the tests compare both).
+    """
     # Cheap pre-test: without a stereo element or a prochiral centre nothing can be
     # diastereotopic, which spares the labelled-molecule test for most small molecules.
     if not original_stereo and not any(_may_be_prochiral(a, classes) for a in mol.GetAtoms()):
@@ -389,7 +393,7 @@ def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: li
     # classes (labelling only refines classes), and the unlabelled molecule already has a
     # stereo element elsewhere (it keeps it after labelling). Every other case runs the test.
     tetra = [(at, spec) for kind, at, spec in original_stereo if kind != "Bond_Double"]
-    fast = not any(spec for _, spec in tetra)
+    fast = fast and not any(spec for _, spec in tetra)
     elsewhere = {at for at, _ in tetra}
     ch2: set[int] = set()
     pairs: list[tuple[int, int]] = []

@@ -603,11 +603,15 @@ def _cn_terms(ctx: _Context, i: int) -> list[str]:
 _HNAME = ("C", "CH", "CH2", "CH3", "CH4")
 
 
+_KIND_WORD = {"sp3": "sp3", "ene": "alkene", "ar": "benzene ring", "har": "aromatic ring",
+              "yne": "alkyne", "cn": "nitrile", "allene": "allene centre"}
+
+
 def _label(kind: str, atom_type: str, h: int, terms: list[str]) -> str:
-    what = {"sp3": "sp3", "ene": "alkene", "ar": "benzene ring", "har": "aromatic ring",
-            "yne": "alkyne", "cn": "nitrile", "allene": "allene centre", "co": f"carbonyl {atom_type}",
-            "other": f"{atom_type} (no table)"}[kind]
-    alpha = sorted({x.split(":")[2] for x in terms if x.startswith("sp3:a:") and x.split(":")[2] != "C"})
+    what = _KIND_WORD.get(kind) or (f"carbonyl {atom_type}" if kind == "co" else f"{atom_type} (no table)")
+    # alpha substituents other than carbon (only sp3 carbons have sp3:a: terms)
+    alpha = sorted({x.split(":")[2] for x in terms if x.startswith("sp3:a:") and not x.startswith("sp3:a:C:")}) \
+        if kind == "sp3" else ()
     extra = f", alpha {'/'.join(alpha)}" if alpha else ""
     return f"{_HNAME[min(h, 4)]} {what}{extra}"
 

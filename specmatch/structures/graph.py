@@ -89,7 +89,13 @@ class MolGraph:
             for x in r:
                 atom_rings[x].append(k)
         self.atom_rings = atom_rings
-        self.min_ring_size = [min((len(self.rings[k]) for k in ar), default=0) for ar in atom_rings]
+        min_size = [0] * n
+        for r in self.rings:
+            size = len(r)
+            for x in r:
+                if not min_size[x] or size < min_size[x]:
+                    min_size[x] = size
+        self.min_ring_size = min_size
         self.n_rings = [len(ar) for ar in atom_rings]
         self._dist: list[list[int]] | None = None
 

@@ -340,7 +340,8 @@ def _with_tag(mol: Chem.Mol, centre: int, tag: Chem.ChiralType) -> str:
     return Chem.MolToSmiles(m)
 
 
-def _is_diastereotopic_after_label(labelled: Chem.Mol, centre: int) -> bool:
+def _is_diastereotopic_after_label(labelled: Chem.Mol, centre: int, parent_chiral: bool = False,
+                                   centre_stereogenic: bool = False) -> bool:
     """Labelling one of two equivalent ligands turns `centre` into a stereocentre;
     the ligands are diastereotopic if the two labelled molecules are diastereomers.
 
@@ -361,13 +362,23 @@ def _is_diastereotopic_after_label(labelled: Chem.Mol, centre: int) -> bool:
         return False
     if not all(spec for _, spec in others):
         return True
+    # Labelled molecules "one" (centre CW) and "two" (CCW) are compared as SMILES, and "two"
+    # with the mirror image of "one". Two shortcuts give the same answer without SMILES:
+    # `centre_stereogenic`, the caller knows one != two (a labelled CH2 whose heavy ligands
+    # fall in different symmetry classes: the label fixes the centre, so no symmetry undoes
+    # its inversion); `parent_chiral`, the unlabelled molecule differs from its mirror
+    # image, and "two" carries the molecule while the mirror image of "one" carries its
+    # enantiomer, so they differ.
+    if centre_stereogenic and parent_chiral:
+        return True
     # the plain H removed once (the label stays; heavy-atom indices do not change); the
     # centre has no tag yet, so no configuration is lost
     bare = Chem.RemoveHs(labelled) if labelled.GetNumAtoms() > labelled.GetNumHeavyAtoms() else labelled
-    one = _with_tag(bare, centre, Chem.ChiralType.CHI_TETRAHEDRAL_CW)
     two = _with_tag(bare, centre, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
-    if one == two:
+    if not centre_stereogenic and _with_tag(bare, centre, Chem.ChiralType.CHI_TETRAHEDRAL_CW) == two:
         return False
+    if parent_chiral:
+        return True
     mirror = _with_tag(_mirror(bare), centre, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
     return two != mirror
 
@@ -408,7 +419,11 @@ def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: li
     # classes (labelling only refines classes), and the unlabelled molecule already has a
     # stereo element elsewhere (it keeps it after labelling). Every other case runs the test.
     tetra = [(at, spec) for kind, at, spec in original_stereo if kind != "Bond_Double"]
-    fast = fast and not any(spec for _, spec in tetra)
+    given = any(spec for _, spec in tetra)
+    # with configurations given: is the molecule chiral (unequal to its mirror image)?
+    shortcuts = fast
+    chiral = shortcuts and given and Chem.MolToSmiles(mol) != Chem.MolToSmiles(_mirror(mol))
+    fast = fast and not given
     elsewhere = {at for at, _ in tetra}
     ch2: set[int] = set()
     pairs: list[tuple[int, int]] = []
@@ -421,7 +436,8 @@ def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: li
         if n_h == 2 and len(neighbours) == 2:
             if other_element and classes[neighbours[0]] != classes[neighbours[1]]:
                 ch2.add(idx)
-            elif _is_diastereotopic_after_label(_label_one_h(mol, idx), idx):
+            elif _is_diastereotopic_after_label(_label_one_h(mol, idx), idx, chiral,
+                                                shortcuts and classes[neighbours[0]] != classes[neighbours[1]]):
                 ch2.add(idx)
         by_class: dict[int, list[int]] = {}
         for nb in neighbours:
@@ -434,7 +450,7 @@ def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: li
                 rest = [x for x in neighbours if x != a and x != b]
                 if other_element and (n_h == 1 or (len(rest) == 2 and classes[rest[0]] != classes[rest[1]])):
                     pairs.append((a, b))
-                elif _is_diastereotopic_after_label(_label_atom(mol, a), idx):
+                elif _is_diastereotopic_after_label(_label_atom(mol, a), idx, chiral):
                     pairs.append((a, b))
     return frozenset(ch2), tuple(pairs)
 

@@ -143,6 +143,7 @@ def prediction_lines(
     shifts: Sequence[float] | np.ndarray | None = None,
     j_scale: float = 1.0,
     geometric=None,
+    cached: bool = True,
 ) -> SpinLines:
     """Exact 1H stick spectrum of the non-exchangeable protons of a prediction.
 
@@ -157,6 +158,10 @@ def prediction_lines(
         Factor on every H-H coupling (the mixture fit refines it).
     geometric : mapping, optional
         Geometric vicinal couplings, see :func:`specmatch.prediction.couplings.coupling_network`.
+    cached : bool
+        Keep the result (per prediction, shifts, field and J scale; overlays redraw the
+        same spectrum often). A fit that tries many shift sets passes ``False`` so the
+        cache does not fill with spectra it never asks for again.
 
     Returns
     -------
@@ -176,12 +181,12 @@ def prediction_lines(
             raise SpecmatchError(
                 f"{len(groups)} proton groups but {arr.size} shifts given; give one shift per group")
         sh = tuple(float(x) for x in arr)
-    if geometric:
+    if geometric or not cached:
         return _lines(prediction, sh, float(frequency_mhz), float(j_scale), geometric)
     return _cached_lines(prediction, sh, float(frequency_mhz), float(j_scale))
 
 
-@lru_cache(maxsize=1024)
+@lru_cache(maxsize=128)
 def _cached_lines(prediction: Prediction, shifts: tuple[float, ...], f: float, j_scale: float) -> SpinLines:
     return _lines(prediction, shifts, f, j_scale, None)
 

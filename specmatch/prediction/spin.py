@@ -46,7 +46,7 @@ import numpy as np
 
 from ..errors import SpecmatchError
 
-__all__ = ["SpinLines", "SpinSystem", "simulate_spins", "is_strong", "MERGE_HZ"]
+__all__ = ["SpinLines", "SpinSystem", "simulate_spins", "is_strong", "merge_lines", "MERGE_HZ"]
 
 #: lines closer than this (Hz) are merged into one (intensity-weighted position)
 MERGE_HZ = 0.005
@@ -388,7 +388,7 @@ def _cluster_lines(nu: np.ndarray, J: np.ndarray, spins: tuple[float, ...]):
     return np.concatenate(hz), np.concatenate(inten), np.concatenate(dz), np.concatenate(rows)
 
 
-def _merge(hz: np.ndarray, inten: np.ndarray, d: np.ndarray, tol: float = None):
+def merge_lines(hz: np.ndarray, inten: np.ndarray, d: np.ndarray, tol: float | None = None):
     """Merge chains of lines closer than ``tol`` Hz (default MERGE_HZ), intensity-weighted."""
     if hz.size == 0:
         return hz, inten, d
@@ -509,7 +509,7 @@ def simulate_spins(
             all_hz.append((hz[:, None] + dz @ fields.T).ravel())
             all_int.append((inten[:, None] * w * probs[None, :]).ravel())
             all_d.append(np.repeat(d_full, len(probs), axis=0))
-    hz, inten, d = _merge(np.concatenate(all_hz), np.concatenate(all_int), np.concatenate(all_d))
+    hz, inten, d = merge_lines(np.concatenate(all_hz), np.concatenate(all_int), np.concatenate(all_d))
     return SpinLines(f, hz, inten, d)
 
 

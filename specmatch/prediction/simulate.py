@@ -156,8 +156,9 @@ def prediction_lines(
         One shift (ppm) per entry of ``prediction.protons`` replacing the predicted ones.
     j_scale : float
         Factor on every H-H coupling (the mixture fit refines it).
-    geometric : mapping, optional
-        Geometric vicinal couplings, see :func:`specmatch.prediction.couplings.coupling_network`.
+    geometric : mapping or True, optional
+        Geometric vicinal couplings (``True``: from the 3D layer where it applies), see
+        :func:`specmatch.prediction.couplings.coupling_network`.
     cached : bool
         Keep the result (per prediction, shifts, field and J scale; overlays redraw the
         same spectrum often). A fit that tries many shift sets passes ``False`` so the
@@ -244,8 +245,9 @@ def simulate_1h(
         predicted one (mixture fitting moves groups within their sigma).
     exact : bool
         ``False`` draws the first-order multiplets of :func:`sticks_1h` instead.
-    geometric : mapping, optional
-        Geometric vicinal couplings by pair of proton-group indices.
+    geometric : mapping or True, optional
+        Geometric vicinal couplings by pair of proton-group indices (``True``: from the
+        3D layer where it applies).
 
     Returns
     -------

@@ -44,7 +44,8 @@ from pathlib import Path
 from typing import NamedTuple
 
 from rdkit import Chem
-from rdkit.Chem import rdFingerprintGenerator
+from rdkit import rdBase
+from rdkit.Chem import rdMolDescriptors
 
 TABLE_DIR = Path(__file__).resolve().parent / "tables"
 MAX_RADIUS = 5
@@ -65,11 +66,6 @@ def fold_of_mol(mol: Chem.Mol) -> int | None:
     return fold_of_block(Chem.MolToInchiKey(mol).split("-")[0])
 
 
-#: one generator for every molecule: radius MAX_RADIUS, environments kept even when a larger
-#: sphere adds no new bond (so every atom has a code at every radius)
-_GENERATOR = rdFingerprintGenerator.GetMorganGenerator(radius=MAX_RADIUS, includeRedundantEnvironments=True)
-
-
 class MolCodes:
     """The environment codes of every atom of one molecule, computed once.
 
@@ -84,11 +80,23 @@ class MolCodes:
     __slots__ = ("bits",)
 
     def __init__(self, mol: Chem.Mol):
-        out = rdFingerprintGenerator.AdditionalOutput()
-        out.AllocateAtomToBits()
-        _GENERATOR.GetSparseCountFingerprint(mol, additionalOutput=out)
-        #: per atom: identifiers of radius 0..MAX_RADIUS (an atom without neighbours has only radius 0)
-        self.bits: tuple[tuple[int, ...], ...] = out.GetAtomToBits()
+        # the function form of the Morgan algorithm gives the same identifiers as RDKit's
+        # fingerprint generator, which would import numpy (start-up of predict --batch);
+        # its deprecation notice is blocked for the call. Redundant environments are kept
+        # so every atom has a code at every radius.
+        info: dict[int, tuple[tuple[int, int], ...]] = {}
+        block = rdBase.BlockLogs()
+        rdMolDescriptors.GetMorganFingerprint(mol, MAX_RADIUS, bitInfo=info, includeRedundantEnvironments=True)
+        del block
+        bits = [[0] * (MAX_RADIUS + 1) for _ in range(mol.GetNumAtoms())]
+        for bit, where in info.items():
+            for atom, radius in where:
+                bits[atom][radius] = bit
+        for row, atom in zip(bits, mol.GetAtoms()):
+            if not atom.GetDegree():  # a lone atom (water, methane): itself at every radius
+                row[1:] = [row[0]] * MAX_RADIUS
+        #: per atom: identifiers of radius 0..MAX_RADIUS
+        self.bits: list[list[int]] = bits
 
     def codes(self, centre: int, max_radius: int = MAX_RADIUS) -> list[str]:
         """Codes of radius 1..max_radius around one atom (index r-1 is radius r)."""
@@ -96,10 +104,7 @@ class MolCodes:
 
     def iter_codes(self, centre: int, max_radius: int = MAX_RADIUS) -> Iterator[str]:
         """The codes of radius 1, 2, ..., max_radius (at most MAX_RADIUS) of one atom."""
-        b = self.bits[centre]
-        if len(b) == 1:  # a lone atom (water, methane): its environment is itself at every radius
-            b = b * (MAX_RADIUS + 1)
-        for x in b[1:max_radius + 1]:
+        for x in self.bits[centre][1:max_radius + 1]:
             yield f"{x:08x}"
 
 

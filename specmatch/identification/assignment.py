@@ -182,7 +182,8 @@ def assign_whole_groups(cost: np.ndarray, counts: Sequence[int], capacity: Seque
     if S:
         big[:, :S] = cost[pg][:, slot_m]
     big[np.arange(P), S + np.arange(P)] = miss[pg] / counts[pg]
-    from scipy.optimize import linear_sum_assignment
+    # scoring loads scipy's Hungarian solver alone (without the rest of scipy.optimize)
+    from .scoring import linear_sum_assignment
 
     r, c = linear_sum_assignment(big)
     where = np.where(c < S, slot_m[np.minimum(c, max(S - 1, 0))], NOT_OBSERVED) if S else np.full(P, NOT_OBSERVED)

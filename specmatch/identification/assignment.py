@@ -199,17 +199,37 @@ def assign_whole_groups(cost: np.ndarray, counts: Sequence[int], capacity: Seque
         total = float(sum(counts[g] * cost[g, out[g]] if out[g] >= 0 else miss[g] for g in range(G)))
         if total < _BIG / 10:
             return total, out
-    return _branch_and_bound(cost, counts, cap, miss)
+    return _branch_and_bound(cost, counts, cap, miss, _repair(cost, counts, cap, miss, pg[r], where))
+
+
+def _repair(cost, counts, cap, miss, rows_group, rows_where) -> np.ndarray:
+    """A whole-group assignment near the relaxation's (the search's first incumbent):
+    each group, largest first, to the multiplet holding most of its protons if it still
+    has room, else its cheapest option with room, else left out."""
+    G, M = cost.shape
+    left = cap.astype(int).copy()
+    out = np.full(G, NOT_OBSERVED)
+    for g in sorted(range(G), key=lambda g: -counts[g]):
+        votes = rows_where[rows_group == g]
+        votes = votes[votes >= 0]
+        prefer = [int(np.bincount(votes, minlength=M).argmax())] if votes.size else []
+        opts = prefer + [int(m) for m in np.argsort(cost[g])]
+        for m in opts:
+            if left[m] >= counts[g] and cost[g, m] < _BIG / 10 and counts[g] * cost[g, m] < miss[g]:
+                out[g] = m
+                left[m] -= counts[g]
+                break
+    return out
 
 
 #: node budget of the exact search (far above what peak lists of a few candidates
 #: need); past it the best assignment found is returned
-SEARCH_NODES = 200_000
+SEARCH_NODES = 20_000
 
 
-def _branch_and_bound(cost, counts, cap, miss) -> tuple[float, np.ndarray]:
+def _branch_and_bound(cost, counts, cap, miss, start: np.ndarray) -> tuple[float, np.ndarray]:
     """The whole-group problem by depth-first branch and bound (exact within the node
-    budget). Groups are placed largest first; the bound adds, for every group not yet
+    budget, else the best found; the search starts from ``start``). Groups are placed largest first; the bound adds, for every group not yet
     placed, its cheapest option ignoring the other groups (an admissible bound)."""
     G, M = cost.shape
     per = counts[:, None] * cost  # cost of the whole group on m
@@ -223,8 +243,9 @@ def _branch_and_bound(cost, counts, cap, miss) -> tuple[float, np.ndarray]:
         choices.append(sorted(opts))
     left = cap.astype(int).copy()
     pick = [NOT_OBSERVED] * G
-    best_cost = [np.inf]
-    best_pick = [list(pick)]
+    start_cost = float(sum(per[g, start[g]] if start[g] >= 0 else miss[g] for g in range(G)))
+    best_cost = [start_cost]
+    best_pick = [[int(x) for x in start]]
     nodes = [0]
 
     def dfs(d: int, acc: float) -> None:

@@ -107,3 +107,16 @@ def test_peak_list_fit_ties_each_components_oh_line_to_its_amount():
     assert fit.fractions[0] == pytest.approx(0.7, abs=0.03)
     # the shared object: one multiplet (or none) per group, whole groups only
     assert len(fit.assignment.multiplet) == len(fit.assignment.groups)
+
+
+def test_candidates_the_integrals_cannot_separate_get_an_honest_interval():
+    # common practice: two isomers whose only C-H group gives one merged multiplet cannot
+    # be quantified from integrals; the estimate must not claim one of them at 100 % with
+    # a narrow interval (the multiplet position and integral are invented for the test)
+    from specmatch.identification.mixture import estimate_mixture
+    from specmatch.spectra.types import PeakList
+
+    pl = PeakList("1H", (), (Multiplet(3.46, (3.43, 3.49), 2.0, "m"),), frequency_mhz=400.0, solvent="CDCl3")
+    est = estimate_mixture(["FC(F)(Cl)CC(F)(F)Cl", "FC(F)(F)CC(F)(Cl)Cl"], peaklist=pl, solvent="CDCl3")
+    for lo, hi in est.interval_95:
+        assert lo <= 0.05 and hi >= 0.95

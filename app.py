@@ -34,8 +34,8 @@ from specmatch.reports.html import report_html, structure_svg as draw_structure
 from specmatch.reports.naming import structure_class
 from specmatch.reports.nmredata import nmredata_sdf
 from specmatch.reports.journal_text import measured_peak_text
-from specmatch.reports.summary import fit_words, names_for_result, summarise
-from specmatch.spectra import peaks_from_file, process_spectrum, read_spectrum
+from specmatch.reports.summary import fit_words, names_for_result, summarise, threshold_words
+from specmatch.spectra import Spectrum, peaks_from_file, process_spectrum, read_spectrum
 from specmatch.spectra.solvents import SOLVENTS
 from specmatch.store import Viewer, open_store, resolve_store_url, save_result
 from specmatch.structures import parse_structure
@@ -130,7 +130,7 @@ def read_upload(name: str, data: bytes, role: str, solvent: str | None) -> tuple
                              f"{ROLES[role]} box; drop it in the {right} box")
     try:
         read = read_spectrum(data, name=name, nucleus=nucleus)
-        if hasattr(read, "ppm"):  # a spectrum: pick lines here, keep the trace for the plots
+        if isinstance(read, Spectrum):  # a trace: pick lines here, keep it for the plots
             return process_spectrum(read, solvent=solvent, dept135=dept), read
         return peaks_from_file(data, name=name, nucleus=nucleus, solvent=solvent, dept135=dept), None
     except SpecmatchError as exc:
@@ -1097,8 +1097,8 @@ def signal_table(result: Any, names: dict) -> None:
                   "largest deviation (expected errors)": f"{c.worst_deviation_sigma:.1f}"} for c in cands]
         st.dataframe(pd.DataFrame(stats), hide_index=True, width="stretch")
         v = result.ranking.verdict
-        st.caption(f"The verdict word follows fixed thresholds on the probability ({v.basis}); "
-                   "see the report for the per-signal deviations in units of the expected error.")
+        st.caption(f"The verdict word follows fixed thresholds on the probability ({v.basis}; "
+                   f"{threshold_words()}); see the report for the per-signal deviations in units of the expected error.")
 
 
 # ----------------------------------------------------------------------------- export and store

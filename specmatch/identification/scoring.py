@@ -303,13 +303,14 @@ class SignalRow:
             object.__setattr__(self, "observed_integral", None)
 
     def to_dict(self) -> dict[str, Any]:
+        """JSON form; ``atoms`` 1-based as in every user-facing output (Result schema 3)."""
         r = lambda x: None if x is None else float(x)
         i = lambda x: None if x is None else int(x)
         return {
             "nucleus": self.nucleus, "status": self.status,
             "observed_ppm": r(self.observed_ppm), "predicted_ppm": r(self.predicted_ppm),
             "sigma_ppm": r(self.sigma_ppm), "deviation_sigma": r(self.deviation_sigma),
-            "atoms": [int(a) for a in self.atoms], "hydrogens": i(self.hydrogens), "protons": i(self.protons),
+            "atoms": [int(a) + 1 for a in self.atoms], "hydrogens": i(self.hydrogens), "protons": i(self.protons),
             "observed_integral": r(self.observed_integral), "multiplicity": self.multiplicity,
             "environment": self.environment, "observed_index": i(self.observed_index),
             "log_likelihood": float(self.log_likelihood),
@@ -320,7 +321,7 @@ class SignalRow:
         r = lambda k: None if d.get(k) is None else float(d[k])
         i = lambda k: None if d.get(k) is None else int(d[k])
         return cls(d["nucleus"], r("observed_ppm"), r("predicted_ppm"), r("sigma_ppm"), r("deviation_sigma"),
-                   tuple(int(a) for a in d.get("atoms") or ()), i("hydrogens"), d.get("environment") or "",
+                   tuple(int(a) - 1 for a in d.get("atoms") or ()), i("hydrogens"), d.get("environment") or "",
                    d.get("status") or "assigned", i("observed_index"), i("protons"), r("observed_integral"),
                    d.get("multiplicity") or "", float(d.get("log_likelihood") or 0.0))
 

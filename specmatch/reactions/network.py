@@ -31,6 +31,7 @@ import numpy as np
 from rdkit import Chem
 
 from ..errors import SpecmatchError
+from ..structures import mol_smiles
 from .scales import (
     alkene_dh,
     is_small_bridgehead,
@@ -75,10 +76,6 @@ def _finish(rw: Chem.RWMol) -> Chem.Mol | None:
 
 def _add_h(atom: Chem.Atom, n: int) -> None:
     atom.SetNumExplicitHs(atom.GetNumExplicitHs() + n)
-
-
-def csmiles(mol: Chem.Mol) -> str:
-    return Chem.MolToSmiles(mol, isomericSmiles=False)
 
 
 def is_alkene_bond(bond: Chem.Bond) -> bool:
@@ -256,7 +253,7 @@ def make_intermediate(mol: Chem.Mol, centre: int, *, radical: bool = False) -> I
     if not radical:
         energy += ring_strain(mol)
         cls += " cation"
-    key = min(csmiles(m) for m, _ in forms)
+    key = min(mol_smiles(m, isomeric=False) for m, _ in forms)
     return Intermediate(key=key, forms=forms, energy=energy, cls=cls, substitution=scores[best].substitution,
                         radical=radical, local=local)
 
@@ -532,7 +529,7 @@ def e1_alkenes(node: Intermediate, rt: float, alpha: float | None = None) -> lis
             new = eliminate(mol, c, beta.GetIdx())
             if new is None:
                 continue
-            key = csmiles(new)
+            key = mol_smiles(new, isomeric=False)
             if key not in found:
                 dh = alkene_dh(new, c, beta.GetIdx())
                 found[key] = [new, dh, f"loss of H+ from {lab(mol, beta.GetIdx())}: "

@@ -12,10 +12,11 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any
 
+from ..identification.ranking import THRESHOLDS
 from . import numbers as fmt
 from .naming import CandidateName, candidate_names
 
-__all__ = ["Summary", "summarise", "names_for_result", "signal_words", "fit_words"]
+__all__ = ["Summary", "summarise", "names_for_result", "signal_words", "fit_words", "threshold_words"]
 
 #: how far a measured signal may sit from a prediction and still "fit" (in units of the
 #: expected error of that prediction; common practice: within about 2 sigma)
@@ -63,6 +64,15 @@ class Summary:
     deciding_title: str
     advice: str
     strong: bool
+
+
+def threshold_words() -> str:
+    """The verdict thresholds in words, from ``identification.ranking.THRESHOLDS`` (never
+    retyped: the text, the HTML report and the app say what the ranking applies)."""
+    t = THRESHOLDS
+    return (f"thresholds: decisive at {fmt.percent(t['decisive'])} or more, likely at "
+            f"{fmt.percent(t['likely'])} or more, tentative at odds of {t['tentative_odds']:g}:1 or better "
+            "over the runner-up, otherwise cannot tell apart")
 
 
 def names_for_result(result: Any) -> dict[str, CandidateName]:

@@ -374,6 +374,19 @@ def _sticks(xs: list[float], ys: list[float]) -> tuple[list, list]:
     return px, py
 
 
+def _measured_sticks(fig: Any, shifts: list[float], heights: list[float], flagged: bool) -> None:
+    """The measured lines of a peak list as one stick trace: compound lines, or the
+    set-aside ones (solvent, water, reference) in their pale colour."""
+    import plotly.graph_objects as go
+
+    px, py = _sticks(shifts, heights)
+    fig.add_trace(go.Scatter(x=px, y=py, mode="lines", hoverinfo="skip",
+                             name="set-aside lines (solvent, water, reference)" if flagged
+                             else "measured lines (peak list)",
+                             line=dict(color=FLAGGED_COLOUR if flagged else MEASURED_COLOUR,
+                                       width=1.5 if flagged else 2)))
+
+
 def _stick_heights(values: list[float | None]) -> list[float]:
     """Heights from intensities, capped so one strong line does not flatten the rest."""
     import numpy as np
@@ -421,12 +434,7 @@ def spectrum_figure(peaklist: Any, spectrum: Any, full: bool, dept_h: dict[int, 
             if not sel:
                 continue
             hs = _stick_heights([p.intensity for p in sel]) if not flagged else [0.5] * len(sel)
-            px, py = _sticks([p.shift for p in sel], hs)
-            fig.add_trace(go.Scatter(x=px, y=py, mode="lines", hoverinfo="skip",
-                                     name="set-aside lines (solvent, water, reference)" if flagged
-                                     else "measured lines (peak list)",
-                                     line=dict(color=FLAGGED_COLOUR if flagged else MEASURED_COLOUR,
-                                               width=1.5 if flagged else 2)))
+            _measured_sticks(fig, [p.shift for p in sel], hs, flagged)
     if not mults:
         sel = [p for p in peaks if window[0] <= p.shift <= window[1]]
         for flagged in (False, True):
@@ -502,12 +510,7 @@ def overlay_figure(result: Any, nucleus: str, peaklist: Any, spectrum: Any,
                 hs = _stick_heights([p.intensity for p in sel]) if not flagged else [0.5] * len(sel)
             if not sel:
                 continue
-            px, py = _sticks([p.shift for p in sel], hs)
-            fig.add_trace(go.Scatter(x=px, y=py, mode="lines", hoverinfo="skip",
-                                     name="set-aside lines (solvent, water, reference)" if flagged
-                                     else "measured lines (peak list)",
-                                     line=dict(color=FLAGGED_COLOUR if flagged else MEASURED_COLOUR,
-                                               width=1.5 if flagged else 2)))
+            _measured_sticks(fig, [p.shift for p in sel], hs, flagged)
     freq = spectrum.frequency_mhz if (spectrum is not None and spectrum.frequency_mhz) else (
         frequency_mhz if nucleus == "1H" else frequency_mhz / 4.0)
     for i, (smiles, label, pred) in enumerate(preds):

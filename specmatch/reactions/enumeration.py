@@ -456,22 +456,21 @@ def _manifold_channels(ctx: Context, node: Intermediate, nucleophiles: list[Nucl
             chs.append(Channel(p, nu.weight * par["carbinyl_share"], "capture",
                                f"{nu.name} captures the cyclopropylcarbinyl cation at {lab(m, c)}", {"centre": c, "nu": nu}))
         for r1 in others:
-            expanded = shift(m, c, r, r1)
-            if expanded is not None:
-                p = capture(expanded, r, nu)
+            # the two other members of the manifold: (cation, where it is captured, share, how, manifold)
+            routes = (
+                (shift(m, c, r, r1), r, "cyclobutyl_share",
+                 f"ring bond {lab(m, r)}-{lab(m, r1)} shifts to {lab(m, c)} (cyclobutyl cation)",
+                 "ring-expanded (cyclopropylcarbinyl -> cyclobutyl)"),
+                (open_cyclopropane(m, c, r, r1), r1, "homoallyl_share",
+                 f"ring bond {lab(m, r)}-{lab(m, r1)} opens (homoallyl cation, C=C {lab(m, c)}={lab(m, r)})",
+                 "ring-opened (homoallyl)"),
+            )
+            for cation, site, share, how, manifold in routes:
+                p = None if cation is None else capture(cation, site, nu)
                 if p is not None:
-                    chs.append(Channel(p, nu.weight * par["cyclobutyl_share"] / len(others), "capture",
-                                       f"ring bond {lab(m, r)}-{lab(m, r1)} shifts to {lab(m, c)} (cyclobutyl cation); "
-                                       f"{nu.name} captures it at {lab(m, r)}",
-                                       {"centre": r, "nu": nu, "manifold": "ring-expanded (cyclopropylcarbinyl -> cyclobutyl)"}))
-            opened = open_cyclopropane(m, c, r, r1)
-            if opened is not None:
-                p = capture(opened, r1, nu)
-                if p is not None:
-                    chs.append(Channel(p, nu.weight * par["homoallyl_share"] / len(others), "capture",
-                                       f"ring bond {lab(m, r)}-{lab(m, r1)} opens (homoallyl cation, C=C "
-                                       f"{lab(m, c)}={lab(m, r)}); {nu.name} captures it at {lab(m, r1)}",
-                                       {"centre": r1, "nu": nu, "manifold": "ring-opened (homoallyl)"}))
+                    chs.append(Channel(p, nu.weight * par[share] / len(others), "capture",
+                                       f"{how}; {nu.name} captures it at {lab(m, site)}",
+                                       {"centre": site, "nu": nu, "manifold": manifold}))
     return chs
 
 

@@ -147,22 +147,23 @@ def capture(mol: Chem.Mol, c: int, nu: Nucleophile) -> Chem.Mol | None:
     return _finish(rw)
 
 
-def to_carbonyl(mol: Chem.Mol, c: int, oxygen: int) -> Chem.Mol | None:
-    """Oxocarbenium ion with an O-H: loss of H+ from O gives the C=O compound (pinacol-type end)."""
+def _lose_proton_beside(mol: Chem.Mol, c: int, x: int) -> Chem.Mol | None:
+    """Loss of H+ from atom `x` bonded to the cation carbon `c`: a C=X bond, no charge."""
     rw = Chem.RWMol(mol)
-    _add_h(rw.GetAtomWithIdx(oxygen), -1)
-    rw.GetBondBetweenAtoms(c, oxygen).SetBondType(DOUBLE)
+    _add_h(rw.GetAtomWithIdx(x), -1)
+    rw.GetBondBetweenAtoms(c, x).SetBondType(DOUBLE)
     rw.GetAtomWithIdx(c).SetFormalCharge(0)
     return _finish(rw)
+
+
+def to_carbonyl(mol: Chem.Mol, c: int, oxygen: int) -> Chem.Mol | None:
+    """Oxocarbenium ion with an O-H: loss of H+ from O gives the C=O compound (pinacol-type end)."""
+    return _lose_proton_beside(mol, c, oxygen)
 
 
 def eliminate(mol: Chem.Mol, c: int, beta: int) -> Chem.Mol | None:
     """E1: lose H+ from the beta carbon, C=C between c and beta."""
-    rw = Chem.RWMol(mol)
-    _add_h(rw.GetAtomWithIdx(beta), -1)
-    rw.GetBondBetweenAtoms(c, beta).SetBondType(DOUBLE)
-    rw.GetAtomWithIdx(c).SetFormalCharge(0)
-    return _finish(rw)
+    return _lose_proton_beside(mol, c, beta)
 
 
 def shift(mol: Chem.Mol, c: int, beta: int, group: int) -> Chem.Mol | None:

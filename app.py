@@ -53,6 +53,11 @@ FLAG_CHOICES = ["compound", "solvent", "water", "TMS", "grease", "impurity"]
 PALETTE = ["#1D5FA8", "#D9742B", "#6C4A9E", "#2A8C6E", "#B03A5B", "#6F6A1C"]
 DASHES = ["solid", "dash", "dot", "dashdot", "longdash", "longdashdot"]
 MEASURED_COLOUR = "#22272B"
+#: how far either side of a set-aside line (solvent, water, reference) the trace is drawn
+#: pale and left out of the scaling, per nucleus (about a multiplet's half-width; common practice)
+SET_ASIDE_HALF_WIDTH_PPM = {"1H": 0.05, "13C": 0.8}
+#: a product below this mole fraction is not listed in the ratio line
+SHOWN_FRACTION_MIN = 0.005
 FLAGGED_COLOUR = "#B4B9BE"  # set-aside lines: pale grey, never a candidate hue
 SAFETY_LINE = ("Safety: corrosive acids and HX gases, toxic mercury salts, alkylating alkyl halides, "
                "peroxide-forming ethers; read the SDS.")
@@ -422,7 +427,7 @@ def spectrum_figure(peaklist: Any, spectrum: Any, full: bool, dept_h: dict[int, 
         near = np.zeros_like(x, bool)
         for p in peaks:  # set-aside lines (solvent, water, reference) drawn pale
             if p.flag:
-                near |= np.abs(x - p.shift) < (0.05 if nucleus == "1H" else 0.8)
+                near |= np.abs(x - p.shift) < SET_ASIDE_HALF_WIDTH_PPM[nucleus]
         for part, colour, label in ((~near, MEASURED_COLOUR, "measured spectrum"),
                                     (near, FLAGGED_COLOUR, "set-aside lines (solvent, water, reference)")):
             if part.any():
@@ -486,14 +491,14 @@ def overlay_figure(result: Any, nucleus: str, peaklist: Any, spectrum: Any,
         flagged_mask = np.zeros_like(axis, bool)
         for p in peaklist.peaks:  # scale on compound lines only: a solvent line must not set the height
             if p.flag:
-                flagged_mask |= np.abs(axis - p.shift) < (0.05 if nucleus == "1H" else 0.8)
+                flagged_mask |= np.abs(axis - p.shift) < SET_ASIDE_HALF_WIDTH_PPM[nucleus]
         ref = meas[inside & ~flagged_mask]
         scale = float(np.max(ref)) if ref.size and np.max(ref) > 0 else float(np.max(meas)) or 1.0
         x, y = _thin(axis[inside], meas[inside] / scale)
         near = np.zeros_like(x, bool)
         for p in peaklist.peaks:
             if p.flag:
-                near |= np.abs(x - p.shift) < (0.05 if nucleus == "1H" else 0.8)
+                near |= np.abs(x - p.shift) < SET_ASIDE_HALF_WIDTH_PPM[nucleus]
         for part, colour, label in ((~near, MEASURED_COLOUR, "measured spectrum"),
                                     (near, FLAGGED_COLOUR, "set-aside lines (solvent, water, reference)")):
             if part.any():  # NaN breaks the line between the parts
@@ -973,13 +978,13 @@ def mixture_panel(result: Any, names: dict, spectra: dict[str, Any]) -> None:
     if mix is not None:
         code = lambda s: names[s].code if s in names else s  # noqa: E731
         pairs = sorted(((f, s, u) for s, f, u in zip(mix.candidates, mix.fractions, mix.uncertainties)
-                        if f >= 0.005), reverse=True)
+                        if f >= SHOWN_FRACTION_MIN), reverse=True)
         spread = " · ".join(f"{code(s)} {fmt.percent(f)} ± {fmt.percent(u)}" for f, s, u in pairs)
         if len(pairs) >= 2:
             st.markdown(f"**{':'.join(f'{100 * f:.0f}' for f, _, _ in pairs)}** "
                         f"({' : '.join(code(s) for _, s, _ in pairs)}) — {mix.selectivity} · {spread}")
         elif pairs:
-            st.markdown(f"**{code(pairs[0][1])}** only (no second product above 0.5%) — {mix.selectivity}")
+            st.markdown(f"**{code(pairs[0][1])}** only (no second product above {fmt.percent(SHOWN_FRACTION_MIN)}) — {mix.selectivity}")
         if mix.disagreement:  # both values in view: the fit's and the integrals'
             both = [w for w in mix.warnings if w.startswith("the full fit")]
             order = " : ".join(code(s) for s in mix.candidates)

@@ -34,7 +34,7 @@ from specmatch.reports.html import report_html, structure_svg as draw_structure
 from specmatch.reports.naming import structure_class
 from specmatch.reports.nmredata import nmredata_sdf
 from specmatch.reports.journal_text import measured_peak_text
-from specmatch.reports.summary import fit_words, names_for_result, summarise, threshold_words
+from specmatch.reports.verdict_card import fit_words, names_for_result, threshold_words, verdict_card
 from specmatch.spectra import Spectrum, peaks_from_file, process_spectrum, read_spectrum
 from specmatch.spectra.solvents import SOLVENTS
 from specmatch.store import Viewer, open_store, resolve_store_url, save_result
@@ -877,7 +877,7 @@ def results_view(spectra: dict[str, Any], result: Any, note: str | None, why: st
         return None
     result = refined_result(result, spectra)
     names = names_for_result(result)
-    verdict_card(result, names)
+    show_verdict_card(result, names)
     if note:
         st.warning(note)
     cautions = list(result.ranking.cautions) + list(result.cautions)
@@ -898,8 +898,8 @@ def results_view(spectra: dict[str, Any], result: Any, note: str | None, why: st
     return result
 
 
-def verdict_card(result: Any, names: dict) -> None:
-    s = summarise(result, names)
+def show_verdict_card(result: Any, names: dict) -> None:
+    s = verdict_card(result, names)
     with st.container(border=True):
         left, right = st.columns([2, 3])
         with left:

@@ -29,7 +29,7 @@ EXPECT: dict[str, str] = {
     "peaks --json": '"peaks"',
     "peaks --formula": "integrals scaled to 13 H",
     "identify --substrate": "Verdict",
-    "identify --candidates": "Verdict",
+    "identify --candidates": "3-bromo-3-methylpentane",  # the names in the candidate file
     "mixture": "Product ratio",
     "rank": '"ok": true',                   # checked in the result file
     "batch": "6 samples",

@@ -37,6 +37,7 @@ from scipy.optimize import linear_sum_assignment
 
 from ..errors import SpecmatchError
 from ..prediction import Prediction, predict
+from ..spectra.types import Multiplet, Peak, PeakList
 from ..structures import parse_structure
 from .errormodel import NucleusModel, t_logpdf
 
@@ -102,7 +103,7 @@ def observed_c13(lines: Any) -> ObservedC13:
     and impurity lines are left out)."""
     if lines is None:
         lines = []
-    if hasattr(lines, "compound_peaks"):
+    if isinstance(lines, PeakList):
         lines = lines.compound_peaks()
     shifts, hyd, sign, inten = [], [], [], []
     for i, item in enumerate(lines):
@@ -111,11 +112,10 @@ def observed_c13(lines: Any) -> ObservedC13:
             if "shift" not in item:
                 raise SpecmatchError(f"{what} has no 'shift' (give {{\"shift\": ppm, \"hydrogens\": n}})")
             s, h, sg, it = item["shift"], item.get("hydrogens"), item.get("sign"), item.get("intensity")
-        elif hasattr(item, "shift"):
-            if getattr(item, "flag", None):
+        elif isinstance(item, Peak):
+            if item.flag:
                 continue
-            s, h, sg = item.shift, getattr(item, "hydrogens", None), getattr(item, "sign", None)
-            it = getattr(item, "intensity", None)
+            s, h, sg, it = item.shift, item.hydrogens, item.sign, item.intensity
         else:
             s, h, sg, it = item, None, None, None
         inten.append(float("nan") if it is None else abs(_num(it, what + " intensity")))
@@ -143,7 +143,7 @@ def observed_h1(multiplets: Any) -> ObservedH1:
     :class:`~specmatch.spectra.types.Multiplet` objects or a ``PeakList``."""
     if multiplets is None:
         multiplets = []
-    if hasattr(multiplets, "compound_multiplets"):
+    if isinstance(multiplets, PeakList):
         multiplets = multiplets.compound_multiplets()
     shifts, ints, mults, js = [], [], [], []
     for i, item in enumerate(multiplets):
@@ -153,11 +153,14 @@ def observed_h1(multiplets: Any) -> ObservedH1:
                 raise SpecmatchError(f"{what} has no 'shift' (give {{\"shift\": ppm, \"integral\": n}})")
             s, it = item["shift"], item.get("integral")
             mu, j = item.get("multiplicity") or "", item.get("j_hz") or ()
-        elif hasattr(item, "shift"):
-            if getattr(item, "flag", None):
+        elif isinstance(item, Multiplet):
+            if item.flag:
                 continue
-            s, it = item.shift, getattr(item, "integral", None)
-            mu, j = getattr(item, "multiplicity", "") or "", getattr(item, "j_hz", ()) or ()
+            s, it, mu, j = item.shift, item.integral, item.multiplicity or "", item.j_hz or ()
+        elif isinstance(item, Peak):  # a picked line without multiplet analysis
+            if item.flag:
+                continue
+            s, it, mu, j = item.shift, None, "", ()
         else:
             s, it, mu, j = item, None, "", ()
         v = _num(s, what)

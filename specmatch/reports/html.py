@@ -21,7 +21,7 @@ from typing import Any
 from . import numbers as fmt
 from .mixture_text import mixture_text
 from .naming import structure_class
-from .summary import names_for_result, signal_words, summarise, threshold_words
+from .verdict_card import names_for_result, signal_words, threshold_words, verdict_card
 
 __all__ = ["report_html", "write_report", "structure_svg", "overlay_svg"]
 
@@ -260,7 +260,7 @@ def report_html(result: Any, fragment: bool = False, audit: Mapping[str, Any] | 
     v = ranking.verdict
     inputs = result.inputs or {}
     names = names_for_result(result)
-    summary = summarise(result, names)
+    summary = verdict_card(result, names)
     show = ranking.candidates[:CARDS] if not fragment else ranking.candidates[:4]
     cards = [{"code": names[c.smiles].code, "name": names[c.smiles].full, "probability": fmt.percent(c.probability),
               "smiles": c.smiles, "role": c.role,

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from ..identification.ranking import Ranking, percent
 from ..identification.result import Result
-from .summary import threshold_words
+from .verdict_card import threshold_words
 
 __all__ = ["result_text", "signal_table_text"]
 

@@ -574,7 +574,7 @@ def _observed_integral_ratio(cands: Sequence[_Candidate], fit, peaklist, f_mhz: 
     envelope elsewhere does not enter. Returns the ratio (or None and why) and, per
     candidate, the relative spread of its diagnostic multiplets' per-proton amounts.
     """
-    if peaklist is None or not getattr(peaklist, "multiplets", None):
+    if peaklist is None or not peaklist.multiplets:
         return None, "no peak list", {}
     x, y, used = fit.x, fit.y, fit.used
     h = float(x[1] - x[0])
@@ -804,12 +804,12 @@ def estimate_mixture(
     """
     warnings: list[str] = []
     for obj in (spectrum, peaklist):
-        if obj is not None and getattr(obj, "nucleus", "1H") != "1H":
+        if obj is not None and obj.nucleus != "1H":
             raise SpecmatchError(
                 f"a product ratio needs a 1H spectrum; this is {obj.nucleus}. 13C intensities are not "
                 "quantitative under routine conditions (nuclear Overhauser enhancement, unequal "
                 "relaxation), so specmatch does not report a ratio from them")
-        if obj is not None and getattr(obj, "experiment", "1D") != "1D":
+        if obj is not None and obj.experiment != "1D":
             raise SpecmatchError(f"a product ratio needs a plain 1D 1H spectrum, not {obj.experiment}")
     if spectrum is None and peaklist is None:
         raise SpecmatchError("give a 1H spectrum or a 1H peak list with integrals")
@@ -956,7 +956,7 @@ def mixture_from_files(h1_path: str | Path, candidates_path: str | Path, *, solv
     lines = read_candidates(candidates_path)
     smiles, names = [c.smiles for c in lines], [c.name for c in lines]
     obj = read_spectrum(str(h1_path))
-    if getattr(obj, "nucleus", "1H") != "1H":
+    if obj.nucleus != "1H":
         raise SpecmatchError(
             f"'{h1_path}' is a {obj.nucleus} file. 13C intensities are not quantitative under routine "
             "conditions (nuclear Overhauser enhancement, unequal relaxation), so specmatch does not "

@@ -19,14 +19,17 @@ def cmd_identify(args: argparse.Namespace) -> int:
     if bool(args.substrate) != bool(args.reagent):
         raise SpecmatchError("give both --substrate and --reagent, or neither (with --candidates FILE)")
     extra: list[str] = []
+    names: dict[str, str] = {}
     if args.candidates:
-        extra = [c.smiles for c in read_candidates(args.candidates)]
+        lines = read_candidates(args.candidates)
+        extra = [c.smiles for c in lines]
+        names = {c.smiles: c.name for c in lines if c.name != c.smiles}
     h1 = _h1_at_field(args.h1, args.field, args.solvent) if args.field is not None else args.h1
     result = identify(
         substrate=args.substrate, reagent=args.reagent, alcohol=args.alcohol,
         c13=args.c13, h1=h1, dept135=args.dept135, solvent=args.solvent,
         candidates=extra, mixture=args.mixture, use_prior=not args.no_prior,
-        max_components=args.max_components,
+        max_components=args.max_components, candidate_names=names,
     )
     if args.report:
         from ..reports.html import write_report

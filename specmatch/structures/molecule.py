@@ -320,7 +320,25 @@ def _stereo_elements(mol: Chem.Mol, *, copy: bool = True) -> list[tuple[str, int
     return [(kind.get(s.type) or str(s.type), s.centeredOn, s.specified == _SPECIFIED) for s in items]
 
 
-def _mirror(mol: Chem.Mol) -> Chem.Mol:
+def mol_smiles(mol: Chem.Mol, *, isomeric: bool = True) -> str:
+    """Canonical SMILES of a parsed molecule: the one place specmatch writes SMILES.
+
+    ``isomeric=True`` (default) keeps the configurations the molecule carries;
+    ``isomeric=False`` gives the constitution, the key that merges configurations.
+    RDKit caches stereo perception: after changing chiral tags call
+    ``ClearComputedProps()`` first (:func:`mirror_image` does).
+    """
+    return Chem.MolToSmiles(mol, isomericSmiles=isomeric)
+
+
+def enantiomer_key(mol: Chem.Mol) -> str:
+    """One canonical isomeric SMILES for a molecule and its mirror image (the lexically
+    smaller), so a racemic pair always has one text."""
+    return min(mol_smiles(mol), mol_smiles(mirror_image(mol)))
+
+
+def mirror_image(mol: Chem.Mol) -> Chem.Mol:
+    """The mirror image: every tetrahedral tag inverted (a copy; perception cleared)."""
     m = Chem.Mol(mol)
     for a in m.GetAtoms():
         tag = a.GetChiralTag()
@@ -337,7 +355,7 @@ def _with_tag(mol: Chem.Mol, centre: int, tag: Chem.ChiralType) -> str:
     m = Chem.Mol(mol)
     m.GetAtomWithIdx(centre).SetChiralTag(tag)
     m.ClearComputedProps()
-    return Chem.MolToSmiles(m)
+    return mol_smiles(m)
 
 
 def _is_diastereotopic_after_label(labelled: Chem.Mol, centre: int, parent_chiral: bool = False,
@@ -379,7 +397,7 @@ def _is_diastereotopic_after_label(labelled: Chem.Mol, centre: int, parent_chira
         return False
     if parent_chiral:
         return True
-    mirror = _with_tag(_mirror(bare), centre, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
+    mirror = _with_tag(mirror_image(bare), centre, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
     return two != mirror
 
 
@@ -422,7 +440,7 @@ def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: li
     given = any(spec for _, spec in tetra)
     # with configurations given: is the molecule chiral (unequal to its mirror image)?
     shortcuts = fast
-    chiral = shortcuts and given and Chem.MolToSmiles(mol) != Chem.MolToSmiles(_mirror(mol))
+    chiral = shortcuts and given and mol_smiles(mol) != mol_smiles(mirror_image(mol))
     fast = fast and not given
     elsewhere = {at for at, _ in tetra}
     ch2: set[int] = set()
@@ -465,17 +483,17 @@ def perceive(mol: Chem.Mol, smiles: str = "") -> Structure:
     ch2, pairs = _diastereotopic(mol, classes, original_stereo, graph=graph)
     stereo = tuple(sorted(at for kind, at, _ in original_stereo if kind == "Atom_Tetrahedral"))
     specified = tuple(sorted(at for kind, at, spec in original_stereo if kind == "Atom_Tetrahedral" and spec))
-    plain = Chem.MolToSmiles(mol, isomericSmiles=False)
+    plain = mol_smiles(mol, isomeric=False)
     structure = Structure(
         mol=mol,
-        smiles=smiles or Chem.MolToSmiles(mol),
+        smiles=smiles or mol_smiles(mol),
         canonical_smiles=plain,
         formula=_hill_formula(mol),
         symmetry_classes=classes,
         diastereotopic_ch2=ch2,
         diastereotopic_pairs=pairs,
         stereocentres=stereo,
-        isomeric_smiles=Chem.MolToSmiles(mol) if original_stereo else plain,
+        isomeric_smiles=mol_smiles(mol) if original_stereo else plain,
         specified_stereo=specified,
     )
     structure._memo["graph"] = graph

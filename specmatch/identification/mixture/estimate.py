@@ -575,7 +575,7 @@ def _observed_integral_ratio(cands: Sequence[_Candidate], fit, peaklist, f_mhz: 
     envelope elsewhere does not enter. Returns the ratio (or None and why) and, per
     candidate, the relative spread of its diagnostic multiplets' per-proton amounts.
     """
-    if peaklist is None or not getattr(peaklist, "multiplets", None):
+    if peaklist is None or not peaklist.multiplets:
         return None, "no peak list", {}
     x, y, used = fit.x, fit.y, fit.used
     h = float(x[1] - x[0])
@@ -805,12 +805,12 @@ def estimate_mixture(
     """
     warnings: list[str] = []
     for obj in (spectrum, peaklist):
-        if obj is not None and getattr(obj, "nucleus", "1H") != "1H":
+        if obj is not None and obj.nucleus != "1H":
             raise SpecmatchError(
                 f"a product ratio needs a 1H spectrum; this is {obj.nucleus}. 13C intensities are not "
                 "quantitative under routine conditions (nuclear Overhauser enhancement, unequal "
                 "relaxation), so specmatch does not report a ratio from them")
-        if obj is not None and getattr(obj, "experiment", "1D") != "1D":
+        if obj is not None and obj.experiment != "1D":
             raise SpecmatchError(f"a product ratio needs a plain 1D 1H spectrum, not {obj.experiment}")
     if spectrum is None and peaklist is None:
         raise SpecmatchError("give a 1H spectrum or a 1H peak list with integrals")
@@ -937,7 +937,7 @@ def _from_peaklist(cands, peaklist, warnings, src) -> MixtureEstimate:
     unc = ("covariance of the amounts for the best assignment, integrals taken to +-2% (+0.5% of the largest), "
            f"scaled by the reduced chi-square when above 1, plus {100 * MODEL_SD_FLOOR:.1f} percentage points in "
            "quadrature; 95% interval = fraction +- 1.96 sd")
-    details = {"chi2_red": fit.chi2_red, "oh_multiplet": -1 if fit.oh_multiplet is None else fit.oh_multiplet}
+    details = {"chi2_red": fit.chi2_red, "oh_multiplet": fit.assignment.free_exchange}
     weights = fit.weights
     extra_sd = None
     if fit.averaged_fractions is not None:
@@ -946,6 +946,18 @@ def _from_peaklist(cands, peaklist, warnings, src) -> MixtureEstimate:
         weights = fit.averaged_fractions * float(fit.weights.sum())
         extra_sd = fit.assignment_sd
         unc += "; averaged over the plausible assignments (weights exp(-chi2/2)), their spread added in quadrature"
+    if len(fit.confounded) > 1:
+        # only the confounded candidates' summed amount is measured: split it evenly and
+        # give each the sd of a uniform share of it (the data say nothing inside it)
+        weights = np.array(weights, float)
+        conf = list(fit.confounded)
+        tot_all = float(weights.sum())
+        share = float(weights[conf].sum())
+        weights[conf] = share / len(conf)
+        flat = np.zeros(len(cands))
+        flat[conf] = (share / tot_all if tot_all > 0 else 1.0) / np.sqrt(12.0)
+        extra_sd = flat if extra_sd is None else np.sqrt(np.asarray(extra_sd) ** 2 + flat**2)
+        unc += "; candidates the integrals cannot tell apart share their summed amount evenly, with a uniform sd"
     return _finish(cands, weights, fit.weights_cov, regions, method=method, uncertainty_method=unc,
                    warnings=warnings, source=src, fitted={}, group_keys=group_keys, details=details,
                    extra_sd=extra_sd)
@@ -960,7 +972,7 @@ def mixture_from_files(h1_path: str | Path, candidates_path: str | Path, *, solv
     lines = read_candidates(candidates_path)
     smiles, names = [c.smiles for c in lines], [c.name for c in lines]
     obj = read_spectrum(str(h1_path))
-    if getattr(obj, "nucleus", "1H") != "1H":
+    if obj.nucleus != "1H":
         raise SpecmatchError(
             f"'{h1_path}' is a {obj.nucleus} file. 13C intensities are not quantitative under routine "
             "conditions (nuclear Overhauser enhancement, unequal relaxation), so specmatch does not "

@@ -40,7 +40,7 @@ MAX_DEPTH = 6
 MAX_ENTRIES = 5000
 
 
-def _files(root: Path) -> list[Path]:
+def folder_files(root: Path) -> list[Path]:
     """Regular files (no symbolic links) up to MAX_DEPTH levels below `root`; the walk is
     bounded, so a huge tree (a home folder, /proc) is refused quickly instead of scanned."""
     import os
@@ -66,7 +66,7 @@ def _files(root: Path) -> list[Path]:
 def read_folder(root: Path, *, nucleus: str | None = None, label: str | None = None) -> Spectrum | PeakList:
     """The spectrum held in an instrument folder (see module docstring for the order)."""
     label = label or root.name
-    files = _files(root)
+    files = folder_files(root)
 
     def where(p: Path) -> str:
         rel = p.relative_to(root).as_posix()

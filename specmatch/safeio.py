@@ -92,6 +92,15 @@ def _fmt(n: int) -> str:
     return f"{n / _MIB:,.1f} MB" if n >= _MIB else f"{n:,} bytes"
 
 
+def _cannot_read(p: Path, exc: OSError) -> SpecmatchError:
+    """The one message for a file that cannot be opened or stat'ed."""
+    if isinstance(exc, FileNotFoundError):
+        return SpecmatchError(f"cannot read '{p}': no such file")
+    if isinstance(exc, PermissionError):
+        return SpecmatchError(f"cannot read '{p}': permission denied")
+    return SpecmatchError(f"cannot read '{p}': {exc.strerror or exc}")
+
+
 def check_file(path: str | os.PathLike, *, kind: str) -> Path:
     """Raise unless `path` names an existing regular file within the size limit.
 
@@ -100,12 +109,8 @@ def check_file(path: str | os.PathLike, *, kind: str) -> Path:
     p = Path(path)
     try:
         st = os.stat(p)
-    except FileNotFoundError:
-        raise SpecmatchError(f"cannot read '{p}': no such file") from None
-    except PermissionError:
-        raise SpecmatchError(f"cannot read '{p}': permission denied") from None
     except OSError as exc:
-        raise SpecmatchError(f"cannot read '{p}': {exc.strerror or exc}") from None
+        raise _cannot_read(p, exc) from None
     what = _what(st.st_mode)
     if what is not None:
         hint = "; give the file inside it, or a zip of it" if what == "a directory" else ""
@@ -123,12 +128,8 @@ def _open(p: Path) -> int:
     flags = os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_BINARY", 0)
     try:
         fd = os.open(p, flags)
-    except FileNotFoundError:
-        raise SpecmatchError(f"cannot read '{p}': no such file") from None
-    except PermissionError:
-        raise SpecmatchError(f"cannot read '{p}': permission denied") from None
     except OSError as exc:
-        raise SpecmatchError(f"cannot read '{p}': {exc.strerror or exc}") from None
+        raise _cannot_read(p, exc) from None
     what = _what(os.fstat(fd).st_mode)
     if what is not None:  # changed between the check and the open
         os.close(fd)

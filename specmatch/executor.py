@@ -17,7 +17,10 @@ Worker policy (the same for every batch)
    than two means this process.
 
 Local workers are *spawned* (they start clean: no copied database connections, locks
-or threads of the parent). They end with their parent whatever stops it: on Linux each
+or threads of the parent), unless the caller asks for ``fork=True``: a caller whose
+process holds no connections, locks or threads (``predict --batch``, ``rank --batch``)
+forks, so workers start in milliseconds with the parent's imports and tables already
+loaded (where the platform can fork; elsewhere they are spawned). They end with their parent whatever stops it: on Linux each
 worker asks the kernel for SIGTERM when its parent dies (``prctl(PR_SET_PDEATHSIG)``),
 so a SIGKILL of the parent takes the workers with it; SIGTERM, SIGHUP and Ctrl-C in the
 parent stop the workers before :func:`run_tasks` re-raises (as :class:`Stopped` or
@@ -164,6 +167,8 @@ def _worker_init(parent_pid: int, scratch_root: str | None, init: Callable[[], A
     _die_with_parent()
     if os.getppid() != parent_pid:  # the parent died before we asked to follow it
         os._exit(1)
+    for s in STOP_SIGNALS:  # a forked worker inherits the parent's handlers: back to the default
+        signal.signal(s, signal.SIG_DFL)
     signal.signal(signal.SIGTERM, _on_worker_term)
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C goes to the whole group: parent decides
     if scratch_root:
@@ -233,20 +238,28 @@ def _stop_on_signals() -> Iterator[None]:
             signal.signal(s, h)
 
 
+def _start_method(fork: bool) -> str:
+    import multiprocessing
+
+    return "fork" if fork and "fork" in multiprocessing.get_all_start_methods() else "spawn"
+
+
 class _Local:
-    """A spawn process pool that is replaced when a worker dies and stopped hard on exit."""
+    """A local process pool (spawned, or forked on request) that is replaced when a worker
+    dies and stopped hard on exit."""
 
     remote = False
 
-    def __init__(self, n: int, scratch: str, init: Callable[[], Any] | None):
+    def __init__(self, n: int, scratch: str, init: Callable[[], Any] | None, fork: bool = False):
         self.n, self.scratch, self.init = n, scratch, init
+        self.method = _start_method(fork)
         self.pool = self._make()
 
     def _make(self) -> cf.ProcessPoolExecutor:
         import multiprocessing
 
         return cf.ProcessPoolExecutor(max_workers=self.n,
-                                      mp_context=multiprocessing.get_context("spawn"),
+                                      mp_context=multiprocessing.get_context(self.method),
                                       initializer=_worker_init,
                                       initargs=(os.getpid(), self.scratch, self.init))
 
@@ -320,7 +333,7 @@ class _Dask:
 
 def run_tasks(fn: Callable[[Any], Any], items: Iterable[Any], plan: Plan, *,
               ordered: bool = False, chunk: int = 1, initializer: Callable[[], Any] | None = None,
-              ) -> Iterator[list[Outcome]]:
+              fork: bool = False) -> Iterator[list[Outcome]]:
     """Run ``fn(item)`` for every item; yield the outcomes in groups as they finish.
 
     Parameters
@@ -338,6 +351,10 @@ def run_tasks(fn: Callable[[Any], Any], items: Iterable[Any], plan: Plan, *,
         Items sent to a worker at once (small tasks: fewer round trips).
     initializer
         Run once in each local worker (warm caches); a top-level function.
+    fork
+        Fork local workers instead of spawning them (module docstring): only for callers
+        whose process holds no database connection, lock or thread; warm the caches in
+        the parent first and the workers inherit them.
 
     Each group holds the tasks that finished together (a caller saving results can
     commit a group in one transaction). A task that raised gives an
@@ -364,7 +381,7 @@ def run_tasks(fn: Callable[[Any], Any], items: Iterable[Any], plan: Plan, *,
                     _SCRATCH = before
                 return
             pool: Any = _Dask(plan.scheduler) if plan.kind == "dask" else _Local(
-                plan.workers, scratch, initializer)
+                plan.workers, scratch, initializer, fork)
             clean = False
             try:
                 yield from _drive(pool, fn, items, ordered, chunk)

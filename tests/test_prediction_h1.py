@@ -297,6 +297,11 @@ def test_property_prediction_does_not_depend_on_atom_order(smiles, seed):
     other = Chem.MolToSmiles(mol, doRandom=True, canonical=False, rootedAtAtom=seed % mol.GetNumAtoms())
 
     def signals(smi):
-        return sorted((round(g.shift, 3), g.count, g.multiplicity) for g in groups(smi))
+        return sorted((g.shift, g.count, g.multiplicity) for g in groups(smi))
 
-    assert signals(smiles) == signals(other), (smiles, other)
+    # compared within 1e-6 ppm: the terms are summed in atom order, so the last bits of a
+    # shift may differ (rounding to a fixed number of digits would flip at a boundary)
+    one, two = signals(smiles), signals(other)
+    assert len(one) == len(two), (smiles, other)
+    for (s1, n1, m1), (s2, n2, m2) in zip(one, two):
+        assert abs(s1 - s2) < 1e-6 and (n1, m1) == (n2, m2), (smiles, other)

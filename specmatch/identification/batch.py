@@ -7,15 +7,15 @@ from __future__ import annotations
 
 import json
 from contextlib import closing, nullcontext
-from typing import Any, Callable
-
-import numpy as np
+from typing import TYPE_CHECKING, Any, Callable
 
 from ..errors import SpecmatchError
-from .errormodel import ErrorModel, load_error_model
-from .hypotheses import score_hypotheses
-from .ranking import _normalise_priors, combined_score, hypothesis_posterior, log_likelihoods, softmax
-from .scoring import observed_c13, observed_h1, prepare, prepare_c13
+
+if TYPE_CHECKING:
+    from .errormodel import ErrorModel
+
+# numpy, scipy and the scorers are imported on first use: ``specmatch --help`` reads
+# FORMATS from this module and must stay fast
 
 __all__ = ["FORMATS", "rank_batch", "rank_task"]
 
@@ -59,6 +59,13 @@ def rank_task(task: Any, model: ErrorModel | None = None, max_components: int = 
     ``max_components`` (1, 2 or 3; a task's own ``"max_components"`` key wins) is
     the largest mixture scored among the hypotheses.
     """
+    import numpy as np
+
+    from .errormodel import load_error_model
+    from .hypotheses import score_hypotheses
+    from .ranking import _normalise_priors, combined_score, hypothesis_posterior, log_likelihoods, softmax
+    from .scoring import observed_c13, observed_h1, prepare, prepare_c13
+
     model = model or load_error_model()
     if not isinstance(task, dict):
         raise SpecmatchError("the task is not a JSON object")
@@ -111,6 +118,8 @@ def rank_task(task: Any, model: ErrorModel | None = None, max_components: int = 
 
 
 def _row(item: tuple[int, str, int]) -> dict[str, Any]:
+    from .errormodel import load_error_model
+
     n, line, max_components = item
     tid = None
     try:
@@ -125,13 +134,19 @@ def _row(item: tuple[int, str, int]) -> dict[str, Any]:
         return {"id": tid, "ok": False, "error": f"internal error: {type(exc).__name__}: {exc}"}
 
 
-#: tasks that pay for a worker's start-up (a task takes a few milliseconds)
-PER_WORKER = 150
+#: tasks that pay for a worker's start-up (a task takes a few milliseconds; workers are
+#: forked after the parent has loaded the scorers and the error model)
+PER_WORKER = 40
 
 
 def _warm() -> None:
-    """Worker initializer: read the error model once per worker."""
+    """Load the scorers, the predictor's tables and the error model once per process."""
+    from ..prediction.batch import warm
+    from . import hypotheses, scoring  # noqa: F401 - imported for the side effect: loaded once
+    from .errormodel import load_error_model
+
     load_error_model()
+    warm()
 
 
 def rank_batch(in_path: str, out_path: str, progress: Callable[[int, str], Any] | None = None,
@@ -159,8 +174,9 @@ def rank_batch(in_path: str, out_path: str, progress: Callable[[int, str], Any] 
     items = [(n, line, max_components) for n, line in enumerate(lines, 1)]
     failed = 0
     bar_cm = progress(len(lines), "rank") if progress else nullcontext()
+    _warm()  # before the workers are forked: they inherit the loaded modules and model
     with out, bar_cm as bar, closing(run_tasks(_row, items, plan, ordered=True, chunk=16,
-                                                initializer=_warm)) as outcomes:
+                                                initializer=_warm, fork=True)) as outcomes:
         for group in outcomes:
             for o in group:
                 # _row turns every error into a row; a lost worker still gives one

@@ -33,12 +33,48 @@ from functools import lru_cache
 from typing import Any
 
 import numpy as np
-from scipy.optimize import linear_sum_assignment
 
 from ..errors import SpecmatchError
 from ..prediction import Prediction, predict
 from ..structures import parse_structure
 from .errormodel import NucleusModel, t_logpdf
+
+
+def _load_assignment():
+    """scipy's Hungarian-algorithm solver, loaded without the rest of ``scipy.optimize``.
+
+    Importing ``scipy.optimize`` costs about 1-2 s (linear programming, interpolation,
+    FFT modules); ``rank --batch`` needs only ``linear_sum_assignment``, a compiled module
+    of its own. It is loaded by file when scipy ships it that way, else imported the
+    ordinary way.
+    """
+    import importlib.machinery
+    import importlib.util
+    import os
+    import sys
+
+    import scipy
+
+    name = "scipy.optimize._lsap"
+    if "scipy.optimize" not in sys.modules:
+        folder = os.path.join(os.path.dirname(scipy.__file__), "optimize")
+        for suffix in importlib.machinery.EXTENSION_SUFFIXES:
+            path = os.path.join(folder, "_lsap" + suffix)
+            if os.path.exists(path):
+                spec = importlib.util.spec_from_file_location(name, path)
+                if spec is not None and spec.loader is not None:
+                    module = importlib.util.module_from_spec(spec)
+                    try:
+                        spec.loader.exec_module(module)
+                        return module.linear_sum_assignment
+                    except (ImportError, AttributeError):
+                        break
+    from scipy.optimize import linear_sum_assignment as solver
+
+    return solver
+
+
+linear_sum_assignment = _load_assignment()
 
 __all__ = [
     "ObservedC13", "ObservedH1", "PreparedCandidate", "SignalRow",

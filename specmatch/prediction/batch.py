@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 from typing import Any
 
 from ..errors import SpecmatchError
@@ -27,3 +28,28 @@ def predict_row(line: str, geometry: bool = False) -> dict[str, Any]:
         return row
     except SpecmatchError as exc:
         return {"smiles": smi, "ok": False, "error": str(exc)}
+
+
+def predict_line(line: str, geometry: bool = False) -> tuple[str, str, str]:
+    """The row of one input line already written as JSON, with its status.
+
+    Returns ``(status, json_text, error)``; status is ``"ok"``, ``"skipped"`` or
+    ``"failed"``. Workers encode the row themselves, so the parent only writes text
+    (encoding is a sizeable share of a prediction's time).
+    """
+    row = predict_row(line, geometry)
+    status = "ok" if row["ok"] else ("skipped" if row.get("skipped") else "failed")
+    return status, json.dumps(row), row.get("error", "")
+
+
+def warm() -> None:
+    """Load the predictor's modules and tables once (before workers are forked, so they
+    inherit them, or in a worker that starts alone)."""
+    from . import predict
+    from .h1.tables import load_tables
+    from .hose import load_table
+
+    load_table("13C")
+    load_table("1H")
+    load_tables()
+    predict("CC=CCO", geometry=False)  # first call initialises RDKit's lazy parts

@@ -72,7 +72,8 @@ class Structure:
     stereocentres: tuple[int, ...]
     isomeric_smiles: str = ""
     specified_stereo: tuple[int, ...] = ()
-    _classes: dict[int, tuple[int, ...]] = field(default_factory=dict, repr=False, compare=False)
+    #: views derived on demand and kept with the structure (``structures.graph.graph_of``)
+    _memo: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def n_heavy(self) -> int:
@@ -296,11 +297,21 @@ def _label_atom(mol: Chem.Mol, atom: int) -> Chem.Mol:
     return rw.GetMol()
 
 
-def _stereo_elements(mol: Chem.Mol) -> list[tuple[str, int, bool]]:
-    """(type, centre atom or bond, configuration specified?) of every potential stereo element."""
-    mol = Chem.Mol(mol)
+_STEREO_KIND = {Chem.StereoType.Atom_Tetrahedral: "Atom_Tetrahedral", Chem.StereoType.Bond_Double: "Bond_Double"}
+_SPECIFIED = Chem.StereoSpecified.Specified
+
+
+def _stereo_elements(mol: Chem.Mol, *, copy: bool = True) -> list[tuple[str, int, bool]]:
+    """(type, centre atom or bond, configuration specified?) of every potential stereo element.
+
+    The search cleans the molecule's stereo flags, so it runs on a copy unless the caller
+    owns a throw-away molecule (``copy=False``).
+    """
+    if copy:
+        mol = Chem.Mol(mol)
     info = Chem.FindPotentialStereo(mol, cleanIt=True, flagPossible=True)
-    return [(str(s.type), s.centeredOn, s.specified == Chem.StereoSpecified.Specified) for s in info]
+    kind = _STEREO_KIND
+    return [(kind.get(s.type) or str(s.type), s.centeredOn, s.specified == _SPECIFIED) for s in info]
 
 
 def _mirror(mol: Chem.Mol) -> Chem.Mol:
@@ -316,10 +327,11 @@ def _mirror(mol: Chem.Mol) -> Chem.Mol:
 
 
 def _with_tag(mol: Chem.Mol, centre: int, tag: Chem.ChiralType) -> str:
+    """SMILES of `mol` (plain H already removed) with the centre's configuration set."""
     m = Chem.Mol(mol)
     m.GetAtomWithIdx(centre).SetChiralTag(tag)
     m.ClearComputedProps()
-    return Chem.MolToSmiles(Chem.RemoveHs(m))
+    return Chem.MolToSmiles(m)
 
 
 def _is_diastereotopic_after_label(labelled: Chem.Mol, centre: int) -> bool:
@@ -343,11 +355,14 @@ def _is_diastereotopic_after_label(labelled: Chem.Mol, centre: int) -> bool:
         return False
     if not all(spec for _, spec in others):
         return True
-    one = _with_tag(labelled, centre, Chem.ChiralType.CHI_TETRAHEDRAL_CW)
-    two = _with_tag(labelled, centre, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
+    # the plain H removed once (the label stays; heavy-atom indices do not change); the
+    # centre has no tag yet, so no configuration is lost
+    bare = Chem.RemoveHs(labelled) if labelled.GetNumAtoms() > labelled.GetNumHeavyAtoms() else labelled
+    one = _with_tag(bare, centre, Chem.ChiralType.CHI_TETRAHEDRAL_CW)
+    two = _with_tag(bare, centre, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
     if one == two:
         return False
-    mirror = _with_tag(_mirror(labelled), centre, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
+    mirror = _with_tag(_mirror(bare), centre, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
     return two != mirror
 
 
@@ -361,12 +376,25 @@ def _may_be_prochiral(atom: Chem.Atom, classes: tuple[int, ...]) -> bool:
     return max(counts.values(), default=0) == 2
 
 
-def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: list[tuple[str, int, bool]]
-                    ) -> tuple[frozenset[int], tuple[tuple[int, int], ...]]:
+def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: list[tuple[str, int, bool]],
+                    *, fast: bool = True) -> tuple[frozenset[int], tuple[tuple[int, int], ...]]:
+    """Diastereotopic CH2 carbons and pairs of diastereotopic twin groups.
+
+    ``fast=False`` runs the full substitution test everywhere (the tests compare both).
+    """
     # Cheap pre-test: without a stereo element or a prochiral centre nothing can be
     # diastereotopic, which spares the labelled-molecule test for most small molecules.
     if not original_stereo and not any(_may_be_prochiral(a, classes) for a in mol.GetAtoms()):
         return frozenset(), ()
+    # Fast path of the substitution test, without building the labelled molecule: when no
+    # configuration is specified, the test says "diastereotopic" as soon as the labelled
+    # centre is stereogenic and another stereo element (not a C=C) exists. Both are known
+    # beforehand in the common cases: the centre's other ligands fall in different symmetry
+    # classes (labelling only refines classes), and the unlabelled molecule already has a
+    # stereo element elsewhere (it keeps it after labelling). Every other case runs the test.
+    tetra = [(at, spec) for kind, at, spec in original_stereo if kind != "Bond_Double"]
+    fast = fast and not any(spec for _, spec in tetra)
+    elsewhere = {at for at, _ in tetra}
     ch2: set[int] = set()
     pairs: list[tuple[int, int]] = []
     for atom in mol.GetAtoms():
@@ -374,8 +402,12 @@ def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: li
         if atom.GetAtomicNum() != 6 or atom.GetHybridization() != Chem.HybridizationType.SP3:
             continue
         neighbours = [nb.GetIdx() for nb in atom.GetNeighbors()]
-        if atom.GetTotalNumHs() == 2 and len(neighbours) == 2:
-            if _is_diastereotopic_after_label(_label_one_h(mol, idx), idx):
+        n_h = atom.GetTotalNumHs()
+        other_element = fast and bool(elsewhere - {idx})
+        if n_h == 2 and len(neighbours) == 2:
+            if other_element and classes[neighbours[0]] != classes[neighbours[1]]:
+                ch2.add(idx)
+            elif _is_diastereotopic_after_label(_label_one_h(mol, idx), idx):
                 ch2.add(idx)
         by_class: dict[int, list[int]] = {}
         for nb in neighbours:
@@ -383,7 +415,12 @@ def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: li
         for members in by_class.values():
             if len(members) == 2:
                 a, b = members
-                if _is_diastereotopic_after_label(_label_atom(mol, a), idx):
+                if n_h >= 2:
+                    continue  # two H on the centre: never a stereocentre, whatever is labelled
+                rest = [x for x in neighbours if x != a and x != b]
+                if other_element and (n_h == 1 or (len(rest) == 2 and classes[rest[0]] != classes[rest[1]])):
+                    pairs.append((a, b))
+                elif _is_diastereotopic_after_label(_label_atom(mol, a), idx):
                     pairs.append((a, b))
     return frozenset(ch2), tuple(pairs)
 

@@ -55,7 +55,8 @@ from dataclasses import dataclass
 
 from rdkit import Chem
 
-_BT = Chem.BondType
+from ...structures.graph import MolGraph
+
 HETERO_ELEMENT = {"OH": "O", "OR": "O", "OC=O": "O", "OO": "O", "F": "F", "Cl": "Cl",
                   "Br": "Br", "I": "I", "N": "N", "S": "S"}
 CARBONYL_TYPES = ("CHO", "CO", "COOH", "COOR", "COX", "COOCO", "OCOO", "CON")
@@ -208,43 +209,23 @@ def _ring_bucket(size: int) -> str:
     return str(size) if size <= 7 else "8"
 
 
-_ORDER = {_BT.SINGLE: 1.0, _BT.DOUBLE: 2.0, _BT.TRIPLE: 3.0, _BT.AROMATIC: 1.5}
-
-
 class _Context:
-    """Per-molecule perception shared by all carbons (computed once)."""
+    """Per-molecule perception shared by all carbons (computed once), on the shared graph view."""
 
-    def __init__(self, mol: Chem.Mol):
+    def __init__(self, mol: Chem.Mol, graph: MolGraph | None = None):
+        g = graph if graph is not None else MolGraph(mol)
         self.mol = mol
-        n = self.n = mol.GetNumAtoms()
-        atoms = [mol.GetAtomWithIdx(i) for i in range(n)]
-        self.sym = [a.GetSymbol() for a in atoms]
-        self.arom = [a.GetIsAromatic() for a in atoms]
-        self.hs = [a.GetTotalNumHs() for a in atoms]
-        self.bonds: list[list[tuple[int, float]]] = [[] for _ in range(n)]
-        self.double_bonds: dict[tuple[int, int], Chem.Bond] = {}
-        for k in range(mol.GetNumBonds()):
-            b = mol.GetBondWithIdx(k)
-            i, j = b.GetBeginAtomIdx(), b.GetEndAtomIdx()
-            o = _ORDER.get(b.GetBondType(), 1.0)
-            self.bonds[i].append((j, o))
-            self.bonds[j].append((i, o))
-            if o == 2.0:
-                self.double_bonds[(i, j)] = b
-                self.double_bonds[(j, i)] = b
+        self.n = g.n
+        self.sym, self.arom, self.hs = g.sym, g.arom, g.nh_total
+        self.bonds = g.bonds
+        self.double_bonds = g.double_bonds
         self.types, self.internal = _atom_types(self.sym, self.arom, self.hs, self.bonds)
-        self.dist = Chem.GetDistanceMatrix(mol).astype(int).tolist()
-        self.nbrs = [[j for j, _ in bl] for bl in self.bonds]
-        self.deg = [len(v) for v in self.nbrs]
-        # other heavy substituents besides the one counted (0, 1 = terminal, 2-3 = internal)
-        ri = mol.GetRingInfo()
-        self.rings = [tuple(r) for r in ri.AtomRings()]
+        self.dist = g.dist
+        self.nbrs, self.deg = g.nbrs, g.deg
+        self.rings, self.atom_rings = g.rings, g.atom_rings
+        self._min_ring = g.min_ring_size
         self._bridged: list[bool] | None = None
         self._ranks: list[int] | None = None
-        self.atom_rings: list[list[int]] = [[] for _ in range(n)]
-        for k, r in enumerate(self.rings):
-            for x in r:
-                self.atom_rings[x].append(k)
 
     def bridged_role(self, i: int) -> str:
         """'head', 'bridge' or 'member' if atom i is in a bridged ring system, else ''."""
@@ -270,8 +251,7 @@ class _Context:
         return self._ranks
 
     def min_ring(self, i: int) -> int:
-        sizes = [len(self.rings[k]) for k in self.atom_rings[i]]
-        return min(sizes) if sizes else 0
+        return self._min_ring[i]
 
     def min_ring_of_bond(self, i: int, j: int) -> int:
         sizes = [len(self.rings[k]) for k in self.atom_rings[i] if j in self.rings[k]]
@@ -623,18 +603,27 @@ def _cn_terms(ctx: _Context, i: int) -> list[str]:
 _HNAME = ("C", "CH", "CH2", "CH3", "CH4")
 
 
+_KIND_WORD = {"sp3": "sp3", "ene": "alkene", "ar": "benzene ring", "har": "aromatic ring",
+              "yne": "alkyne", "cn": "nitrile", "allene": "allene centre"}
+
+
 def _label(kind: str, atom_type: str, h: int, terms: list[str]) -> str:
-    what = {"sp3": "sp3", "ene": "alkene", "ar": "benzene ring", "har": "aromatic ring",
-            "yne": "alkyne", "cn": "nitrile", "allene": "allene centre", "co": f"carbonyl {atom_type}",
-            "other": f"{atom_type} (no table)"}[kind]
-    alpha = sorted({x.split(":")[2] for x in terms if x.startswith("sp3:a:") and x.split(":")[2] != "C"})
+    what = _KIND_WORD.get(kind) or (f"carbonyl {atom_type}" if kind == "co" else f"{atom_type} (no table)")
+    # alpha substituents other than carbon (only sp3 carbons have sp3:a: terms)
+    alpha = sorted({x.split(":")[2] for x in terms if x.startswith("sp3:a:") and not x.startswith("sp3:a:C:")}) \
+        if kind == "sp3" else ()
     extra = f", alpha {'/'.join(alpha)}" if alpha else ""
     return f"{_HNAME[min(h, 4)]} {what}{extra}"
 
 
-def carbon_environments(mol: Chem.Mol, only: list[int] | None = None) -> list[CarbonEnvironment]:
-    """Increment terms for the carbon atoms of `mol` (all, or those in `only`), in atom order."""
-    ctx = _Context(mol)
+def carbon_environments(mol: Chem.Mol, only: list[int] | None = None, graph: MolGraph | None = None
+                        ) -> list[CarbonEnvironment]:
+    """Increment terms for the carbon atoms of `mol` (all, or those in `only`), in atom order.
+
+    ``graph`` is the molecule's shared graph view if the caller has one
+    (:func:`specmatch.structures.graph.graph_of`).
+    """
+    ctx = _Context(mol, graph)
     out = []
     for i in (range(ctx.n) if only is None else only):
         if ctx.sym[i] != "C":

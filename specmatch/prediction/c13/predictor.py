@@ -15,16 +15,14 @@ from __future__ import annotations
 import math
 from dataclasses import replace
 
-from rdkit.Chem import BondType
-
 from ...structures import Structure
+from ...structures.graph import MolGraph, graph_of
 from ...structures.molecule import deuterium_counts
 from ..hose import MolCodes, fold_of_mol, load_table, rank_tags
 from ..types import CarbonShift
 from .environment import carbon_environments, is_correction, nearest_term
 from .tables import SIGMA as _SIGMA, SUPPORT as _SUPPORT, TABLES_VERSION, VALUE as _VALUE
 
-_DOUBLE = BondType.DOUBLE
 #: Sigma added (in quadrature) for every term the tables have no row for, ppm.
 MISSING_TERM_SIGMA_PPM = 8.0
 #: Sigma added for every interaction correction never seen in the fitting data, ppm.
@@ -113,14 +111,25 @@ def _split_diastereotopic(structure: Structure, atoms: tuple[int, ...]) -> list[
     return [tuple(sorted(first + rest)), tuple(sorted(second))]
 
 
-def _on_alkene(mol, atom: int) -> bool:
+def _on_alkene(g: MolGraph, atom: int) -> bool:
     """True if the atom is bonded to a non-aromatic carbon that carries a C=C."""
-    for nb in mol.GetAtomWithIdx(atom).GetNeighbors():
-        if nb.GetSymbol() == "C" and not nb.GetIsAromatic():
-            for b in nb.GetBonds():
-                if b.GetBondType() == _DOUBLE and b.GetOtherAtom(nb).GetSymbol() == "C":
+    z, arom = g.z, g.arom
+    for nb in g.nbrs[atom]:
+        if z[nb] == 6 and not arom[nb]:
+            for other, order in g.bonds[nb]:
+                if order == 2.0 and z[other] == 6:
                     return True
     return False
+
+
+def _equivalent_carbons(structure: Structure, g: MolGraph) -> list[tuple[int, ...]]:
+    """Sets of equivalent carbons in order of first atom (``Structure.equivalence_sets("C")``)."""
+    groups: dict[int, list[int]] = {}
+    cls = structure.symmetry_classes
+    for i, z in enumerate(g.z):
+        if z == 6:
+            groups.setdefault(cls[i], []).append(i)
+    return sorted(tuple(v) for v in groups.values())
 
 
 def predict_carbons(structure: Structure, *, correction: bool = True, codes: MolCodes | None = None
@@ -148,17 +157,18 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
         not cover (those carbons get the nearest class and a large sigma).
     """
     mol = structure.mol
-    sets = structure.equivalence_sets("C")
+    g = graph_of(structure)
+    sets = _equivalent_carbons(structure, g)
     wanted = []
     split_sets = []
     for atoms in sets:
         wanted.append(atoms[0])
-        if len(atoms) > 1 and _on_alkene(mol, atoms[0]):
+        if len(atoms) > 1 and _on_alkene(g, atoms[0]):
             # twin groups on one alkene carbon are cis and trans to the far side:
             # separate lines in real spectra, so perceive each member
             wanted.extend(atoms[1:])
             split_sets.append(atoms)
-    envs = {e.atom: e for e in carbon_environments(mol, sorted(wanted))}
+    envs = {e.atom: e for e in carbon_environments(mol, sorted(wanted), g)}
     if split_sets:
         sets = [s for s in sets if s not in split_sets]
         for atoms in split_sets:

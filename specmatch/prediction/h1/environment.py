@@ -25,7 +25,7 @@ from dataclasses import dataclass
 from rdkit import Chem
 
 from ...structures import Structure
-from ...structures.molecule import DEUTERIUM_PROP
+from ...structures.graph import graph_of
 
 HALOGENS = {9: "F", 17: "Cl", 35: "Br", 53: "I"}
 _O_TYPES = {"OH", "OR", "OCOR", "OAr", "Ovinyl"}
@@ -88,28 +88,21 @@ class _Graph:
     __slots__ = ("mol", "z", "nh", "nh_total", "arom", "nbrs", "cls", "ring", "ri", "n_rings", "_sp3", "_dbl_o", "_types")
 
     def __init__(self, structure: Structure) -> None:
-        mol = structure.mol
-        self.mol = mol
-        n = mol.GetNumAtoms()
-        # index access: RDKit's sequence wrappers are slow for small molecules
-        atoms = [mol.GetAtomWithIdx(i) for i in range(n)]
-        self.z = [a.GetAtomicNum() for a in atoms]
+        # the arrays come from the graph view shared with the 13C predictor
+        view = graph_of(structure)
+        self.mol = structure.mol
+        n = view.n
+        self.z = view.z
         # nh: protons seen in 1H (D excluded: no signal, no resolved coupling); nh_total: H + D,
         # which decides the increment class (a CHD2 group is typed as a methyl)
-        self.nh_total = [a.GetTotalNumHs() for a in atoms]
-        self.nh = self.nh_total if not mol.HasProp(DEUTERIUM_PROP) else [
-            h - (a.GetIntProp(DEUTERIUM_PROP) if a.HasProp(DEUTERIUM_PROP) else 0) for h, a in zip(self.nh_total, atoms)]
-        self.arom = [a.GetIsAromatic() for a in atoms]
-        self.nbrs: list[list[tuple[int, float]]] = [[] for _ in range(n)]
-        for k in range(mol.GetNumBonds()):
-            b = mol.GetBondWithIdx(k)
-            i, j, o = b.GetBeginAtomIdx(), b.GetEndAtomIdx(), b.GetBondTypeAsDouble()
-            self.nbrs[i].append((j, o))
-            self.nbrs[j].append((i, o))
+        self.nh_total = view.nh_total
+        self.nh = view.nh
+        self.arom = view.arom
+        self.nbrs = view.bonds
         self.cls = structure.symmetry_classes
-        self.ri = mol.GetRingInfo()
-        self.ring = [self.ri.MinAtomRingSize(i) for i in range(n)]
-        self.n_rings = [self.ri.NumAtomRings(i) for i in range(n)]
+        self.ri = view.ring_info
+        self.ring = view.min_ring_size
+        self.n_rings = view.n_rings
         self._sp3 = [self.z[i] == 6 and not self.arom[i] and all(o == 1.0 for _, o in self.nbrs[i])
                      for i in range(n)]
         self._dbl_o = [any(o == 2.0 and self.z[j] == 8 for j, o in self.nbrs[i]) for i in range(n)]

@@ -10,8 +10,6 @@ first-order multiplicity with estimated J. The environments are perceived in
 
 from __future__ import annotations
 
-from dataclasses import replace
-
 from ...errors import SpecmatchError
 from ...structures import Structure
 from ...structures.molecule import deuterium_counts
@@ -60,7 +58,9 @@ def predict_protons(structure: Structure, *, correction: bool = True, codes: Mol
     _check_deuterium(structure)
     tables = load_tables()
     value, sigma, j_hz = tables.value, tables.sigma, tables.j_hz
-    groups: list[ProtonGroup] = []
+    # shift, sigma, multiplicity per site first; the groups are built once the correction
+    # is known (building a frozen group and replacing it costs more than the sums)
+    rows: list[tuple] = []
     warnings: list[str] = []
     for site in proton_sites(structure, j_hz):
         shift = 0.0
@@ -80,20 +80,21 @@ def predict_protons(structure: Structure, *, correction: bool = True, codes: Mol
         mult, js = multiplicity(site.couplings, exchangeable=site.exchangeable)
         if site.complex_multiplet and not site.exchangeable:
             mult, js = "m", ()
-        groups.append(ProtonGroup(
-            atoms=site.atoms, shift=shift, sigma=s, count=site.count, multiplicity=mult,
-            j_hz=js, exchangeable=site.exchangeable, diastereotopic=site.diastereotopic,
-            environment=site.environment, couplings=site.couplings,
-        ))
+        rows.append([site, shift, s, mult, js])
     table = load_table("1H") if correction else None
-    if table is not None and groups:
+    if table is not None and rows:
         codes = codes or MolCodes(structure.mol)
         cls = structure.symmetry_classes
         fold = fold_of_mol(structure.mol)  # None unless SPECMATCH_CROSS_VALIDATED=1
-        tags = rank_tags([cls[g.atoms[0]] for g in groups], [g.shift for g in groups])
-        for k, (g, tag) in enumerate(zip(groups, tags)):
-            corr, sigma, depth = table.correct((x + tag for x in codes.iter_codes(g.atoms[0], table.max_radius)),
-                                               g.sigma, fold)
+        tags = rank_tags([cls[r[0].atoms[0]] for r in rows], [r[1] for r in rows])
+        for row, tag in zip(rows, tags):
+            corr, sig, depth = table.correct((x + tag for x in codes.iter_codes(row[0].atoms[0], table.max_radius)),
+                                             row[2], fold)
             if depth:
-                groups[k] = replace(g, shift=g.shift + corr, sigma=sigma)
+                row[1] += corr
+                row[2] = sig
+    groups = [ProtonGroup(atoms=site.atoms, shift=shift, sigma=s, count=site.count, multiplicity=mult,
+                          j_hz=js, exchangeable=site.exchangeable, diastereotopic=site.diastereotopic,
+                          environment=site.environment, couplings=site.couplings)
+              for site, shift, s, mult, js in rows]
     return groups, warnings

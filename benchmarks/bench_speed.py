@@ -1,0 +1,165 @@
+"""Speed of prediction: per-stage time per molecule, the whole batch command, start-up.
+
+Usage::
+
+    python benchmarks/bench_speed.py ../shared/reference/nmrshiftdb2_dev.jsonl --scope core
+    python benchmarks/bench_speed.py FILE --limit 500 --stages-only     # quick, in-process only
+
+Prints its inputs (file, scope, molecules, CPUs), then
+
+- per stage, milliseconds per molecule measured in this process on fresh caches:
+  parse (``mol_from_text``), perceive (``perceive``: symmetry, stereo, diastereotopic
+  groups), the shared graph view, 13C increments + correction, 1H sites + correction,
+  the whole ``predict_structure`` and the JSON row;
+- the whole command ``specmatch predict --batch IN --out OUT`` (one process start, default
+  worker policy, and ``--workers 0``) in molecules/s, start-up included;
+- the start-up time of ``specmatch --help`` (best of 5).
+
+The scopes are those of ``../shared/tools/specbench.py`` (core: no aromatic ring, no
+carbonyl, at most 12 heavy atoms; wide: every record). Figures depend on the machine and
+its load: compare runs made on the same machine.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+
+def _smiles(path: str, scope: str, limit: int) -> list[str]:
+    from rdkit import Chem, RDLogger
+
+    RDLogger.DisableLog("rdApp.*")
+    out = []
+    with open(path, encoding="utf-8") as fh:
+        for line in fh:
+            rec = json.loads(line)
+            if scope == "core":
+                m = Chem.MolFromSmiles(rec["smiles"])
+                if m is None or m.GetNumHeavyAtoms() > 12 or "aromatic" in rec["classes"] \
+                        or "carbonyl" in rec["classes"]:
+                    continue
+            out.append(rec["smiles"])
+            if limit and len(out) >= limit:
+                break
+    return out
+
+
+def _stages(smiles: list[str]) -> None:
+    from specmatch.errors import SpecmatchError
+    from specmatch.prediction import predict_structure
+    from specmatch.prediction.c13.predictor import predict_carbons
+    from specmatch.prediction.h1.predictor import predict_protons
+    from specmatch.prediction.hose import MolCodes, load_table
+    from specmatch.structures.graph import graph_of
+    from specmatch.structures.molecule import mol_from_text, perceive
+
+    load_table("13C"), load_table("1H")
+    mols, structs = [], []
+    t = time.perf_counter()
+    for s in smiles:
+        try:
+            mols.append((s, mol_from_text(s)))
+        except SpecmatchError:
+            pass
+    t_parse = time.perf_counter() - t
+    t = time.perf_counter()
+    for s, m in mols:
+        structs.append(perceive(m, s))
+    t_perc = time.perf_counter() - t
+    n = len(structs)
+    t = time.perf_counter()
+    for st in structs:
+        graph_of(st)
+    t_graph = time.perf_counter() - t
+    t = time.perf_counter()
+    codes = [MolCodes(st.mol) for st in structs]
+    t_codes = time.perf_counter() - t
+    t = time.perf_counter()
+    for st, c in zip(structs, codes):
+        predict_carbons(st, codes=c)
+    t_c = time.perf_counter() - t
+    t = time.perf_counter()
+    for st, c in zip(structs, codes):
+        predict_protons(st, codes=c)
+    t_h = time.perf_counter() - t
+    # the whole prediction on freshly perceived structures (graph view not yet built)
+    fresh = [perceive(m, s) for s, m in mols]
+    t = time.perf_counter()
+    preds = [predict_structure(st, geometry=False) for st in fresh]
+    t_all = time.perf_counter() - t
+    t = time.perf_counter()
+    for p in preds:
+        json.dumps(p.to_dict())
+    t_json = time.perf_counter() - t
+    print(f"stages, ms per molecule ({n} molecules, this process):")
+    for name, v in (("parse (mol_from_text)", t_parse), ("perceive (Structure)", t_perc),
+                    ("graph view", t_graph), ("environment-code builder", t_codes),
+                    ("13C (environments, sums, correction)", t_c),
+                    ("1H (sites, sums, multiplets, correction)", t_h),
+                    ("predict_structure, whole", t_all), ("row to JSON", t_json)):
+        print(f"  {name:42s} {1000 * v / max(n, 1):7.3f}")
+    total = t_parse + t_perc + t_all + t_json
+    print(f"  {'parse + perceive + predict + JSON':42s} {1000 * total / max(n, 1):7.3f}"
+          f"  ({n / total:.0f} molecules/s in one process)")
+
+
+def _command(smiles: list[str], workers: str | None) -> float:
+    exe = shutil.which("specmatch", path=str(Path(sys.executable).parent)) or shutil.which("specmatch")
+    cmd = [exe] if exe else [sys.executable, "-m", "specmatch"]
+    with tempfile.TemporaryDirectory() as tmp:
+        src, out = os.path.join(tmp, "in.smi"), os.path.join(tmp, "out.jsonl")
+        Path(src).write_text("\n".join(smiles) + "\n", encoding="utf-8")
+        args = cmd + ["predict", "--batch", src, "--out", out] + (["--workers", workers] if workers else [])
+        t = time.perf_counter()
+        p = subprocess.run(args, capture_output=True, text=True)
+        wall = time.perf_counter() - t
+        if p.returncode not in (0, 1):
+            sys.exit(f"{' '.join(args)} exited {p.returncode}: {p.stderr[-2000:]}")
+    return wall
+
+
+def _startup() -> float:
+    exe = shutil.which("specmatch", path=str(Path(sys.executable).parent)) or shutil.which("specmatch")
+    cmd = [exe] if exe else [sys.executable, "-m", "specmatch"]
+    best = float("inf")
+    for _ in range(5):
+        t = time.perf_counter()
+        subprocess.run(cmd + ["--help"], capture_output=True)
+        best = min(best, time.perf_counter() - t)
+    return best
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    ap.add_argument("records", help="nmrshiftdb2-style JSON lines (smiles, classes)")
+    ap.add_argument("--scope", choices=("core", "wide"), default="core")
+    ap.add_argument("--limit", type=int, default=0, help="first N molecules of the scope (0: all)")
+    ap.add_argument("--stages-only", action="store_true", help="skip the whole-command and start-up runs")
+    a = ap.parse_args()
+    smiles = _smiles(a.records, a.scope, a.limit)
+    try:
+        cpus = len(os.sched_getaffinity(0))
+    except AttributeError:
+        cpus = os.cpu_count() or 1
+    print(f"input: {a.records} scope={a.scope} molecules={len(smiles)} cpus={cpus} "
+          f"python={sys.version.split()[0]} SPECMATCH_WORKERS={os.environ.get('SPECMATCH_WORKERS', '')!r}")
+    _stages(smiles)
+    if a.stages_only:
+        return
+    for workers in (None, "0"):
+        wall = _command(smiles, workers)
+        what = "default workers" if workers is None else f"--workers {workers}"
+        print(f"whole command, {what}: {len(smiles) / wall:.0f} molecules/s ({wall:.2f} s, start-up included)")
+    print(f"start-up, specmatch --help (best of 5): {_startup():.2f} s")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,135 @@
+"""The fast paths of prediction give the same answers as the slow ones.
+
+Speed itself is measured by ``benchmarks/bench_speed.py``, never here. These tests check
+that the shortcuts (the shared graph view, the fast path of the diastereotopic test,
+forked workers, rows encoded by the workers, lazy imports) change no result.
+
+Diastereotopicity expectations are the textbook ones (homotopic / enantiotopic /
+diastereotopic by the substitution test; Silverstein, Webster & Kiemle, "Spectrometric
+Identification of Organic Compounds", chapter on 1H NMR, chemical equivalence).
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+import pytest
+from rdkit import Chem
+
+from specmatch.executor import Plan, run_tasks
+from specmatch.prediction import predict
+from specmatch.prediction.batch import predict_line, predict_row
+from specmatch.structures import parse_structure
+from specmatch.structures.graph import graph_of
+from specmatch.structures.molecule import _diastereotopic, _stereo_elements, mol_from_text
+
+# textbook cases of each kind, and molecules where the label itself creates the second
+# stereo element (prochiral centres), ring stereo and given configurations
+CASES = [
+    "CCO",                       # ethanol CH2: enantiotopic
+    "CCC(C)O",                   # butan-2-ol C3 H2: diastereotopic
+    "CC(C)C(C)O",                # 3-methylbutan-2-ol: isopropyl methyls diastereotopic
+    "CCC(C)CC",                  # 3-methylpentane: CH2 H diastereotopic (prochiral C3)
+    "CCC(CC)(O)C",               # 3-methylpentan-3-ol
+    "OCC(O)CO",                  # glycerol: CH2 H diastereotopic
+    "CC(O)CC(C)O",               # pentane-2,4-diol, configuration not given
+    "C[C@@H](O)C[C@H](C)O",      # meso-pentane-2,4-diol: CH2 H diastereotopic
+    "C[C@@H](O)C[C@@H](C)O",     # (R,R)-pentane-2,4-diol: CH2 H homotopic (C2 axis)
+    "CC1CCC(C)CC1",              # 1,4-dimethylcyclohexane (ring stereo)
+    "C[C@H]1CC[C@@H](C)CC1",
+    "CC1CC(C)C1",
+    "CC(Br)C(C)Br",
+    "C[C@@H](Br)[C@H](C)Br",
+    "C/C=C/CBr",                 # (E)-1-bromobut-2-ene: CH2Br enantiotopic
+    "CC(C)CC(C)(O)CC(C)C",
+    "CC(Cl)CC(F)C(F)(F)C(OC)OC",
+    "CCC(C)(C)CC",
+    "CC(C)(O)C1CC1",
+    "CCOC(C)OCC",                # acetaldehyde diethyl acetal: OCH2 H diastereotopic
+]
+
+
+@pytest.mark.parametrize("smiles", CASES)
+def test_fast_diastereotopic_path_equals_the_full_substitution_test(smiles):
+    mol = mol_from_text(smiles)
+    classes = tuple(int(r) for r in Chem.CanonicalRankAtoms(mol, breakTies=False, includeChirality=False))
+    elements = _stereo_elements(mol)
+    assert _diastereotopic(mol, classes, elements) == _diastereotopic(mol, classes, elements, fast=False)
+
+
+def test_textbook_diastereotopic_answers():
+    # butan-2-ol: the C3 methylene protons are diastereotopic; ethanol's are enantiotopic
+    assert 1 in parse_structure("CCC(C)O").diastereotopic_ch2
+    assert not parse_structure("CCO").diastereotopic_ch2
+    # 3-methylpentane: C3 is prochiral, so each CH2's protons are diastereotopic
+    assert parse_structure("CCC(C)CC").diastereotopic_ch2 == frozenset({1, 4})
+    # meso- vs (R,R)-pentane-2,4-diol: only the meso CH2 has diastereotopic protons
+    assert 3 in parse_structure("C[C@@H](O)C[C@H](C)O").diastereotopic_ch2
+    assert 3 not in parse_structure("C[C@@H](O)C[C@@H](C)O").diastereotopic_ch2
+
+
+@pytest.mark.parametrize("smiles", ["CC(=O)OCC", "c1ccccc1CC=C", "[2H]C([2H])([2H])CO", "C1CC2CCC1C2",
+                                    "C#CCN", "OC1=CC=CC1"])
+def test_graph_view_reads_what_rdkit_says(smiles):
+    st = parse_structure(smiles)
+    g = graph_of(st)
+    assert graph_of(st) is g  # built once per structure
+    mol = st.mol
+    ri = mol.GetRingInfo()
+    for a in mol.GetAtoms():
+        i = a.GetIdx()
+        assert (g.z[i], g.sym[i], g.arom[i], g.nh_total[i]) == (
+            a.GetAtomicNum(), a.GetSymbol(), a.GetIsAromatic(), a.GetTotalNumHs())
+        assert sorted(g.nbrs[i]) == sorted(n.GetIdx() for n in a.GetNeighbors())
+        assert sorted(g.bonds[i]) == sorted((b.GetOtherAtomIdx(i), b.GetBondTypeAsDouble()) for b in a.GetBonds())
+        assert g.min_ring_size[i] == ri.MinAtomRingSize(i)
+        assert g.n_rings[i] == ri.NumAtomRings(i)
+    assert g.dist == Chem.GetDistanceMatrix(mol).astype(int).tolist()
+
+
+def test_deuterium_is_left_out_of_the_observed_protons():
+    g = graph_of(parse_structure("[2H]C([2H])([2H])CO"))
+    assert g.nh_total[0] == 3 and g.nh[0] == 0
+
+
+def test_predict_line_is_the_row_as_json():
+    status, text, error = predict_line("CCO")
+    assert status == "ok" and not error
+    assert json.loads(text) == json.loads(json.dumps(predict_row("CCO")))
+    assert predict_line("# a comment")[0] == "skipped"
+    status, text, error = predict_line("C1CC")
+    assert status == "failed" and "never closed" in error and json.loads(text)["ok"] is False
+
+
+def _shift_of_first_carbon(smiles: str) -> float:
+    return predict(smiles, geometry=False).carbons[0].shift
+
+
+def test_forked_workers_give_the_inline_results():
+    smiles = ["CCO", "CCCBr", "CC(C)O", "C=CCCl", "C1CC1", "CCC(C)O"] * 3
+    inline = [o for grp in run_tasks(_shift_of_first_carbon, smiles, Plan("inline", 0)) for o in grp]
+    forked = [o for grp in run_tasks(_shift_of_first_carbon, smiles, Plan("processes", 2), ordered=True,
+                                     chunk=4, fork=True) for o in grp]
+    assert [o.index for o in forked] == list(range(len(smiles)))
+    assert [o.value for o in forked] == [o.value for o in inline]
+
+
+def test_help_loads_no_numerical_library():
+    # start-up stays small when the command line is only being parsed
+    code = ("import sys; from specmatch.cli import build_parser; build_parser(); "
+            "print(','.join(m for m in ('numpy', 'scipy', 'rdkit', 'pandas') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == ""
+
+
+def test_ranking_loads_the_assignment_solver_alone():
+    code = ("import sys; import numpy as np; from specmatch.identification import scoring; "
+            "r, c = scoring.linear_sum_assignment(np.array([[4.0, 1.0, 3.0], [2.0, 0.0, 5.0], [3.0, 2.0, 2.0]])); "
+            "print(r.tolist(), c.tolist(), 'scipy.optimize' in sys.modules)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    # the example of the scipy.optimize.linear_sum_assignment documentation: optimum cost 5,
+    # rows 0, 1, 2 -> columns 1, 0, 2
+    assert out.stdout.split("]")[:2] == ["[0, 1, 2", " [1, 0, 2"]
+    assert out.stdout.strip().endswith("False")

@@ -286,6 +286,7 @@ class _State:
 
     failed: dict[int, str] = field(default_factory=dict)
     saved: set[str] = field(default_factory=set)
+    earlier: set[str] = field(default_factory=set)  # in the store before this run began
     finished: bool = False
 
 
@@ -333,6 +334,10 @@ def run_batch(manifest: str | os.PathLike, out_dir: str | os.PathLike | None = N
     state = _State()
     try:
         done = st.done_keys([s.key for s in samples if s.key])
+        # "done" vs "done-earlier" is decided against this, not against the ids this run
+        # saw saved: a signal between the store's commit and that bookkeeping must not
+        # turn an analysis of this run into an earlier one
+        state.earlier = set(done.values())
         todo = [i for i, s in enumerate(samples) if not s.error and (s.sample_id, s.key) not in done]
         for i, s in enumerate(samples):
             if s.error:
@@ -416,13 +421,13 @@ def _rows_from_store(store: Any, samples: list[Sample], state: _State) -> list[d
     for i, s in enumerate(samples):
         aid = found.get((s.sample_id, s.key)) if s.key else None
         if aid:
-            status = "done" if aid in state.saved else "done-earlier"
+            status = "done-earlier" if aid in state.earlier else "done"
             rows.append(_row(s, status, brief=brief.get(aid), analysis_id=aid))
         elif i in state.failed:
             rows.append(_row(s, "failed", error=state.failed[i]))
         else:
             rows.append(_row(s, "not-run" if state.finished or state.saved or state.failed
-                             else "pending"))
+                             or len(found) > len(state.earlier) else "pending"))
     return rows
 
 

@@ -114,15 +114,29 @@ def test_utf16_peak_list_reads_through_peaks(tmp_path):
     assert [m.multiplicity for m in pl.multiplets] == ["q", "t"]
 
 
-def _cli(*args: str, timeout: float = 60) -> tuple[subprocess.CompletedProcess, float]:
-    """Run the CLI in a child; returns the result and the child's peak resident size (MB).
+#: runs the CLI and, on exit, writes the process's own peak resident size (VmHWM: reset
+#: by exec, unlike ru_maxrss, which keeps the high-water mark of the forked test process)
+_PEAK_WRAPPER = """
+import atexit, os, runpy, sys
+def _peak():
+    with open("/proc/self/status") as fh:
+        kb = next(int(l.split()[1]) for l in fh if l.startswith("VmHWM:"))
+    with open(os.environ["SPECMATCH_TEST_PEAK_FILE"], "w") as out:
+        out.write(str(kb))
+atexit.register(_peak)
+sys.argv = ["specmatch", *sys.argv[1:]]
+runpy.run_module("specmatch", run_name="__main__")
+"""
 
-    The address space is capped (a runaway read fails fast instead of swapping); the
-    peak resident size is the child's own, from ``wait4``. It is a bound the readers must
-    stay under, not a figure: the figures come from ``benchmarks/bench_boundary.py``.
+
+def _cli(*args: str, timeout: float = 60) -> tuple[subprocess.CompletedProcess, float]:
+    """Run the CLI in a child; returns the result and the child's own peak resident size (MB).
+
+    The address space is capped (a runaway read fails fast instead of swapping). The peak
+    size is a bound the readers must stay under, not a figure: the figures come from
+    ``benchmarks/bench_boundary.py``.
     """
     import tempfile
-    import threading
 
     pre = None
     if sys.platform.startswith("linux"):
@@ -130,25 +144,17 @@ def _cli(*args: str, timeout: float = 60) -> tuple[subprocess.CompletedProcess, 
 
         def pre():  # pragma: no cover - runs in the child
             resource.setrlimit(resource.RLIMIT_AS, (1500 * 2**20, 1500 * 2**20))
-    cmd = [sys.executable, "-m", "specmatch", *args]
-    with tempfile.TemporaryFile() as out, tempfile.TemporaryFile() as err:
-        child = subprocess.Popen(cmd, stdout=out, stderr=err, preexec_fn=pre)
-        timer = threading.Timer(timeout, child.kill)  # a hang ends the run (and fails below)
-        timer.start()
-        try:
-            _, status, usage = os.wait4(child.pid, 0)
-        finally:
-            timer.cancel()
-        child.returncode = os.waitstatus_to_exitcode(status)
-        out.seek(0)
-        err.seek(0)
-        done = subprocess.CompletedProcess(cmd, child.returncode, out.read().decode(),
-                                           err.read().decode())
-    return done, usage.ru_maxrss / 1024  # kB on Linux
+    with tempfile.TemporaryDirectory() as tmp:
+        peak_file = Path(tmp) / "peak"
+        done = subprocess.run([sys.executable, "-c", _PEAK_WRAPPER, *args], capture_output=True,
+                              text=True, timeout=timeout, preexec_fn=pre,
+                              env=dict(os.environ, SPECMATCH_TEST_PEAK_FILE=str(peak_file)))
+        peak_mb = int(peak_file.read_text()) / 1024 if peak_file.exists() else float("inf")
+    return done, peak_mb
 
 
-@pytest.mark.skipif(not (os.path.exists("/dev/zero") and hasattr(os, "wait4")),
-                    reason="needs /dev/zero and wait4")
+@pytest.mark.skipif(not (os.path.exists("/dev/zero") and os.path.exists("/proc/self/status")),
+                    reason="needs /dev/zero and /proc")
 def test_cli_peaks_and_identify_on_dev_zero_exit_2_quickly_and_small():
     # the Done-when bound of the hostile-input work: exit 2, within seconds, under 300 MB
     for args in (("peaks", "/dev/zero"),

@@ -34,8 +34,8 @@ from specmatch.reports.html import report_html, structure_svg as draw_structure
 from specmatch.reports.naming import structure_class
 from specmatch.reports.nmredata import nmredata_sdf
 from specmatch.reports.journal_text import measured_peak_text
-from specmatch.reports.summary import fit_words, names_for_result, summarise
-from specmatch.spectra import peaks_from_file, process_spectrum, read_spectrum
+from specmatch.reports.verdict_card import fit_words, names_for_result, threshold_words, verdict_card
+from specmatch.spectra import Spectrum, peaks_from_file, process_spectrum, read_spectrum
 from specmatch.spectra.solvents import SOLVENTS
 from specmatch.store import Viewer, open_store, resolve_store_url, save_result
 from specmatch.structures import parse_structure
@@ -53,6 +53,11 @@ FLAG_CHOICES = ["compound", "solvent", "water", "TMS", "grease", "impurity"]
 PALETTE = ["#1D5FA8", "#D9742B", "#6C4A9E", "#2A8C6E", "#B03A5B", "#6F6A1C"]
 DASHES = ["solid", "dash", "dot", "dashdot", "longdash", "longdashdot"]
 MEASURED_COLOUR = "#22272B"
+#: how far either side of a set-aside line (solvent, water, reference) the trace is drawn
+#: pale and left out of the scaling, per nucleus (about a multiplet's half-width; common practice)
+SET_ASIDE_HALF_WIDTH_PPM = {"1H": 0.05, "13C": 0.8}
+#: a product below this mole fraction is not listed in the ratio line
+SHOWN_FRACTION_MIN = 0.005
 FLAGGED_COLOUR = "#B4B9BE"  # set-aside lines: pale grey, never a candidate hue
 SAFETY_LINE = ("Safety: corrosive acids and HX gases, toxic mercury salts, alkylating alkyl halides, "
                "peroxide-forming ethers; read the SDS.")
@@ -130,7 +135,7 @@ def read_upload(name: str, data: bytes, role: str, solvent: str | None) -> tuple
                              f"{ROLES[role]} box; drop it in the {right} box")
     try:
         read = read_spectrum(data, name=name, nucleus=nucleus)
-        if hasattr(read, "ppm"):  # a spectrum: pick lines here, keep the trace for the plots
+        if isinstance(read, Spectrum):  # a trace: pick lines here, keep it for the plots
             return process_spectrum(read, solvent=solvent, dept135=dept), read
         return peaks_from_file(data, name=name, nucleus=nucleus, solvent=solvent, dept135=dept), None
     except SpecmatchError as exc:
@@ -374,6 +379,19 @@ def _sticks(xs: list[float], ys: list[float]) -> tuple[list, list]:
     return px, py
 
 
+def _measured_sticks(fig: Any, shifts: list[float], heights: list[float], flagged: bool) -> None:
+    """The measured lines of a peak list as one stick trace: compound lines, or the
+    set-aside ones (solvent, water, reference) in their pale colour."""
+    import plotly.graph_objects as go
+
+    px, py = _sticks(shifts, heights)
+    fig.add_trace(go.Scatter(x=px, y=py, mode="lines", hoverinfo="skip",
+                             name="set-aside lines (solvent, water, reference)" if flagged
+                             else "measured lines (peak list)",
+                             line=dict(color=FLAGGED_COLOUR if flagged else MEASURED_COLOUR,
+                                       width=1.5 if flagged else 2)))
+
+
 def _stick_heights(values: list[float | None]) -> list[float]:
     """Heights from intensities, capped so one strong line does not flatten the rest."""
     import numpy as np
@@ -409,7 +427,7 @@ def spectrum_figure(peaklist: Any, spectrum: Any, full: bool, dept_h: dict[int, 
         near = np.zeros_like(x, bool)
         for p in peaks:  # set-aside lines (solvent, water, reference) drawn pale
             if p.flag:
-                near |= np.abs(x - p.shift) < (0.05 if nucleus == "1H" else 0.8)
+                near |= np.abs(x - p.shift) < SET_ASIDE_HALF_WIDTH_PPM[nucleus]
         for part, colour, label in ((~near, MEASURED_COLOUR, "measured spectrum"),
                                     (near, FLAGGED_COLOUR, "set-aside lines (solvent, water, reference)")):
             if part.any():
@@ -421,12 +439,7 @@ def spectrum_figure(peaklist: Any, spectrum: Any, full: bool, dept_h: dict[int, 
             if not sel:
                 continue
             hs = _stick_heights([p.intensity for p in sel]) if not flagged else [0.5] * len(sel)
-            px, py = _sticks([p.shift for p in sel], hs)
-            fig.add_trace(go.Scatter(x=px, y=py, mode="lines", hoverinfo="skip",
-                                     name="set-aside lines (solvent, water, reference)" if flagged
-                                     else "measured lines (peak list)",
-                                     line=dict(color=FLAGGED_COLOUR if flagged else MEASURED_COLOUR,
-                                               width=1.5 if flagged else 2)))
+            _measured_sticks(fig, [p.shift for p in sel], hs, flagged)
     if not mults:
         sel = [p for p in peaks if window[0] <= p.shift <= window[1]]
         for flagged in (False, True):
@@ -478,14 +491,14 @@ def overlay_figure(result: Any, nucleus: str, peaklist: Any, spectrum: Any,
         flagged_mask = np.zeros_like(axis, bool)
         for p in peaklist.peaks:  # scale on compound lines only: a solvent line must not set the height
             if p.flag:
-                flagged_mask |= np.abs(axis - p.shift) < (0.05 if nucleus == "1H" else 0.8)
+                flagged_mask |= np.abs(axis - p.shift) < SET_ASIDE_HALF_WIDTH_PPM[nucleus]
         ref = meas[inside & ~flagged_mask]
         scale = float(np.max(ref)) if ref.size and np.max(ref) > 0 else float(np.max(meas)) or 1.0
         x, y = _thin(axis[inside], meas[inside] / scale)
         near = np.zeros_like(x, bool)
         for p in peaklist.peaks:
             if p.flag:
-                near |= np.abs(x - p.shift) < (0.05 if nucleus == "1H" else 0.8)
+                near |= np.abs(x - p.shift) < SET_ASIDE_HALF_WIDTH_PPM[nucleus]
         for part, colour, label in ((~near, MEASURED_COLOUR, "measured spectrum"),
                                     (near, FLAGGED_COLOUR, "set-aside lines (solvent, water, reference)")):
             if part.any():  # NaN breaks the line between the parts
@@ -502,12 +515,7 @@ def overlay_figure(result: Any, nucleus: str, peaklist: Any, spectrum: Any,
                 hs = _stick_heights([p.intensity for p in sel]) if not flagged else [0.5] * len(sel)
             if not sel:
                 continue
-            px, py = _sticks([p.shift for p in sel], hs)
-            fig.add_trace(go.Scatter(x=px, y=py, mode="lines", hoverinfo="skip",
-                                     name="set-aside lines (solvent, water, reference)" if flagged
-                                     else "measured lines (peak list)",
-                                     line=dict(color=FLAGGED_COLOUR if flagged else MEASURED_COLOUR,
-                                               width=1.5 if flagged else 2)))
+            _measured_sticks(fig, [p.shift for p in sel], hs, flagged)
     freq = spectrum.frequency_mhz if (spectrum is not None and spectrum.frequency_mhz) else (
         frequency_mhz if nucleus == "1H" else frequency_mhz / 4.0)
     for i, (smiles, label, pred) in enumerate(preds):
@@ -869,7 +877,7 @@ def results_view(spectra: dict[str, Any], result: Any, note: str | None, why: st
         return None
     result = refined_result(result, spectra)
     names = names_for_result(result)
-    verdict_card(result, names)
+    show_verdict_card(result, names)
     if note:
         st.warning(note)
     cautions = list(result.ranking.cautions) + list(result.cautions)
@@ -890,8 +898,8 @@ def results_view(spectra: dict[str, Any], result: Any, note: str | None, why: st
     return result
 
 
-def verdict_card(result: Any, names: dict) -> None:
-    s = summarise(result, names)
+def show_verdict_card(result: Any, names: dict) -> None:
+    s = verdict_card(result, names)
     with st.container(border=True):
         left, right = st.columns([2, 3])
         with left:
@@ -970,13 +978,13 @@ def mixture_panel(result: Any, names: dict, spectra: dict[str, Any]) -> None:
     if mix is not None:
         code = lambda s: names[s].code if s in names else s  # noqa: E731
         pairs = sorted(((f, s, u) for s, f, u in zip(mix.candidates, mix.fractions, mix.uncertainties)
-                        if f >= 0.005), reverse=True)
+                        if f >= SHOWN_FRACTION_MIN), reverse=True)
         spread = " · ".join(f"{code(s)} {fmt.percent(f)} ± {fmt.percent(u)}" for f, s, u in pairs)
         if len(pairs) >= 2:
             st.markdown(f"**{':'.join(f'{100 * f:.0f}' for f, _, _ in pairs)}** "
                         f"({' : '.join(code(s) for _, s, _ in pairs)}) — {mix.selectivity} · {spread}")
         elif pairs:
-            st.markdown(f"**{code(pairs[0][1])}** only (no second product above 0.5%) — {mix.selectivity}")
+            st.markdown(f"**{code(pairs[0][1])}** only (no second product above {fmt.percent(SHOWN_FRACTION_MIN)}) — {mix.selectivity}")
         if mix.disagreement:  # both values in view: the fit's and the integrals'
             both = [w for w in mix.warnings if w.startswith("the full fit")]
             order = " : ".join(code(s) for s in mix.candidates)
@@ -1097,8 +1105,8 @@ def signal_table(result: Any, names: dict) -> None:
                   "largest deviation (expected errors)": f"{c.worst_deviation_sigma:.1f}"} for c in cands]
         st.dataframe(pd.DataFrame(stats), hide_index=True, width="stretch")
         v = result.ranking.verdict
-        st.caption(f"The verdict word follows fixed thresholds on the probability ({v.basis}); "
-                   "see the report for the per-signal deviations in units of the expected error.")
+        st.caption(f"The verdict word follows fixed thresholds on the probability ({v.basis}; "
+                   f"{threshold_words()}); see the report for the per-signal deviations in units of the expected error.")
 
 
 # ----------------------------------------------------------------------------- export and store

@@ -91,3 +91,30 @@ def test_library_never_imports_streamlit():
                      getattr(n, "module", None) or " ".join(a.name for a in n.names))
                         for n in ast.walk(ast.parse(p.read_text(encoding="utf-8"))))]
     assert not offenders, offenders
+
+
+def _calls(name: str) -> list[str]:
+    """Every place in the package (and app.py) that calls `<anything>.name(...)` or `name(...)`."""
+    out = []
+    for path in sorted(PACKAGE.rglob("*.py")) + [PACKAGE.parent / "app.py"]:
+        for n in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            if isinstance(n, ast.Call):
+                f = n.func
+                called = f.attr if isinstance(f, ast.Attribute) else getattr(f, "id", None)
+                if called == name:
+                    out.append(f"{path.relative_to(PACKAGE.parent)}:{n.lineno}")
+    return out
+
+
+def test_canonical_smiles_are_written_in_one_place():
+    # structures.mol_smiles is the one writer (isomeric or constitution); a second
+    # writer could disagree on flags and split one structure into two keys
+    assert [p.split(":")[0] for p in _calls("MolToSmiles")] == ["specmatch/structures/molecule.py"]
+
+
+def test_own_types_are_not_probed():
+    # hasattr/getattr on our own contracts hides renames; isinstance or the type itself says it
+    probes = [p for p in _calls("hasattr") + _calls("getattr")
+              if p.startswith(("specmatch/reports/", "specmatch/reactions/"))]
+    probes += [p for p in _calls("hasattr") if p.startswith("app.py")]
+    assert not probes, probes

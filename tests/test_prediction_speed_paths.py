@@ -133,3 +133,12 @@ def test_ranking_loads_the_assignment_solver_alone():
     # rows 0, 1, 2 -> columns 1, 0, 2
     assert out.stdout.split("]")[:2] == ["[0, 1, 2", " [1, 0, 2"]
     assert out.stdout.strip().endswith("False")
+
+
+def test_batch_prediction_loads_neither_numpy_nor_the_3d_layer():
+    # predict --batch without --stereo-3d needs neither (the 3D layer and numpy cost start-up)
+    code = ("import sys; from specmatch.prediction.batch import predict_line, warm; warm(); "
+            "[predict_line(s) for s in ('CC(C)C(C)O', 'C=CCBr', 'C[C@@H](O)C[C@H](C)O', 'c1ccccc1O')]; "
+            "print(','.join(m for m in ('numpy', 'specmatch.prediction.stereo') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == ""

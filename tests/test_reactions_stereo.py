@@ -199,3 +199,17 @@ def test_hbr_peroxides_leaves_little_markovnikov_bromide():
         res = enumerate_products(alkene, "HBr/ROOR")
         assert prior(res, anti) > 0.9
         assert prior(res, markov) < 0.05
+
+
+def test_configuration_labels_count_the_substrate_as_typed():
+    # one numbering in every output: C1, C2, ... are the 1-based heavy atoms of the
+    # substrate SMILES as written, so the same alkene typed two ways names its
+    # alkene carbons differently, and each time as the user counts them
+    # (1-methylcyclohexene + Br2: anti addition across the ring C=C, racemic trans dibromide)
+    for typed, ends in (("CC1=CCCCC1", ("C2", "C3")), ("C1CCC(C)=CC1", ("C4", "C6"))):
+        e = enumerate_products(typed, "Br2")
+        top = e.candidates[0]
+        assert top.racemic
+        for label in ends:
+            assert f"{label} R*" in top.configuration or f"{label} S*" in top.configuration, top.configuration
+        assert any(f"C{ends[0][1:]}=C{ends[1][1:]}" in step for step in top.pathway), top.pathway

@@ -64,3 +64,25 @@ def test_smiles_writes_csv_and_jcamp(tmp_path, capsys):
     assert spec.intensity.max() > 0
     assert main(["simulate", "CCBr", "--out", str(tmp_path / "s.txt")]) == 2
     assert "use a .csv or .jdx" in capsys.readouterr().err
+
+
+# ------------------------------------------------------------- identify --field
+def test_identify_field_sets_the_peak_list_frequency(tmp_path, capsys):
+    from pathlib import Path
+
+    from specmatch.cli.identify import _h1_at_field
+    from specmatch.errors import SpecmatchError
+
+    demo = Path(__file__).resolve().parents[1] / "sample_spectra"
+    pl = _h1_at_field(str(demo / "c_methylbutene_hcl_60MHz_1H_peaks.csv"), 60.0, "CDCl3")
+    assert pl.frequency_mhz == 60.0 and pl.multiplets
+    # a spectrum states its own field: a contradicting --field is refused, one line, exit 2
+    jdx = str(demo / "c_methylbutene_hcl_60MHz_1H.jdx")
+    assert _h1_at_field(jdx, 60.0, None) == jdx
+    with pytest.raises(SpecmatchError, match="60 MHz"):
+        _h1_at_field(jdx, 400.0, None)
+    cands = tmp_path / "candidates.smi"
+    cands.write_text("CCC(C)(C)Cl\nCC(Cl)C(C)C\n")
+    assert main(["identify", "--candidates", str(cands), "--h1", jdx, "--field", "-5"]) == 2
+    err = capsys.readouterr().err
+    assert "--field" in err and "Traceback" not in err

@@ -155,3 +155,31 @@ def test_exact_polish_recovers_a_benchtop_ratio():
     assert any("exact second-order" in n for n in fit.notes)
     assert fit.chi2_red < 2.0 < first.chi2_red
     assert fit.fractions == pytest.approx([0.65, 0.35], abs=0.01)
+
+
+@pytest.mark.parametrize("smiles, j_published", [
+    # trans-4-tert-butylcyclohexan-1-ol: H1 axial, tt with J(ax,ax) 11.1 and J(ax,eq) 4.3 Hz, so
+    # 7.7 Hz averaged over the two C2 protons; cis: H1 equatorial, J about 3 Hz to both
+    # (values from memory, as tabulated e.g. in H. Gunther, NMR Spectroscopy, 3rd ed., Wiley 2013)
+    ("O[C@H]1CC[C@H](C(C)(C)C)CC1", 7.7),
+    ("O[C@H]1CC[C@@H](C(C)(C)C)CC1", 3.0),
+])
+def test_geometric_3j_from_the_3d_layer(smiles, j_published):
+    from specmatch.prediction.couplings import geometric_from_3d
+
+    pred = predict(smiles)
+    geo = geometric_from_3d(pred)
+    assert geo is not None
+    h1 = next(i for i, g in enumerate(pred.protons) if g.atoms == (1,))
+    ring = [i for i, g in enumerate(pred.protons) if g.atoms == (2, 10)]
+    topo = coupling_network(pred)
+    net = coupling_network(pred, geometric=True)
+    pairs = [(i, j, v) for i, j, v in net.couplings
+             if {net.group_of_spin[i], net.group_of_spin[j]} & {h1} and
+             ({net.group_of_spin[i], net.group_of_spin[j]} - {h1}) <= set(ring)]
+    assert pairs
+    mean = float(np.mean([v for _, _, v in pairs]))
+    assert mean == pytest.approx(j_published, abs=1.0)
+    # the topological value does not know the conformation: it is not what 3D gives
+    topo_mean = float(np.mean([v for i, j, v in topo.couplings if (i, j) in {(a, b) for a, b, _ in pairs}]))
+    assert abs(topo_mean - mean) > 0.5

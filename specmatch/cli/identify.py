@@ -19,13 +19,17 @@ def cmd_identify(args: argparse.Namespace) -> int:
     if bool(args.substrate) != bool(args.reagent):
         raise SpecmatchError("give both --substrate and --reagent, or neither (with --candidates FILE)")
     extra: list[str] = []
+    names: dict[str, str] = {}
     if args.candidates:
-        extra = [c.smiles for c in read_candidates(args.candidates)]
+        lines = read_candidates(args.candidates)
+        extra = [c.smiles for c in lines]
+        names = {c.smiles: c.name for c in lines if c.name != c.smiles}
+    h1 = _h1_at_field(args.h1, args.field, args.solvent) if args.field is not None else args.h1
     result = identify(
         substrate=args.substrate, reagent=args.reagent, alcohol=args.alcohol,
-        c13=args.c13, h1=args.h1, dept135=args.dept135, solvent=args.solvent,
+        c13=args.c13, h1=h1, dept135=args.dept135, solvent=args.solvent,
         candidates=extra, mixture=args.mixture, use_prior=not args.no_prior,
-        max_components=args.max_components,
+        max_components=args.max_components, candidate_names=names,
     )
     if args.report:
         from ..reports.html import write_report
@@ -53,6 +57,30 @@ def cmd_identify(args: argparse.Namespace) -> int:
         print(f"saved as analysis {saved_id} (see 'specmatch history show {saved_id[:12]}')",
               file=sys.stderr if args.json else sys.stdout)
     return 0
+
+
+def _h1_at_field(path, field: float, solvent):
+    """The 1H peak list read with the spectrometer field given by --field (spectra state their own)."""
+    import dataclasses
+    import math
+    import os
+
+    from ..spectra import PeakList, peaks_from_file, read_spectrum
+
+    if not (math.isfinite(field) and 20.0 <= field <= 1300.0):
+        raise SpecmatchError(f"--field {field:g}: give the 1H frequency in MHz (e.g. 60 or 400)")
+    if path is None:
+        raise SpecmatchError("--field sets the field of the 1H peak list: give it with --h1")
+    if not os.path.exists(path):
+        return path  # identify says what is wrong with the path
+    got = read_spectrum(os.fspath(path), nucleus="1H")
+    if not isinstance(got, PeakList):
+        if got.frequency_mhz and abs(got.frequency_mhz - field) > 0.5:
+            raise SpecmatchError(f"{os.path.basename(path)} was recorded at {got.frequency_mhz:g} MHz "
+                                 f"(.OBSERVE FREQUENCY) but --field says {field:g}; drop --field")
+        return path
+    pl = peaks_from_file(os.fspath(path), nucleus="1H", solvent=solvent)
+    return dataclasses.replace(pl, frequency_mhz=float(field))
 
 
 # -------------------------------------------------------------------------- mixture
@@ -83,6 +111,8 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--h1", metavar="FILE")
     p.add_argument("--dept135", metavar="FILE")
     p.add_argument("--solvent", metavar="NAME")
+    p.add_argument("--field", type=float, metavar="MHZ",
+                   help="1H frequency of a --h1 peak list (spectrum files state their own)")
     p.add_argument("--candidates", metavar="FILE",
                    help="candidate SMILES, one per line (added to the reaction's, or alone)")
     p.add_argument("--mixture", action="store_true", help="also estimate the product ratio from 1H")

@@ -12,7 +12,7 @@ def cmd_peaks(args: argparse.Namespace) -> int:
     from ..spectra import peaks_from_file
 
     peaklist = peaks_from_file(args.file, nucleus=args.nucleus, solvent=args.solvent,
-                               dept135=args.dept135, total_h=getattr(args, "total_h", None))
+                               dept135=args.dept135, total_h=args.total_h)
     if args.formula and peaklist.nucleus == "1H":
         from ..spectra import scale_integrals
 

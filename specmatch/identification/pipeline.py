@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import os
 from dataclasses import replace
-from typing import Any, Sequence
+from typing import Any, Mapping, Sequence
 
 from .. import __version__
 from ..errors import SpecmatchError
@@ -76,7 +76,7 @@ def _mixture_candidates(ranking) -> list[str]:
 def _lines(x: Any) -> list[Any]:
     if x is None:
         return []
-    if hasattr(x, "compound_peaks"):
+    if isinstance(x, PeakList):
         return list(x.compound_peaks())
     return list(x)
 
@@ -91,9 +91,9 @@ def merge_dept(c13: Any, dept: Any, tol_ppm: float = DEPT_MATCH_PPM) -> list[dic
     """
     d_lines = []
     for p in _lines(dept):
-        sign = getattr(p, "sign", None) if not isinstance(p, dict) else p.get("sign")
+        sign = p.get("sign") if isinstance(p, dict) else p.sign
         if sign is None:
-            inten = getattr(p, "intensity", None) if not isinstance(p, dict) else p.get("intensity")
+            inten = p.get("intensity") if isinstance(p, dict) else p.intensity
             sign = 0 if inten is None else (1 if inten > 0 else -1)
         shift = p["shift"] if isinstance(p, dict) else p.shift
         d_lines.append((float(shift), int(sign)))
@@ -102,9 +102,12 @@ def merge_dept(c13: Any, dept: Any, tol_ppm: float = DEPT_MATCH_PPM) -> list[dic
         return [{"shift": s, "sign": g, "hydrogens": 2 if g < 0 else None} for s, g in d_lines]
     out = []
     for p in c_lines:
-        shift = float(p["shift"] if isinstance(p, dict) else getattr(p, "shift", p))
-        known_h = p.get("hydrogens") if isinstance(p, dict) else getattr(p, "hydrogens", None)
-        inten = p.get("intensity") if isinstance(p, dict) else getattr(p, "intensity", None)
+        if isinstance(p, dict):
+            shift, known_h, inten = float(p["shift"]), p.get("hydrogens"), p.get("intensity")
+        elif isinstance(p, Peak):
+            shift, known_h, inten = float(p.shift), p.hydrogens, p.intensity
+        else:  # a bare ppm value
+            shift, known_h, inten = float(p), None, None
         near = sorted((abs(s - shift), g) for s, g in d_lines if abs(s - shift) <= tol_ppm)
         if known_h is not None:
             row = {"shift": shift, "hydrogens": known_h}
@@ -193,7 +196,8 @@ def _candidate_smiles(text: str) -> str:
 def identify(substrate: str | None = None, reagent: str | None = None, *, alcohol: str | None = None,
              c13: Any = None, h1: Any = None, dept135: Any = None, solvent: str | None = None,
              candidates: Sequence[str] = (), mixture: bool = False, use_prior: bool = True,
-             max_shifts: int = 2, max_components: int = 2, model: ErrorModel | None = None) -> Result:
+             max_shifts: int = 2, max_components: int = 2, model: ErrorModel | None = None,
+             candidate_names: Mapping[str, str] | None = None) -> Result:
     """Which isomer was made? Enumerate, read, predict, rank.
 
     Parameters
@@ -211,6 +215,9 @@ def identify(substrate: str | None = None, reagent: str | None = None, *, alcoho
         Solvent name, used to flag its lines.
     candidates : sequence of str
         The chemist's own candidate SMILES, added to the enumerated ones.
+    candidate_names : mapping of str to str, optional
+        Names for some of `candidates` (SMILES as given -> name, e.g. from a candidate
+        file); the others are labelled "your candidate".
     mixture : bool
         Also estimate the product ratio from the 1H spectrum.
     use_prior : bool
@@ -251,7 +258,8 @@ def identify(substrate: str | None = None, reagent: str | None = None, *, alcoho
         if key in seen:
             continue
         seen.add(key)
-        items.append({"smiles": smi, "label": "your candidate", "pathway": "given by the user",
+        label = (candidate_names or {}).get(smi) or "your candidate"
+        items.append({"smiles": smi, "label": label, "pathway": "given by the user",
                       "role": "user", "prior": None})
     if not items:
         raise SpecmatchError("no candidates: give a substrate and reagent, or candidate SMILES")

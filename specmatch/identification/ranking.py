@@ -348,6 +348,13 @@ def combined_score(lc: np.ndarray, lh: np.ndarray, model: ErrorModel) -> np.ndar
 
 
 # --------------------------------------------------------------------- rank
+def _candidate_type() -> type:
+    # imported here: the reactions stage (enumeration) is not needed to rank given SMILES
+    from ..reactions.types import Candidate
+
+    return Candidate
+
+
 def _candidate_fields(item: Any) -> tuple[str, dict[str, Any]]:
     if isinstance(item, str):
         return item, {}
@@ -355,9 +362,12 @@ def _candidate_fields(item: Any) -> tuple[str, dict[str, Any]]:
         if not isinstance(item.get("smiles"), str):
             raise SpecmatchError("a candidate given as a dict needs a 'smiles' string")
         f = {k: item.get(k) for k in ("label", "pathway", "role", "prior")}
-    else:
-        f = {k: getattr(item, k, None) for k in ("label", "pathway", "role", "prior")}
+    elif isinstance(item, _candidate_type()):
+        f = {"label": item.label, "pathway": item.pathway, "role": item.role, "prior": item.prior}
         item = {"smiles": item.smiles}
+    else:
+        raise SpecmatchError(f"a candidate is a SMILES string, a dict with 'smiles' or an enumerated "
+                             f"Candidate, not {type(item).__name__}")
     if isinstance(f.get("pathway"), (list, tuple)):
         f["pathway"] = " -> ".join(str(x) for x in f["pathway"])
     return str(item["smiles"]), f

@@ -29,8 +29,9 @@ ADVISORY_CAUTION = (
 
 #: version of the dict layout written by Result.to_dict. 1: the layout before
 #: hypotheses (no schema_version key); 2: hypotheses, p_present, verdict kind,
-#: observed peak lists, full-precision numbers.
-RESULT_SCHEMA_VERSION = 2
+#: observed peak lists, full-precision numbers; 3: atom numbers in the per-signal
+#: tables 1-based, as in every user-facing output (were RDKit's 0-based indices).
+RESULT_SCHEMA_VERSION = 3
 
 
 # ----------------------------------------------------------- peak-list codec
@@ -106,6 +107,20 @@ def _migrate_v1(d: Mapping[str, Any]) -> dict[str, Any]:
     return out
 
 
+def _migrate_v2(d: Mapping[str, Any]) -> dict[str, Any]:
+    """A version-2 dict in the version-3 layout: table atom numbers from 0 to 1-based."""
+    out = dict(d)
+    cands = []
+    for c in d.get("candidates") or ():
+        c = dict(c)
+        for key in ("c13_table", "h1_table"):
+            c[key] = [{**row, "atoms": [int(a) + 1 for a in row.get("atoms") or ()]}
+                      for row in c.get(key) or ()]
+        cands.append(c)
+    out["candidates"] = cands
+    return out
+
+
 # ---------------------------------------------------------------------- Result
 @dataclass(frozen=True)
 class Result:
@@ -159,8 +174,10 @@ class Result:
         observed        {c13, h1, dept135: peak list dict or None}
 
     ``Result.from_dict(r.to_dict()) == r`` holds (numbers are written at full
-    precision). Dicts without ``schema_version`` (saved before version 2) are
-    read by :meth:`from_dict` too; missing new fields get neutral values.
+    precision). Atom numbers (``c13_table``/``h1_table`` ``atoms``) are 1-based in
+    the dict, 0-based on the objects. Dicts of older schema versions are read by
+    :meth:`from_dict` too (version 1: missing fields get neutral values; version 2:
+    0-based atom numbers are shifted).
     """
 
     ranking: Ranking
@@ -233,6 +250,8 @@ class Result:
                                  "update specmatch to read it")
         if version < 2:
             d = _migrate_v1(d)
+        if version < 3:
+            d = _migrate_v2(d)
         rd = dict(d)
         rd["cautions"] = d["ranking_cautions"]
         analysis = tuple(d.get("analysis_cautions") or ())

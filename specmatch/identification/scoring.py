@@ -36,6 +36,7 @@ import numpy as np
 
 from ..errors import SpecmatchError
 from ..prediction import Prediction, predict
+from ..spectra.types import Multiplet, Peak, PeakList
 from ..structures import parse_structure
 from .errormodel import NucleusModel, t_logpdf
 
@@ -138,7 +139,7 @@ def observed_c13(lines: Any) -> ObservedC13:
     and impurity lines are left out)."""
     if lines is None:
         lines = []
-    if hasattr(lines, "compound_peaks"):
+    if isinstance(lines, PeakList):
         lines = lines.compound_peaks()
     shifts, hyd, sign, inten = [], [], [], []
     for i, item in enumerate(lines):
@@ -147,11 +148,10 @@ def observed_c13(lines: Any) -> ObservedC13:
             if "shift" not in item:
                 raise SpecmatchError(f"{what} has no 'shift' (give {{\"shift\": ppm, \"hydrogens\": n}})")
             s, h, sg, it = item["shift"], item.get("hydrogens"), item.get("sign"), item.get("intensity")
-        elif hasattr(item, "shift"):
-            if getattr(item, "flag", None):
+        elif isinstance(item, Peak):
+            if item.flag:
                 continue
-            s, h, sg = item.shift, getattr(item, "hydrogens", None), getattr(item, "sign", None)
-            it = getattr(item, "intensity", None)
+            s, h, sg, it = item.shift, item.hydrogens, item.sign, item.intensity
         else:
             s, h, sg, it = item, None, None, None
         inten.append(float("nan") if it is None else abs(_num(it, what + " intensity")))
@@ -179,7 +179,7 @@ def observed_h1(multiplets: Any) -> ObservedH1:
     :class:`~specmatch.spectra.types.Multiplet` objects or a ``PeakList``."""
     if multiplets is None:
         multiplets = []
-    if hasattr(multiplets, "compound_multiplets"):
+    if isinstance(multiplets, PeakList):
         multiplets = multiplets.compound_multiplets()
     shifts, ints, mults, js = [], [], [], []
     for i, item in enumerate(multiplets):
@@ -189,11 +189,14 @@ def observed_h1(multiplets: Any) -> ObservedH1:
                 raise SpecmatchError(f"{what} has no 'shift' (give {{\"shift\": ppm, \"integral\": n}})")
             s, it = item["shift"], item.get("integral")
             mu, j = item.get("multiplicity") or "", item.get("j_hz") or ()
-        elif hasattr(item, "shift"):
-            if getattr(item, "flag", None):
+        elif isinstance(item, Multiplet):
+            if item.flag:
                 continue
-            s, it = item.shift, getattr(item, "integral", None)
-            mu, j = getattr(item, "multiplicity", "") or "", getattr(item, "j_hz", ()) or ()
+            s, it, mu, j = item.shift, item.integral, item.multiplicity or "", item.j_hz or ()
+        elif isinstance(item, Peak):  # a picked line without multiplet analysis
+            if item.flag:
+                continue
+            s, it, mu, j = item.shift, None, "", ()
         else:
             s, it, mu, j = item, None, "", ()
         v = _num(s, what)
@@ -339,13 +342,14 @@ class SignalRow:
             object.__setattr__(self, "observed_integral", None)
 
     def to_dict(self) -> dict[str, Any]:
+        """JSON form; ``atoms`` 1-based as in every user-facing output (Result schema 3)."""
         r = lambda x: None if x is None else float(x)
         i = lambda x: None if x is None else int(x)
         return {
             "nucleus": self.nucleus, "status": self.status,
             "observed_ppm": r(self.observed_ppm), "predicted_ppm": r(self.predicted_ppm),
             "sigma_ppm": r(self.sigma_ppm), "deviation_sigma": r(self.deviation_sigma),
-            "atoms": [int(a) for a in self.atoms], "hydrogens": i(self.hydrogens), "protons": i(self.protons),
+            "atoms": [int(a) + 1 for a in self.atoms], "hydrogens": i(self.hydrogens), "protons": i(self.protons),
             "observed_integral": r(self.observed_integral), "multiplicity": self.multiplicity,
             "environment": self.environment, "observed_index": i(self.observed_index),
             "log_likelihood": float(self.log_likelihood),
@@ -356,7 +360,7 @@ class SignalRow:
         r = lambda k: None if d.get(k) is None else float(d[k])
         i = lambda k: None if d.get(k) is None else int(d[k])
         return cls(d["nucleus"], r("observed_ppm"), r("predicted_ppm"), r("sigma_ppm"), r("deviation_sigma"),
-                   tuple(int(a) for a in d.get("atoms") or ()), i("hydrogens"), d.get("environment") or "",
+                   tuple(int(a) - 1 for a in d.get("atoms") or ()), i("hydrogens"), d.get("environment") or "",
                    d.get("status") or "assigned", i("observed_index"), i("protons"), r("observed_integral"),
                    d.get("multiplicity") or "", float(d.get("log_likelihood") or 0.0))
 

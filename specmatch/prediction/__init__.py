@@ -30,7 +30,6 @@ def predict_structure(structure: Structure, *, geometry: bool = True) -> Predict
     from .c13.predictor import TABLES_VERSION as C_VERSION, predict_carbons
     from .h1.predictor import TABLES_VERSION as H_VERSION, predict_protons
     from .hose import MolCodes
-    from .stereo import apply_stereo_layer, needs_stereo_layer
 
     codes = MolCodes(structure.mol)  # one code builder for both nuclei
     carbons, c_warn = predict_carbons(structure, codes=codes)
@@ -43,9 +42,13 @@ def predict_structure(structure: Structure, *, geometry: bool = True) -> Predict
         warnings=tuple(dict.fromkeys([*c_warn, *h_warn])),
         tables_version=f"13C {C_VERSION}; 1H {H_VERSION}",
     )
-    if geometry and needs_stereo_layer(structure):
-        # relative configuration specified and relevant: 3D ensemble layer (prediction/stereo.py)
-        prediction = apply_stereo_layer(structure, prediction)
+    if geometry:
+        # imported here: batch predictions without the layer never load it (nor numpy)
+        from .stereo import apply_stereo_layer, needs_stereo_layer
+
+        if needs_stereo_layer(structure):
+            # relative configuration specified and relevant: 3D ensemble layer (prediction/stereo.py)
+            prediction = apply_stereo_layer(structure, prediction)
     return prediction
 
 

@@ -15,8 +15,9 @@ and signed couplings between them, from the constitution:
 
 Every number is a row of ``tables/h1_coupling.csv`` with its source. A topological
 vicinal value can be replaced by a geometric one (3D conformers, Karplus-type
-relation) through ``geometric``. Couplings through O/N/S-H are left out (exchange
-averages them away; common practice). The network is cached per structure.
+relation) through ``geometric`` (``geometric=True``: from the 3D layer, Haasnoot-de
+Leeuw-Altona 3J over the conformers, where the molecule has one). Couplings through
+O/N/S-H are left out (exchange averages them away; common practice). The network is cached per structure.
 """
 
 from __future__ import annotations
@@ -32,7 +33,7 @@ import numpy as np
 from ..errors import SpecmatchError
 from .types import Prediction
 
-__all__ = ["SpinNetwork", "coupling_network", "coupling_table"]
+__all__ = ["SpinNetwork", "coupling_network", "coupling_table", "geometric_from_3d"]
 
 _TABLE = Path(__file__).resolve().parent / "tables" / "h1_coupling.csv"
 
@@ -87,19 +88,23 @@ class SpinNetwork:
 
 
 def coupling_network(prediction: Prediction, *,
-                     geometric: Mapping[tuple[int, int], float] | None = None) -> SpinNetwork:
+                     geometric: Mapping[tuple[int, int], float] | bool | None = None) -> SpinNetwork:
     """The coupling network of a prediction (cached unless ``geometric`` is given).
 
     Parameters
     ----------
     prediction : Prediction
-    geometric : mapping of (group_i, group_j) -> J_hz, optional
+    geometric : mapping of (group_i, group_j) -> J_hz, or True, optional
         Vicinal couplings from geometry (pairs of indices into
         ``prediction.protons``), replacing the topological value for every spin
-        pair between the two groups.
+        pair between the two groups. ``True`` takes them from the 3D layer
+        (:func:`geometric_from_3d`: Haasnoot-de Leeuw-Altona 3J over the conformer
+        ensemble) where it applies, else the topological values stay.
     """
     key = (prediction.smiles, tuple((p.atoms, p.count, p.exchangeable, p.couplings) for p in prediction.protons))
     base = _cached_network(key)
+    if geometric is True:
+        geometric = geometric_from_3d(prediction)
     if not geometric:
         return base
     over = {}
@@ -108,6 +113,20 @@ def coupling_network(prediction: Prediction, *,
     g = base.group_of_spin
     cp = tuple((i, j, over.get((g[i], g[j]), v)) for i, j, v in base.couplings)
     return SpinNetwork(base.group_of_spin, cp, base.hetero)
+
+
+def geometric_from_3d(prediction: Prediction) -> dict[tuple[int, int], float] | None:
+    """Vicinal 3J between the prediction's proton groups from the 3D layer, or None.
+
+    The layer (``prediction/stereo.py``) embeds conformers of molecules whose
+    diastereomers differ (ring CH-CH of substituted cyclohexanes and the like) and
+    averages the Haasnoot-de Leeuw-Altona 3J over them; elsewhere there is no geometry
+    and the topological couplings stay.
+    """
+    from ..structures import parse_structure
+    from .stereo import geometric_couplings
+
+    return geometric_couplings(parse_structure(prediction.smiles), prediction.protons) or None
 
 
 @lru_cache(maxsize=4096)

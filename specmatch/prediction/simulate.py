@@ -143,6 +143,7 @@ def prediction_lines(
     shifts: Sequence[float] | np.ndarray | None = None,
     j_scale: float = 1.0,
     geometric=None,
+    cached: bool = True,
 ) -> SpinLines:
     """Exact 1H stick spectrum of the non-exchangeable protons of a prediction.
 
@@ -155,8 +156,13 @@ def prediction_lines(
         One shift (ppm) per entry of ``prediction.protons`` replacing the predicted ones.
     j_scale : float
         Factor on every H-H coupling (the mixture fit refines it).
-    geometric : mapping, optional
-        Geometric vicinal couplings, see :func:`specmatch.prediction.couplings.coupling_network`.
+    geometric : mapping or True, optional
+        Geometric vicinal couplings (``True``: from the 3D layer where it applies), see
+        :func:`specmatch.prediction.couplings.coupling_network`.
+    cached : bool
+        Keep the result (per prediction, shifts, field and J scale; overlays redraw the
+        same spectrum often). A fit that tries many shift sets passes ``False`` so the
+        cache does not fill with spectra it never asks for again.
 
     Returns
     -------
@@ -176,12 +182,12 @@ def prediction_lines(
             raise SpecmatchError(
                 f"{len(groups)} proton groups but {arr.size} shifts given; give one shift per group")
         sh = tuple(float(x) for x in arr)
-    if geometric:
+    if geometric or not cached:
         return _lines(prediction, sh, float(frequency_mhz), float(j_scale), geometric)
     return _cached_lines(prediction, sh, float(frequency_mhz), float(j_scale))
 
 
-@lru_cache(maxsize=1024)
+@lru_cache(maxsize=128)
 def _cached_lines(prediction: Prediction, shifts: tuple[float, ...], f: float, j_scale: float) -> SpinLines:
     return _lines(prediction, shifts, f, j_scale, None)
 
@@ -239,8 +245,9 @@ def simulate_1h(
         predicted one (mixture fitting moves groups within their sigma).
     exact : bool
         ``False`` draws the first-order multiplets of :func:`sticks_1h` instead.
-    geometric : mapping, optional
-        Geometric vicinal couplings by pair of proton-group indices.
+    geometric : mapping or True, optional
+        Geometric vicinal couplings by pair of proton-group indices (``True``: from the
+        3D layer where it applies).
 
     Returns
     -------

@@ -46,7 +46,7 @@ import numpy as np
 
 from ..errors import SpecmatchError
 
-__all__ = ["SpinLines", "SpinSystem", "simulate_spins", "is_strong", "MERGE_HZ"]
+__all__ = ["SpinLines", "SpinSystem", "simulate_spins", "is_strong", "merge_lines", "MERGE_HZ"]
 
 #: lines closer than this (Hz) are merged into one (intensity-weighted position)
 MERGE_HZ = 0.005
@@ -310,61 +310,97 @@ def _basis(spins: tuple[float, ...]):
     return [m for m, _ in blocks], flips, raises
 
 
-def _cluster_lines(nu: np.ndarray, J: np.ndarray, spins: tuple[float, ...]):
-    """Lines of one cluster of composite spins: (hz, intensity, d<Iz_g>) over all blocks."""
-    from scipy.linalg import eigh
-
-    blocks, flips, raises = _basis(spins)
+@lru_cache(maxsize=4096)
+def _block_templates(spins: tuple[float, ...], j_key: bytes):
+    """Per Fz block: the coupling part of the Hamiltonian (zz diagonal + flip-flops), and
+    per pair of neighbouring blocks the dense F+ matrix; J enters as bytes of its array."""
     G = len(spins)
-    evals, evecs, zexp = [], [], []
+    J = np.frombuffer(j_key, float).reshape(G, G)
+    Jt = np.triu(J, 1)
+    blocks, flips, raises = _basis(spins)
+    H0, Fs = [], []
     for b, m in enumerate(blocks):
         rows, cols, pa, pb, coef = flips[b]
-        diag = m @ nu + np.einsum("sa,ab,sb->s", m, np.triu(J, 1), m)
-        if m.shape[0] == 1 or rows.size == 0:
-            w = diag
-            v = np.eye(m.shape[0])
-            order = np.argsort(w)
-            w, v = w[order], v[:, order]
-        else:
-            H = np.diag(diag)
+        h = np.diag(np.einsum("sa,ab,sb->s", m, Jt, m))
+        if rows.size:
             vals = coef * J[pa, pb]
-            np.add.at(H, (rows, cols), vals)
-            np.add.at(H, (cols, rows), vals)
-            w, v = eigh(H)
-        evals.append(w)
-        evecs.append(v)
-        zexp.append((v * v).T @ m)  # <a|Iz_g|a>, states x groups
-    hz, inten, dz = [], [], []
+            np.add.at(h, (rows, cols), vals)
+            np.add.at(h, (cols, rows), vals)
+        h.setflags(write=False)
+        H0.append(h)
     for b in range(len(blocks) - 1):
         r_, c_, v_ = raises[b]
         F = np.zeros((blocks[b + 1].shape[0], blocks[b].shape[0]))
         np.add.at(F, (r_, c_), v_)
-        T = evecs[b + 1].T @ F @ evecs[b]
+        F.setflags(write=False)
+        Fs.append(F)
+    return blocks, H0, Fs
+
+
+def _cluster_lines(nu: np.ndarray, J: np.ndarray, spins: tuple[float, ...]):
+    """Lines of one cluster of composite spins for a stack of offset vectors.
+
+    ``nu`` is (A, groups): one row per arrangement of the partners' z-fields; every
+    block is diagonalised for all rows at once (stacked ``numpy.linalg.eigh``, no
+    per-matrix Python overhead). Returns (hz, intensity, d<Iz_g>, row) over all
+    blocks and rows.
+    """
+    nu = np.atleast_2d(nu)
+    A, G = nu.shape
+    blocks, H0, Fs = _block_templates(spins, np.ascontiguousarray(J, float).tobytes())
+    evals, evecs, zexp = [], [], []
+    for b, m in enumerate(blocks):
+        nb = m.shape[0]
+        diag = nu @ m.T  # (A, nb): Zeeman part
+        if nb == 1 or not np.any(H0[b] - np.diag(np.diag(H0[b]))):
+            w = diag + np.diag(H0[b])[None, :]
+            v = None  # product states are the eigenstates
+            z = np.broadcast_to(m[None], (A, nb, G))
+        else:
+            H = np.repeat(H0[b][None], A, axis=0)
+            ar = np.arange(nb)
+            H[:, ar, ar] += diag
+            w, v = np.linalg.eigh(H)
+            z = np.einsum("aij,ig->ajg", v * v, m)  # <a|Iz_g|a>
+        evals.append(w)
+        evecs.append(v)
+        zexp.append(z)
+    hz, inten, dz, rows = [], [], [], []
+    for b in range(len(blocks) - 1):
+        F = Fs[b]
+        lo_v, up_v = evecs[b], evecs[b + 1]
+        if lo_v is None and up_v is None:
+            T = np.broadcast_to(F[None], (A,) + F.shape)
+        elif lo_v is None:
+            T = np.swapaxes(up_v, 1, 2) @ F
+        elif up_v is None:
+            T = F[None] @ lo_v
+        else:
+            T = np.swapaxes(up_v, 1, 2) @ F @ lo_v
         P = T * T
-        up, lo = np.nonzero(P > MIN_INTENSITY)
-        hz.append(evals[b + 1][up] - evals[b][lo])
-        inten.append(P[up, lo])
-        dz.append(zexp[b + 1][up] - zexp[b][lo])
+        a_, up, lo = np.nonzero(P > MIN_INTENSITY)
+        hz.append(evals[b + 1][a_, up] - evals[b][a_, lo])
+        inten.append(P[a_, up, lo])
+        dz.append(zexp[b + 1][a_, up] - zexp[b][a_, lo])
+        rows.append(a_)
     if not hz:
-        return np.zeros(0), np.zeros(0), np.zeros((0, G))
-    return np.concatenate(hz), np.concatenate(inten), np.concatenate(dz)
+        return np.zeros(0), np.zeros(0), np.zeros((0, G)), np.zeros(0, int)
+    return np.concatenate(hz), np.concatenate(inten), np.concatenate(dz), np.concatenate(rows)
 
 
-def _merge(hz: np.ndarray, inten: np.ndarray, d: np.ndarray):
+def merge_lines(hz: np.ndarray, inten: np.ndarray, d: np.ndarray, tol: float | None = None):
+    """Merge chains of lines closer than ``tol`` Hz (default MERGE_HZ), intensity-weighted."""
     if hz.size == 0:
         return hz, inten, d
+    tol = MERGE_HZ if tol is None else tol
     order = np.argsort(hz, kind="stable")
     hz, inten, d = hz[order], inten[order], d[order]
-    new = np.concatenate([[True], np.diff(hz) >= MERGE_HZ])
-    # chains of close lines: merge consecutive lines whose gap is below MERGE_HZ
-    idx = np.cumsum(new) - 1
-    n = int(idx[-1]) + 1
-    w = np.bincount(idx, weights=inten, minlength=n)
+    starts = np.flatnonzero(np.concatenate([[True], np.diff(hz) >= tol]))
+    w = np.add.reduceat(inten, starts)
     safe = np.where(w > 0, w, 1.0)
-    pos = np.bincount(idx, weights=inten * hz, minlength=n) / safe
-    dd = np.zeros((n, d.shape[1]))
-    np.add.at(dd, idx, inten[:, None] * d)
-    return pos, w, dd / safe[:, None]
+    pos = np.add.reduceat(inten * hz, starts) / safe
+    dd = np.add.reduceat(inten[:, None] * d, starts, axis=0) / safe[:, None]
+    return pos, w, dd
 
 
 def simulate_spins(
@@ -443,6 +479,9 @@ def simulate_spins(
         choices = [composite_spins(int(size[g])) for g in mem]
         fields = np.array([fa for fa, _ in arrangements])  # (A, groups)
         probs = np.array([pa for _, pa in arrangements])
+        spread = np.zeros((len(mem), n))
+        for col, g in enumerate(mem):
+            spread[col, groups[g]] = 1.0 / size[g]
         for combo in itertools.product(*choices):
             spins_all = tuple(s for s, _ in combo)
             mult = float(np.prod([m for _, m in combo]))
@@ -456,24 +495,21 @@ def simulate_spins(
             # re-diagonalise per partner arrangement while that stays cheap; beyond, the
             # partner fields move the lines to first order (Hellmann-Feynman)
             exact = len(arrangements) * dim <= EXACT_BUDGET
-            arr_list = arrangements if exact else [(np.zeros(len(mem)), 1.0)]
-            for field_hz, p in arr_list:
-                hz, inten, dz_a = _cluster_lines((nu_g[mem] + field_hz)[act], Ja, spins)
-                dz = np.zeros((hz.size, len(mem)))
-                dz[:, act] = dz_a
-                w = mult * p / 2.0 ** (n_spins - 1)
-                d_full = np.zeros((hz.size, n))
-                for col, g in enumerate(mem):
-                    d_full[:, groups[g]] = dz[:, [col]] / size[g]
-                if exact:
-                    all_hz.append(hz)
-                    all_int.append(inten * w)
-                    all_d.append(d_full)
-                    continue
-                all_hz.append((hz[:, None] + dz @ fields.T).ravel())
-                all_int.append((inten[:, None] * w * probs[None, :]).ravel())
-                all_d.append(np.repeat(d_full, len(probs), axis=0))
-    hz, inten, d = _merge(np.concatenate(all_hz), np.concatenate(all_int), np.concatenate(all_d))
+            base = nu_g[mem][None, :] + (fields if exact else 0.0)
+            hz, inten, dz_a, row = _cluster_lines(base[:, act], Ja, spins)
+            dz = np.zeros((hz.size, len(mem)))
+            dz[:, act] = dz_a
+            w = mult / 2.0 ** (n_spins - 1)
+            d_full = dz @ spread  # per-spin derivative: a group's share split over its spins
+            if exact:
+                all_hz.append(hz)
+                all_int.append(inten * w * probs[row])
+                all_d.append(d_full)
+                continue
+            all_hz.append((hz[:, None] + dz @ fields.T).ravel())
+            all_int.append((inten[:, None] * w * probs[None, :]).ravel())
+            all_d.append(np.repeat(d_full, len(probs), axis=0))
+    hz, inten, d = merge_lines(np.concatenate(all_hz), np.concatenate(all_int), np.concatenate(all_d))
     return SpinLines(f, hz, inten, d)
 
 

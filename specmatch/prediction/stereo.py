@@ -32,7 +32,7 @@ from pathlib import Path
 import numpy as np
 from rdkit import Chem
 
-from ..structures import Structure
+from ..structures import Structure, enantiomer_key, mol_smiles
 from .types import Prediction, ProtonGroup
 from .multiplicity import multiplicity
 
@@ -343,7 +343,7 @@ def _features(mol3d: Chem.Mol, ens: Ensemble, to_input: list[int]) -> Features:
 def _order_map(mol: Chem.Mol) -> tuple[str, list[int]]:
     """Canonical isomeric SMILES of `mol` and, per SMILES atom, the atom index in `mol`."""
     m = Chem.Mol(mol)
-    smi = Chem.MolToSmiles(m)
+    smi = mol_smiles(m)  # also sets the output-order property read below
     order = [int(t) for t in m.GetProp("_smilesAtomOutputOrder").strip("[]").split(",") if t.strip()]
     return smi, order
 
@@ -368,12 +368,7 @@ def _diastereomers(structure: Structure) -> list[Chem.Mol]:
             if flip:
                 m.GetAtomWithIdx(at).InvertChirality()
         m.ClearComputedProps()  # RDKit caches stereo perception: recompute after the flips
-        smi = Chem.MolToSmiles(m)
-        mirror = Chem.Mol(m)
-        for at in spec:
-            mirror.GetAtomWithIdx(at).InvertChirality()
-        mirror.ClearComputedProps()
-        key = min(smi, Chem.MolToSmiles(mirror))
+        key = enantiomer_key(m)
         if key in seen:
             continue
         seen.add(key)

@@ -90,14 +90,18 @@ class Prediction:
     extra: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
 
     def to_dict(self) -> dict[str, Any]:
-        """The JSON form used by ``specmatch predict --json`` and ``--batch``."""
+        """The JSON form used by ``specmatch predict --json`` and ``--batch``.
+
+        ``atoms`` are written 1-based (heavy atoms in the order of the SMILES as given),
+        the numbering of every user-facing output; the objects keep RDKit's 0-based indices.
+        """
         return {
             "smiles": self.smiles,
             "ok": True,
             "canonical_smiles": self.canonical_smiles,
             "carbons": [
                 {
-                    "atoms": list(c.atoms),
+                    "atoms": [a + 1 for a in c.atoms],
                     "shift": round(c.shift, 2),
                     "sigma": round(c.sigma, 2),
                     "hydrogens": c.hydrogens,
@@ -107,7 +111,7 @@ class Prediction:
             ],
             "protons": [
                 {
-                    "atoms": list(p.atoms),
+                    "atoms": [a + 1 for a in p.atoms],
                     "shift": round(p.shift, 3),
                     "sigma": round(p.sigma, 3),
                     "count": p.count,

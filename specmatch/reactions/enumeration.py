@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 from rdkit import Chem
 
 from ..errors import SpecmatchError
-from ..structures import mol_from_text
+from ..structures import mol_from_text, mol_smiles
 from .types import Candidate, Enumeration
 from .network import (
     SINGLE,
@@ -26,7 +26,6 @@ from .network import (
     to_carbonyl,
     alkene_bonds,
     capture,
-    csmiles,
     e1_alkenes,
     ionise,
     lab,
@@ -107,7 +106,7 @@ def _alcohol_nucleophile(text: str, weight: float = 1.0) -> Nucleophile:
                              "methanol or CC(C)O for propan-2-ol")
     for a in prepared.GetAtoms():
         a.ClearProp("n")
-    name = {"CO": "MeOH", "CCO": "EtOH"}.get(csmiles(prepared), csmiles(prepared))
+    name = {"CO": "MeOH", "CCO": "EtOH"}.get(mol_smiles(prepared, isomeric=False), mol_smiles(prepared, isomeric=False))
     return Nucleophile(name, "alcohol", weight, mol=prepared, oxygen=sites[0][1])
 
 
@@ -301,7 +300,7 @@ def _run_network(ctx: Context, net: Network, nucleophiles: list[Nucleophile], e1
 
         ctx.xtb_used[0] += refine_network(net, window=par["shift"]["xtb_window_kcal_mol"], warnings=ctx.warnings)
     primary_scale = par["capture"]["primary_capture_scale"]
-    sub_key = csmiles(ctx.sub)
+    sub_key = mol_smiles(ctx.sub, isomeric=False)
 
     def channels_for(node: Intermediate) -> list[Channel]:
         chs: list[Channel] = []
@@ -326,7 +325,7 @@ def _run_network(ctx: Context, net: Network, nucleophiles: list[Nucleophile], e1
             for nu in nucleophiles:
                 p = capture(m, c, nu)
                 if p is not None and nu.kind == "water" and ctx.cls in ("substitution", "dehydration") \
-                        and csmiles(p) == sub_key:
+                        and mol_smiles(p, isomeric=False) == sub_key:
                     continue  # recapture of the first cation re-forms the substrate: not an exit
                 if p is not None:
                     verb = "transfers H to" if nu.kind == "hydrogen" else "captures the cation at"
@@ -337,7 +336,7 @@ def _run_network(ctx: Context, net: Network, nucleophiles: list[Nucleophile], e1
         if e1_weight > 0 and node.expand and not node.radical and not oxo:
             alpha = par["elimination"]["alpha_heat"] if ctx.cls == "dehydration" else None
             for alk, share, text in e1_alkenes(node, rt_e1, alpha):
-                if csmiles(alk) == sub_key:
+                if mol_smiles(alk, isomeric=False) == sub_key:
                     continue  # back to the substrate: it re-enters the same manifold, not an exit
                 chs.append(Channel(alk, e1_weight * share * scale, "E1", f"E1: {text}", {"centre": -1}))
         return chs
@@ -457,22 +456,21 @@ def _manifold_channels(ctx: Context, node: Intermediate, nucleophiles: list[Nucl
             chs.append(Channel(p, nu.weight * par["carbinyl_share"], "capture",
                                f"{nu.name} captures the cyclopropylcarbinyl cation at {lab(m, c)}", {"centre": c, "nu": nu}))
         for r1 in others:
-            expanded = shift(m, c, r, r1)
-            if expanded is not None:
-                p = capture(expanded, r, nu)
+            # the two other members of the manifold: (cation, where it is captured, share, how, manifold)
+            routes = (
+                (shift(m, c, r, r1), r, "cyclobutyl_share",
+                 f"ring bond {lab(m, r)}-{lab(m, r1)} shifts to {lab(m, c)} (cyclobutyl cation)",
+                 "ring-expanded (cyclopropylcarbinyl -> cyclobutyl)"),
+                (open_cyclopropane(m, c, r, r1), r1, "homoallyl_share",
+                 f"ring bond {lab(m, r)}-{lab(m, r1)} opens (homoallyl cation, C=C {lab(m, c)}={lab(m, r)})",
+                 "ring-opened (homoallyl)"),
+            )
+            for cation, site, share, how, manifold in routes:
+                p = None if cation is None else capture(cation, site, nu)
                 if p is not None:
-                    chs.append(Channel(p, nu.weight * par["cyclobutyl_share"] / len(others), "capture",
-                                       f"ring bond {lab(m, r)}-{lab(m, r1)} shifts to {lab(m, c)} (cyclobutyl cation); "
-                                       f"{nu.name} captures it at {lab(m, r)}",
-                                       {"centre": r, "nu": nu, "manifold": "ring-expanded (cyclopropylcarbinyl -> cyclobutyl)"}))
-            opened = open_cyclopropane(m, c, r, r1)
-            if opened is not None:
-                p = capture(opened, r1, nu)
-                if p is not None:
-                    chs.append(Channel(p, nu.weight * par["homoallyl_share"] / len(others), "capture",
-                                       f"ring bond {lab(m, r)}-{lab(m, r1)} opens (homoallyl cation, C=C "
-                                       f"{lab(m, c)}={lab(m, r)}); {nu.name} captures it at {lab(m, r1)}",
-                                       {"centre": r1, "nu": nu, "manifold": "ring-opened (homoallyl)"}))
+                    chs.append(Channel(p, nu.weight * par[share] / len(others), "capture",
+                                       f"{how}; {nu.name} captures it at {lab(m, site)}",
+                                       {"centre": site, "nu": nu, "manifold": manifold}))
     return chs
 
 
@@ -969,7 +967,7 @@ def _key(mol: Chem.Mol, sub_chiral: bool):
 
     spec, _unspec, _ = stereo_info(mol)
     if not spec:
-        return csmiles(mol), None
+        return mol_smiles(mol, isomeric=False), None
     conf = describe(mol, substrate_chiral=sub_chiral)
     return conf.smiles, conf
 
@@ -996,7 +994,7 @@ def _substrate_stereo(sub: Chem.Mol) -> tuple[str, ...]:
 def _finalise(ctx: Context, outcomes: list[Outcome], substrate_input: str, alcohol: str | None) -> Enumeration:
     cand = ctx.par["candidates"]
     sub_chiral = any(a.GetChiralTag() != Chem.ChiralType.CHI_UNSPECIFIED for a in ctx.sub.GetAtoms())
-    sub_key = Chem.MolToSmiles(ctx.sub)
+    sub_key = mol_smiles(ctx.sub)
     total = sum(o.weight for o in outcomes)
     if total <= 0:
         raise SpecmatchError("no product could be formed from this substrate with this reagent")
@@ -1007,7 +1005,7 @@ def _finalise(ctx: Context, outcomes: list[Outcome], substrate_input: str, alcoh
     for o in outcomes:
         o.weight = o.weight / total * (1.0 - w_unreacted)
         key, conf = _key(o.mol, sub_chiral)
-        if csmiles(o.mol) == csmiles(ctx.sub) and conf is None:
+        if mol_smiles(o.mol, isomeric=False) == mol_smiles(ctx.sub, isomeric=False) and conf is None:
             key = sub_key
         merged.setdefault(key, []).append(o)
         confs[key] = conf
@@ -1041,11 +1039,11 @@ def _finalise(ctx: Context, outcomes: list[Outcome], substrate_input: str, alcoh
                 flags.discard("other conditions")
             notes += _stereo_notes(best.mol, sub_counts, sub_chiral, ctx.cls, flags, confs[key])
         conf = confs[key]
-        smiles = key if conf is not None else Chem.MolToSmiles(Chem.MolFromSmiles(key), isomericSmiles=False)
+        smiles = key if conf is not None else mol_smiles(Chem.MolFromSmiles(key), isomeric=False)
         if key == sub_key:
             smiles = sub_key
         rows.append([smiles, best.label, tuple(best.pathway), w, flags, tuple(dict.fromkeys(notes)),
-                     csmiles(best.mol), conf])
+                     mol_smiles(best.mol, isomeric=False), conf])
     floor = cand["floor"]
     tot = sum(max(r[3], floor) for r in rows)
     top = max(max(r[3], floor) / tot for r in rows)
@@ -1070,7 +1068,7 @@ def _finalise(ctx: Context, outcomes: list[Outcome], substrate_input: str, alcoh
     if ctx.use_xtb:
         ranked_by += (f" + GFN2-xTB (tblite) for {ctx.xtb_used[0]} close cation(s)" if ctx.xtb_used[0]
                   else "; GFN2-xTB requested but no close cation pair needed it")
-    return Enumeration(substrate=Chem.MolToSmiles(Chem.MolFromSmiles(sub_key)),
+    return Enumeration(substrate=mol_smiles(Chem.MolFromSmiles(sub_key)),
                        substrate_stereo=_substrate_stereo(ctx.sub),
                        reagent=ctx.reagent, candidates=tuple(cands), warnings=tuple(dict.fromkeys(ctx.warnings)),
                        ranked_by=ranked_by, alcohol=alcohol, reaction_class=ctx.cls, substrate_input=substrate_input,
@@ -1153,4 +1151,4 @@ def enumerate_products(substrate: str, reagent: str | Reagent, *, alcohol: str |
                         "rings; check rearrangements of polycyclic cations with care")
     outcomes = _DRIVERS[cls](ctx)
     return _finalise(ctx, outcomes, substrate.strip() if "M  END" not in substrate else "molfile",
-                     csmiles(nu.mol) if nu else None)
+                     mol_smiles(nu.mol, isomeric=False) if nu else None)

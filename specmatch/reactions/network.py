@@ -31,6 +31,7 @@ import numpy as np
 from rdkit import Chem
 
 from ..errors import SpecmatchError
+from ..structures import mol_smiles
 from .scales import (
     alkene_dh,
     is_small_bridgehead,
@@ -75,10 +76,6 @@ def _finish(rw: Chem.RWMol) -> Chem.Mol | None:
 
 def _add_h(atom: Chem.Atom, n: int) -> None:
     atom.SetNumExplicitHs(atom.GetNumExplicitHs() + n)
-
-
-def csmiles(mol: Chem.Mol) -> str:
-    return Chem.MolToSmiles(mol, isomericSmiles=False)
 
 
 def is_alkene_bond(bond: Chem.Bond) -> bool:
@@ -150,22 +147,23 @@ def capture(mol: Chem.Mol, c: int, nu: Nucleophile) -> Chem.Mol | None:
     return _finish(rw)
 
 
-def to_carbonyl(mol: Chem.Mol, c: int, oxygen: int) -> Chem.Mol | None:
-    """Oxocarbenium ion with an O-H: loss of H+ from O gives the C=O compound (pinacol-type end)."""
+def _lose_proton_beside(mol: Chem.Mol, c: int, x: int) -> Chem.Mol | None:
+    """Loss of H+ from atom `x` bonded to the cation carbon `c`: a C=X bond, no charge."""
     rw = Chem.RWMol(mol)
-    _add_h(rw.GetAtomWithIdx(oxygen), -1)
-    rw.GetBondBetweenAtoms(c, oxygen).SetBondType(DOUBLE)
+    _add_h(rw.GetAtomWithIdx(x), -1)
+    rw.GetBondBetweenAtoms(c, x).SetBondType(DOUBLE)
     rw.GetAtomWithIdx(c).SetFormalCharge(0)
     return _finish(rw)
+
+
+def to_carbonyl(mol: Chem.Mol, c: int, oxygen: int) -> Chem.Mol | None:
+    """Oxocarbenium ion with an O-H: loss of H+ from O gives the C=O compound (pinacol-type end)."""
+    return _lose_proton_beside(mol, c, oxygen)
 
 
 def eliminate(mol: Chem.Mol, c: int, beta: int) -> Chem.Mol | None:
     """E1: lose H+ from the beta carbon, C=C between c and beta."""
-    rw = Chem.RWMol(mol)
-    _add_h(rw.GetAtomWithIdx(beta), -1)
-    rw.GetBondBetweenAtoms(c, beta).SetBondType(DOUBLE)
-    rw.GetAtomWithIdx(c).SetFormalCharge(0)
-    return _finish(rw)
+    return _lose_proton_beside(mol, c, beta)
 
 
 def shift(mol: Chem.Mol, c: int, beta: int, group: int) -> Chem.Mol | None:
@@ -256,7 +254,7 @@ def make_intermediate(mol: Chem.Mol, centre: int, *, radical: bool = False) -> I
     if not radical:
         energy += ring_strain(mol)
         cls += " cation"
-    key = min(csmiles(m) for m, _ in forms)
+    key = min(mol_smiles(m, isomeric=False) for m, _ in forms)
     return Intermediate(key=key, forms=forms, energy=energy, cls=cls, substitution=scores[best].substitution,
                         radical=radical, local=local)
 
@@ -532,7 +530,7 @@ def e1_alkenes(node: Intermediate, rt: float, alpha: float | None = None) -> lis
             new = eliminate(mol, c, beta.GetIdx())
             if new is None:
                 continue
-            key = csmiles(new)
+            key = mol_smiles(new, isomeric=False)
             if key not in found:
                 dh = alkene_dh(new, c, beta.GetIdx())
                 found[key] = [new, dh, f"loss of H+ from {lab(mol, beta.GetIdx())}: "

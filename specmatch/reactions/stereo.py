@@ -21,6 +21,8 @@ from dataclasses import dataclass
 from rdkit import Chem
 from rdkit.Geometry import Point3D
 
+from ..structures import enantiomer_key, mirror_image, mol_smiles
+
 _TET = Chem.StereoType.Atom_Tetrahedral
 _CW, _CCW = Chem.ChiralType.CHI_TETRAHEDRAL_CW, Chem.ChiralType.CHI_TETRAHEDRAL_CCW
 _CIS = {Chem.BondStereo.STEREOZ, Chem.BondStereo.STEREOCIS}
@@ -35,16 +37,6 @@ def _fresh(mol: Chem.Mol) -> Chem.Mol:
     m.ClearComputedProps()  # RDKit caches stereo perception; recompute after tag edits
     Chem.GetSSSR(m)
     return m
-
-
-def mirror(mol: Chem.Mol) -> Chem.Mol:
-    """The mirror image (every tetrahedral tag inverted)."""
-    m = Chem.Mol(mol)
-    for a in m.GetAtoms():
-        t = a.GetChiralTag()
-        if t in (_CW, _CCW):
-            a.SetChiralTag(_CCW if t == _CW else _CW)
-    return _fresh(m)
 
 
 def stereo_info(mol: Chem.Mol) -> tuple[list[int], list[int], int]:
@@ -69,16 +61,16 @@ class Configuration:
 def describe(mol: Chem.Mol, *, substrate_chiral: bool) -> Configuration:
     """Key SMILES and words for a product whose configuration is (partly) specified."""
     m = _fresh(mol)
-    smi = Chem.MolToSmiles(m)
+    smi = mol_smiles(m)
     spec, _unspec, _ = stereo_info(m)
     if substrate_chiral or not spec:
         return Configuration(smi, False, False, "")
-    mir = Chem.MolToSmiles(mirror(m))
+    mir = mol_smiles(mirror_image(m))
     if mir == smi:
         return Configuration(smi, False, len(spec) >= 2, "meso" if len(spec) >= 2 else "")
     rep = min(smi, mir)
     # CIP labels on the representative, named by substrate atom labels where known
-    labels = _cip(m if smi == rep else mirror(m))
+    labels = _cip(m if smi == rep else mirror_image(m))
     words = "racemic" + (f" ({', '.join(labels)})" if labels else "")
     return Configuration(rep, True, False, words)
 
@@ -200,8 +192,7 @@ def enumerate_unassigned(mol: Chem.Mol, *, substrate_chiral: bool) -> list[tuple
         for at, t in zip(unspec, tags):
             m.GetAtomWithIdx(at).SetChiralTag(t)
         m = _fresh(m)
-        smi = Chem.MolToSmiles(m)
-        key = smi if substrate_chiral else min(smi, Chem.MolToSmiles(mirror(m)))
+        key = mol_smiles(m) if substrate_chiral else enantiomer_key(m)
         groups.setdefault(key, [m, 0])[1] += 1
     total = sum(n for _, n in groups.values())
     if len(groups) < 2:

@@ -114,26 +114,21 @@ class Enumeration:
         With stereo in the SMILES the configuration must match (either enantiomer of a
         racemic candidate); without, the most probable candidate of that constitution.
         """
-        from rdkit import Chem
-
-        from ..structures import mol_from_text
-        from .stereo import mirror
+        from ..structures import mirror_image, mol_from_text, mol_smiles
 
         mol = mol_from_text(smiles)
-        plain = Chem.MolToSmiles(mol, isomericSmiles=False)
-        iso = Chem.MolToSmiles(mol)
+        plain = mol_smiles(mol, isomeric=False)
+        iso = mol_smiles(mol)
         if iso != plain:
-            keys = {iso, Chem.MolToSmiles(mirror(mol))}
+            keys = {iso, mol_smiles(mirror_image(mol))}
             return next((c for c in self.candidates if c.smiles in keys), None)
         return next((c for c in self.candidates if (c.constitution or c.smiles) == plain), None)
 
     def diastereomers(self, smiles: str) -> tuple[Candidate, ...]:
         """Every candidate with the constitution of `smiles`, most probable first."""
-        from rdkit import Chem
+        from ..structures import mol_from_text, mol_smiles
 
-        from ..structures import mol_from_text
-
-        plain = Chem.MolToSmiles(mol_from_text(smiles), isomericSmiles=False)
+        plain = mol_smiles(mol_from_text(smiles), isomeric=False)
         return tuple(c for c in self.candidates if (c.constitution or c.smiles) == plain)
 
     def to_dict(self) -> dict:

@@ -18,11 +18,10 @@ from functools import lru_cache
 from pathlib import Path
 from typing import Any
 
-from ..identification.ranking import THRESHOLDS
 from . import numbers as fmt
 from .mixture_text import mixture_text
 from .naming import structure_class
-from .summary import names_for_result, signal_words, summarise
+from .verdict_card import names_for_result, signal_words, threshold_words, verdict_card
 
 __all__ = ["report_html", "write_report", "structure_svg", "overlay_svg"]
 
@@ -234,13 +233,6 @@ def _signal_rows(rows, nucleus: str) -> list[dict[str, str]]:
     return out
 
 
-def _threshold_words() -> str:
-    t = THRESHOLDS
-    return (f"thresholds: decisive at {fmt.percent(t['decisive'])} or more, likely at "
-            f"{fmt.percent(t['likely'])} or more, tentative at odds of {t['tentative_odds']:g}:1 or better "
-            "over the runner-up, otherwise cannot tell apart")
-
-
 @lru_cache(maxsize=1)
 def _environment():
     from jinja2 import Environment, FileSystemLoader, StrictUndefined, select_autoescape
@@ -268,7 +260,7 @@ def report_html(result: Any, fragment: bool = False, audit: Mapping[str, Any] | 
     v = ranking.verdict
     inputs = result.inputs or {}
     names = names_for_result(result)
-    summary = summarise(result, names)
+    summary = verdict_card(result, names)
     show = ranking.candidates[:CARDS] if not fragment else ranking.candidates[:4]
     cards = [{"code": names[c.smiles].code, "name": names[c.smiles].full, "probability": fmt.percent(c.probability),
               "smiles": c.smiles, "role": c.role,
@@ -311,7 +303,7 @@ def report_html(result: Any, fragment: bool = False, audit: Mapping[str, Any] | 
         "written": _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
         "css": Markup((TEMPLATES / "report.css").read_text("utf-8")),
         "audit": audit, "advisory": result.caution, "safety": list(result.safety_notes),
-        "summary": summary, "verdict_text": v.text, "thresholds": _threshold_words(),
+        "summary": summary, "verdict_text": v.text, "thresholds": threshold_words(),
         "answer_svg": Markup(structure_svg(summary.answer, width=320, height=220) if summary.answer else ""),
         "reaction": reaction,
         "data_line": (", ".join(ranking.nuclei) or "none") + (" + DEPT-135" if ranking.has_dept else ""),

@@ -130,13 +130,13 @@ def measured_peak_text(multiplets_or_peaks: Sequence[Multiplet] | Sequence[Peak]
         # unless the compound's formula or H count scales them.
         relative = pl.integral_unit == "percent"
         items_in = pl.compound_multiplets() if (nucleus == "1H" and pl.multiplets) else pl.compound_peaks()
-    items_in = [x for x in items_in if getattr(x, "flag", None) is None]
     for x in items_in:
         if not isinstance(x, (Multiplet, Peak)):
             raise SpecmatchError(
                 f"peak text needs Multiplet or Peak entries, got {type(x).__name__}; "
                 "pick peaks or analyse multiplets first"
             )
+    items_in = [x for x in items_in if x.flag is None]
     head = _header(nucleus, frequency_mhz, solvent)
     items = []
     for x in sorted(items_in, key=lambda x: -x.shift):

@@ -2,9 +2,9 @@
 
 from __future__ import annotations
 
-from typing import Any
-
-from ..identification.ranking import percent
+from ..identification.ranking import Ranking, percent
+from ..identification.result import Result
+from .verdict_card import threshold_words
 
 __all__ = ["result_text", "signal_table_text"]
 
@@ -27,17 +27,18 @@ def signal_table_text(rows, nucleus: str) -> str:
     return "\n".join(out)
 
 
-def result_text(result: Any) -> str:
+def result_text(result: Result | Ranking) -> str:
     """The verdict, the candidate table, the evidence and the cautions as plain text.
 
-    Accepts a :class:`~specmatch.identification.result.Result` or a ``Ranking``.
+    Accepts a :class:`~specmatch.identification.result.Result` or a bare ``Ranking``
+    (``specmatch.rank``), which has no inputs, mixture, safety notes or versions.
     """
-    ranking = getattr(result, "ranking", result)
+    full = result if isinstance(result, Result) else None
+    ranking = full.ranking if full is not None else result
     v = ranking.verdict
     lines = [f"Verdict: {v.text}"]
-    lines.append(f"  (verdict uses the {v.basis} probability; thresholds: decisive >= 0.95, "
-                 "likely >= 0.80, tentative at odds >= 3:1, otherwise cannot tell apart)")
-    inputs = getattr(result, "inputs", {}) or {}
+    lines.append(f"  (verdict uses the {v.basis} probability; {threshold_words()})")
+    inputs = full.inputs if full is not None else {}
     if inputs.get("substrate"):
         lines.append(f"Reaction: {inputs['substrate']} + {inputs.get('reagent_name') or inputs.get('reagent')}"
                      + (f" (alcohol {inputs['alcohol']})" if inputs.get("alcohol") else ""))
@@ -70,25 +71,25 @@ def result_text(result: Any) -> str:
         if rows:
             lines += ["", f"{nucleus} assignment for the top candidate {best.smiles}:",
                       signal_table_text(rows, nucleus)]
-    mix = getattr(result, "mixture", None)
+    mix = full.mixture if full is not None else None
     if mix is not None:
         from .mixture_text import mixture_text
 
         lines += ["", "Mixture estimate:", mixture_text(mix)]
-    cautions = list(ranking.cautions) + (list(getattr(result, "cautions", ()) or ()) if result is not ranking else [])
+    cautions = list(ranking.cautions) + (list(full.cautions) if full is not None else [])
     if cautions:
         lines += ["", "Cautions:"] + [f"  - {c}" for c in cautions]
-    safety = getattr(result, "safety_notes", ()) or ()
+    safety = full.safety_notes if full is not None else ()
     if safety:
         lines += ["", "Safety (reagent):"] + [f"  - {s}" for s in safety]
-    adv = getattr(result, "caution", None)
+    adv = full.caution if full is not None else None
     if adv:
         lines += ["", adv]
     files = inputs.get("files") or {}
     if files:
         lines += ["", "Input files (SHA-256):"]
         lines += [f"  {k}: {f['name']}  {f['sha256']}" for k, f in files.items()]
-    vers = getattr(result, "versions", None)
+    vers = full.versions if full is not None else None
     if vers:
         lines.append("Versions: " + "; ".join(f"{k} {v}" for k, v in vers.items()
                                               if v and k not in ("error_model_fitted_on", "prediction_tables_sha256")))

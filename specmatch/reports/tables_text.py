@@ -59,7 +59,8 @@ def peaklist_table(peaklist: PeakList) -> str:
 
 
 def _atoms(atoms: tuple[int, ...]) -> str:
-    return ",".join(str(a) for a in atoms)
+    # users read atom numbers from 1 (the contract's indices are RDKit's, from 0)
+    return ",".join(str(a + 1) for a in atoms)
 
 
 def prediction_table(pred: Prediction, *, frequency_mhz: float = 400.0, solvent: str = "CDCl3") -> str:

@@ -89,20 +89,57 @@ class MolGraph:
             for x in r:
                 atom_rings[x].append(k)
         self.atom_rings = atom_rings
-        self.min_ring_size = [min((len(self.rings[k]) for k in ar), default=0) for ar in atom_rings]
+        min_size = [0] * n
+        for r in self.rings:
+            size = len(r)
+            for x in r:
+                if not min_size[x] or size < min_size[x]:
+                    min_size[x] = size
+        self.min_ring_size = min_size
         self.n_rings = [len(ar) for ar in atom_rings]
         self._dist: list[list[int]] | None = None
 
     @property
     def dist(self) -> list[list[int]]:
         if self._dist is None:
-            self._dist = Chem.GetDistanceMatrix(self.mol).astype(int).tolist()
+            self._dist = _distances(self.nbrs)
         return self._dist
 
     def same_ring(self, i: int, j: int) -> bool:
         """True if some ring (of the smallest set) holds both atoms."""
         rings = self.rings
         return any(j in rings[k] for k in self.atom_rings[i])
+
+
+#: distance of atoms in different fragments (as RDKit's distance matrix)
+UNREACHABLE = 100_000_000
+
+
+def _distances(nbrs: list[list[int]]) -> list[list[int]]:
+    """Topological distance matrix by breadth-first search from every atom.
+
+    The same numbers as ``Chem.GetDistanceMatrix`` (as integers) without loading numpy,
+    which the batch commands otherwise never need; for molecules of the size specmatch
+    handles it is as fast.
+    """
+    n = len(nbrs)
+    out = []
+    for start in range(n):
+        d = [UNREACHABLE] * n
+        d[start] = 0
+        frontier = [start]
+        k = 0
+        while frontier:
+            k += 1
+            nxt = []
+            for x in frontier:
+                for y in nbrs[x]:
+                    if d[y] == UNREACHABLE:
+                        d[y] = k
+                        nxt.append(y)
+            frontier = nxt
+        out.append(d)
+    return out
 
 
 def graph_of(structure: Structure) -> MolGraph:

@@ -11,11 +11,15 @@ from __future__ import annotations
 import re
 from dataclasses import dataclass, field
 from functools import lru_cache
+from typing import TYPE_CHECKING
 
 from rdkit import Chem, RDLogger
 from rdkit.Chem import rdMolDescriptors
 
 from ..errors import SpecmatchError
+
+if TYPE_CHECKING:
+    from .graph import MolGraph
 
 RDLogger.DisableLog("rdApp.*")
 
@@ -311,10 +315,30 @@ def _stereo_elements(mol: Chem.Mol, *, copy: bool = True) -> list[tuple[str, int
         mol = Chem.Mol(mol)
     info = Chem.FindPotentialStereo(mol, cleanIt=True, flagPossible=True)
     kind = _STEREO_KIND
-    return [(kind.get(s.type) or str(s.type), s.centeredOn, s.specified == _SPECIFIED) for s in info]
+    # by index: iterating RDKit's vector wrapper ends on a caught IndexError, four times slower
+    items = [info[k] for k in range(len(info))]
+    return [(kind.get(s.type) or str(s.type), s.centeredOn, s.specified == _SPECIFIED) for s in items]
 
 
-def _mirror(mol: Chem.Mol) -> Chem.Mol:
+def mol_smiles(mol: Chem.Mol, *, isomeric: bool = True) -> str:
+    """Canonical SMILES of a parsed molecule: the one place specmatch writes SMILES.
+
+    ``isomeric=True`` (default) keeps the configurations the molecule carries;
+    ``isomeric=False`` gives the constitution, the key that merges configurations.
+    RDKit caches stereo perception: after changing chiral tags call
+    ``ClearComputedProps()`` first (:func:`mirror_image` does).
+    """
+    return Chem.MolToSmiles(mol, isomericSmiles=isomeric)
+
+
+def enantiomer_key(mol: Chem.Mol) -> str:
+    """One canonical isomeric SMILES for a molecule and its mirror image (the lexically
+    smaller), so a racemic pair always has one text."""
+    return min(mol_smiles(mol), mol_smiles(mirror_image(mol)))
+
+
+def mirror_image(mol: Chem.Mol) -> Chem.Mol:
+    """The mirror image: every tetrahedral tag inverted (a copy; perception cleared)."""
     m = Chem.Mol(mol)
     for a in m.GetAtoms():
         tag = a.GetChiralTag()
@@ -331,10 +355,11 @@ def _with_tag(mol: Chem.Mol, centre: int, tag: Chem.ChiralType) -> str:
     m = Chem.Mol(mol)
     m.GetAtomWithIdx(centre).SetChiralTag(tag)
     m.ClearComputedProps()
-    return Chem.MolToSmiles(m)
+    return mol_smiles(m)
 
 
-def _is_diastereotopic_after_label(labelled: Chem.Mol, centre: int) -> bool:
+def _is_diastereotopic_after_label(labelled: Chem.Mol, centre: int, parent_chiral: bool = False,
+                                   centre_stereogenic: bool = False) -> bool:
     """Labelling one of two equivalent ligands turns `centre` into a stereocentre;
     the ligands are diastereotopic if the two labelled molecules are diastereomers.
 
@@ -355,36 +380,55 @@ def _is_diastereotopic_after_label(labelled: Chem.Mol, centre: int) -> bool:
         return False
     if not all(spec for _, spec in others):
         return True
+    # Labelled molecules "one" (centre CW) and "two" (CCW) are compared as SMILES, and "two"
+    # with the mirror image of "one". Two shortcuts give the same answer without SMILES:
+    # `centre_stereogenic`, the caller knows one != two (a labelled CH2 whose heavy ligands
+    # fall in different symmetry classes: the label fixes the centre, so no symmetry undoes
+    # its inversion); `parent_chiral`, the unlabelled molecule differs from its mirror
+    # image, and "two" carries the molecule while the mirror image of "one" carries its
+    # enantiomer, so they differ.
+    if centre_stereogenic and parent_chiral:
+        return True
     # the plain H removed once (the label stays; heavy-atom indices do not change); the
     # centre has no tag yet, so no configuration is lost
     bare = Chem.RemoveHs(labelled) if labelled.GetNumAtoms() > labelled.GetNumHeavyAtoms() else labelled
-    one = _with_tag(bare, centre, Chem.ChiralType.CHI_TETRAHEDRAL_CW)
     two = _with_tag(bare, centre, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
-    if one == two:
+    if not centre_stereogenic and _with_tag(bare, centre, Chem.ChiralType.CHI_TETRAHEDRAL_CW) == two:
         return False
-    mirror = _with_tag(_mirror(bare), centre, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
+    if parent_chiral:
+        return True
+    mirror = _with_tag(mirror_image(bare), centre, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
     return two != mirror
 
 
-def _may_be_prochiral(atom: Chem.Atom, classes: tuple[int, ...]) -> bool:
-    """An sp3 centre Caabc: two equivalent heavy ligands, the other two different."""
-    if atom.GetHybridization() != Chem.HybridizationType.SP3 or atom.GetTotalNumHs() > 1:
-        return False
+def _may_be_prochiral(nbrs: list[int], classes: tuple[int, ...]) -> bool:
+    """An sp3 centre Caabc (the caller checks sp3 and at most one H): two equivalent heavy
+    ligands, the other two different."""
     counts: dict[int, int] = {}
-    for nb in atom.GetNeighbors():
-        counts[classes[nb.GetIdx()]] = counts.get(classes[nb.GetIdx()], 0) + 1
+    for nb in nbrs:
+        counts[classes[nb]] = counts.get(classes[nb], 0) + 1
     return max(counts.values(), default=0) == 2
 
 
 def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: list[tuple[str, int, bool]],
-                    *, fast: bool = True) -> tuple[frozenset[int], tuple[tuple[int, int], ...]]:
+                    *, fast: bool = True, graph: MolGraph | None = None
+                    ) -> tuple[frozenset[int], tuple[tuple[int, int], ...]]:
     """Diastereotopic CH2 carbons and pairs of diastereotopic twin groups.
 
-    ``fast=False`` runs the full substitution test everywhere (the tests compare both).
+    ``fast=False`` runs the full substitution test everywhere (the tests compare both);
+    ``graph`` is the molecule's graph view if the caller has built it.
     """
+    from .graph import MolGraph  # the graph module reads this one's constants
+
+    g = graph if graph is not None else MolGraph(mol)
+    sp3 = Chem.HybridizationType.SP3
+    # sp3 atoms (of any element), read once
+    tetrahedral = [mol.GetAtomWithIdx(i).GetHybridization() == sp3 for i in range(g.n)]
+    nbrs_of, nh_of = g.nbrs, g.nh_total
     # Cheap pre-test: without a stereo element or a prochiral centre nothing can be
     # diastereotopic, which spares the labelled-molecule test for most small molecules.
-    if not original_stereo and not any(_may_be_prochiral(a, classes) for a in mol.GetAtoms()):
+    if not original_stereo and not any(tetrahedral[i] and nh_of[i] <= 1 and _may_be_prochiral(nbrs_of[i], classes)
+                                       for i in range(g.n)):
         return frozenset(), ()
     # Fast path of the substitution test, without building the labelled molecule: when no
     # configuration is specified, the test says "diastereotopic" as soon as the labelled
@@ -393,21 +437,25 @@ def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: li
     # classes (labelling only refines classes), and the unlabelled molecule already has a
     # stereo element elsewhere (it keeps it after labelling). Every other case runs the test.
     tetra = [(at, spec) for kind, at, spec in original_stereo if kind != "Bond_Double"]
-    fast = fast and not any(spec for _, spec in tetra)
+    given = any(spec for _, spec in tetra)
+    # with configurations given: is the molecule chiral (unequal to its mirror image)?
+    shortcuts = fast
+    chiral = shortcuts and given and mol_smiles(mol) != mol_smiles(mirror_image(mol))
+    fast = fast and not given
     elsewhere = {at for at, _ in tetra}
     ch2: set[int] = set()
     pairs: list[tuple[int, int]] = []
-    for atom in mol.GetAtoms():
-        idx = atom.GetIdx()
-        if atom.GetAtomicNum() != 6 or atom.GetHybridization() != Chem.HybridizationType.SP3:
+    for idx in range(g.n):
+        if g.z[idx] != 6 or not tetrahedral[idx]:
             continue
-        neighbours = [nb.GetIdx() for nb in atom.GetNeighbors()]
-        n_h = atom.GetTotalNumHs()
+        neighbours = nbrs_of[idx]
+        n_h = nh_of[idx]
         other_element = fast and bool(elsewhere - {idx})
         if n_h == 2 and len(neighbours) == 2:
             if other_element and classes[neighbours[0]] != classes[neighbours[1]]:
                 ch2.add(idx)
-            elif _is_diastereotopic_after_label(_label_one_h(mol, idx), idx):
+            elif _is_diastereotopic_after_label(_label_one_h(mol, idx), idx, chiral,
+                                                shortcuts and classes[neighbours[0]] != classes[neighbours[1]]):
                 ch2.add(idx)
         by_class: dict[int, list[int]] = {}
         for nb in neighbours:
@@ -420,7 +468,7 @@ def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: li
                 rest = [x for x in neighbours if x != a and x != b]
                 if other_element and (n_h == 1 or (len(rest) == 2 and classes[rest[0]] != classes[rest[1]])):
                     pairs.append((a, b))
-                elif _is_diastereotopic_after_label(_label_atom(mol, a), idx):
+                elif _is_diastereotopic_after_label(_label_atom(mol, a), idx, chiral):
                     pairs.append((a, b))
     return frozenset(ch2), tuple(pairs)
 
@@ -428,23 +476,28 @@ def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: li
 def perceive(mol: Chem.Mol, smiles: str = "") -> Structure:
     """Perceive an already parsed molecule (see :func:`parse_structure`)."""
     classes = tuple(int(r) for r in Chem.CanonicalRankAtoms(mol, breakTies=False, includeChirality=False))
+    from .graph import MolGraph
+
+    graph = MolGraph(mol)  # built here once, kept with the structure for the predictors
     original_stereo = _stereo_elements(mol)
-    ch2, pairs = _diastereotopic(mol, classes, original_stereo)
+    ch2, pairs = _diastereotopic(mol, classes, original_stereo, graph=graph)
     stereo = tuple(sorted(at for kind, at, _ in original_stereo if kind == "Atom_Tetrahedral"))
     specified = tuple(sorted(at for kind, at, spec in original_stereo if kind == "Atom_Tetrahedral" and spec))
-    plain = Chem.MolToSmiles(mol, isomericSmiles=False)
-    return Structure(
+    plain = mol_smiles(mol, isomeric=False)
+    structure = Structure(
         mol=mol,
-        smiles=smiles or Chem.MolToSmiles(mol),
+        smiles=smiles or mol_smiles(mol),
         canonical_smiles=plain,
         formula=_hill_formula(mol),
         symmetry_classes=classes,
         diastereotopic_ch2=ch2,
         diastereotopic_pairs=pairs,
         stereocentres=stereo,
-        isomeric_smiles=Chem.MolToSmiles(mol) if original_stereo else plain,
+        isomeric_smiles=mol_smiles(mol) if original_stereo else plain,
         specified_stereo=specified,
     )
+    structure._memo["graph"] = graph
+    return structure
 
 
 @lru_cache(maxsize=4096)

@@ -357,6 +357,7 @@ class _Candidate:
     name: str
     groups: tuple  # ProtonGroup with couplings
     placeholder: bool
+    pred: object = None  # the Prediction (exact second-order spectra in the full-spectrum fit)
 
 
 #: geminal 2J between diastereotopic twins is left out of the fitted multiplets when
@@ -411,7 +412,7 @@ def _prepare_candidates(candidates: Sequence[str], names: Sequence[str] | None,
         if not any(not g.exchangeable for g in groups):
             raise SpecmatchError(f"candidate {i + 1} ({smi}) has no C-H protons; a 1H ratio cannot include it")
         name = names[i] if names and i < len(names) and names[i] else smi
-        out.append(_Candidate(smi, name, groups, "placeholder" in (pred.tables_version or "")))
+        out.append(_Candidate(smi, name, groups, "placeholder" in (pred.tables_version or ""), pred))
     return out
 
 
@@ -574,7 +575,7 @@ def _observed_integral_ratio(cands: Sequence[_Candidate], fit, peaklist, f_mhz: 
     envelope elsewhere does not enter. Returns the ratio (or None and why) and, per
     candidate, the relative spread of its diagnostic multiplets' per-proton amounts.
     """
-    if peaklist is None or not getattr(peaklist, "multiplets", None):
+    if peaklist is None or not peaklist.multiplets:
         return None, "no peak list", {}
     x, y, used = fit.x, fit.y, fit.used
     h = float(x[1] - x[0])
@@ -804,12 +805,12 @@ def estimate_mixture(
     """
     warnings: list[str] = []
     for obj in (spectrum, peaklist):
-        if obj is not None and getattr(obj, "nucleus", "1H") != "1H":
+        if obj is not None and obj.nucleus != "1H":
             raise SpecmatchError(
                 f"a product ratio needs a 1H spectrum; this is {obj.nucleus}. 13C intensities are not "
                 "quantitative under routine conditions (nuclear Overhauser enhancement, unequal "
                 "relaxation), so specmatch does not report a ratio from them")
-        if obj is not None and getattr(obj, "experiment", "1D") != "1D":
+        if obj is not None and obj.experiment != "1D":
             raise SpecmatchError(f"a product ratio needs a plain 1D 1H spectrum, not {obj.experiment}")
     if spectrum is None and peaklist is None:
         raise SpecmatchError("give a 1H spectrum or a 1H peak list with integrals")
@@ -852,7 +853,8 @@ def _from_spectrum(cands, spectrum, peaklist, solvent, f_mhz, warnings, src) -> 
                              "export the processed (real, phased) 1H spectrum")
     masks, mask_names, lines = _masks(peaklist, solvent, warnings, cands)
     fit = fit_spectrum(ppm, y, [c.groups for c in cands], frequency_mhz=f_mhz, masks_ppm=masks,
-                       extra_lines_ppm=lines)
+                       extra_lines_ppm=lines, predictions=[c.pred for c in cands])
+    exact = any("exact second-order" in n for n in fit.notes)
     fitted: dict[int, dict[int, float]] = {}
     for j, g in enumerate(fit.groups):
         fitted.setdefault(g.component, {})[g.index] = float(fit.shifts_ppm[j])
@@ -874,9 +876,11 @@ def _from_spectrum(cands, spectrum, peaklist, solvent, f_mhz, warnings, src) -> 
     if fit.oh is not None and fit.oh[0] > 0:
         warnings.append(f"exchangeable OH line fitted at {fit.oh[1]:.2f} ppm ({fit.oh[2]:.0f} Hz wide); "
                         "not used for the ratio")
-    method = (f"full-spectrum fit: non-negative combination of the candidates' simulated first-order 1H "
-              f"spectra ({f_mhz:.0f} MHz), per-group shift (within {3:.0f} prediction sigma) and J "
-              f"refinement, one line width ({fit.width_hz:.2f} Hz fitted), degree-2 baseline; "
+    kind = ("exact (second-order) 1H spectra" if exact else "first-order 1H multiplets")
+    method = (f"full-spectrum fit: non-negative combination of the candidates' simulated {kind} "
+              f"({f_mhz:.0f} MHz), per-group shift refinement (within {3:.0f} prediction sigma)"
+              f"{'' if exact else ' and J refinement'}, one line width ({fit.width_hz:.2f} Hz fitted), "
+              f"degree-2 baseline; "
               f"masked: {', '.join(mask_names)}")
     unc = (f"fit covariance at the solution (Gauss-Newton), inflated x{fit.inflation:.2f} for excess residual "
            f"and residual correlation, plus {100 * MODEL_SD_FLOOR:.1f} percentage points in quadrature for the "
@@ -956,7 +960,7 @@ def mixture_from_files(h1_path: str | Path, candidates_path: str | Path, *, solv
     lines = read_candidates(candidates_path)
     smiles, names = [c.smiles for c in lines], [c.name for c in lines]
     obj = read_spectrum(str(h1_path))
-    if getattr(obj, "nucleus", "1H") != "1H":
+    if obj.nucleus != "1H":
         raise SpecmatchError(
             f"'{h1_path}' is a {obj.nucleus} file. 13C intensities are not quantitative under routine "
             "conditions (nuclear Overhauser enhancement, unequal relaxation), so specmatch does not "

@@ -33,6 +33,11 @@ solution, inflated for excess residual (reduced chi-square over the signal
 points) and for the correlation of neighbouring residuals (model misfit is
 smooth, noise is not).
 
+With the candidates' predictions the same model is built on their exact (second-order)
+spectra instead (:func:`exact_fit`, no coupling parameters: the predicted network at
+the field), searched from several starts and polished with
+``scipy.optimize.least_squares``; see the section at the end of this module.
+
 Pure functions on arrays; no file access.
 """
 
@@ -52,7 +57,7 @@ BOUND_SIGMAS = 3.0
 MIN_BOUND_PPM = 0.03
 MAX_BOUND_PPM = 1.0
 BASELINE_DEGREE = 2
-#: working grid spacing (Hz); finer input is binned (averaged) to this
+#: working grid spacing (Hz); finer input is thinned to this (every n-th point)
 GRID_HZ = 0.2
 #: line-width bounds (Hz) for the non-exchangeable lines
 WIDTH_BOUNDS_HZ = (0.2, 8.0)
@@ -76,6 +81,9 @@ RESTART_FRACTION = 0.03
 #: a signal "carries" a component when that component makes at least this share of
 #: the fitted intensity over the signal's range
 PURITY_MIN = 0.95
+#: an exact (second-order) fit this good (reduced chi-square over the signal points) is
+#: taken as it is; a worse one is compared with the first-order fit (data chi-square)
+EXACT_GOOD_CHI2 = 3.0
 
 
 @dataclass(frozen=True)
@@ -218,25 +226,30 @@ def group_models(components: Sequence[Sequence[ProtonGroup]]) -> list[GroupModel
 # -------------------------------------------------------------------- preprocessing
 def prepare_axis(ppm: np.ndarray, intensity: np.ndarray, frequency_mhz: float,
                  lo_ppm: float, hi_ppm: float) -> tuple[np.ndarray, np.ndarray, float]:
-    """Ascending, cropped, uniform (binned to ~GRID_HZ) copy of the spectrum, and the noise sd.
+    """Ascending, cropped, uniform (thinned to ~GRID_HZ) copy of the spectrum, and the noise sd.
 
-    The noise is the robust (MAD) spread of first differences over the whole input,
-    which signals barely affect.
+    The noise is the robust (MAD) spread of first differences over the whole input
+    (not only the cropped range), which signals barely affect.
     """
     x = np.asarray(ppm, float)
     y = np.asarray(intensity, float)
     if x[0] > x[-1]:
         x, y = x[::-1], y[::-1]
     step_in = float(np.median(np.diff(x)))
-    keep = (x >= lo_ppm) & (x <= hi_ppm)
-    x, y = x[keep], y[keep]
     factor = max(1, int(np.ceil(GRID_HZ / frequency_mhz / step_in - 1e-9)))
-    if factor > 1:
-        n = (len(x) // factor) * factor
-        x = x[:n].reshape(-1, factor).mean(axis=1)
-        y = y[:n].reshape(-1, factor).mean(axis=1)
-    dy = np.diff(y)
+
+    def binned(a):
+        # every factor-th point, not the bin mean: a bin mean is not the line shape at the
+        # bin centre (2.9% low at the top of a 0.9 Hz line averaged over 0.3 Hz), which a
+        # high signal-to-noise spectrum shows as misfit far above the noise
+        return a[::factor]
+
+    # noise from the whole input (thinned alike): mostly baseline, whereas inside the fitted
+    # range the steep flanks of crowded multiplets would inflate the spread of differences
+    dy = np.diff(binned(y))
     noise = 1.4826 * float(np.median(np.abs(dy - np.median(dy)))) / np.sqrt(2.0)
+    keep = (x >= lo_ppm) & (x <= hi_ppm)
+    x, y = binned(x[keep]), binned(y[keep])
     if not noise > 0:
         noise = 1e-6 * max(float(np.max(np.abs(y))), 1e-12)
     return x, y, noise
@@ -537,27 +550,23 @@ def _swap_moves(model: _Model, theta: np.ndarray, with_oh: bool, active: np.ndar
     return theta
 
 
-def _search_oh(model: _Model, theta: np.ndarray, q: int) -> np.ndarray:
-    """Place the free exchangeable line where the residual has a broad positive hump."""
+def _broad_line_place(x: np.ndarray, r: np.ndarray, used: np.ndarray, f: float):
+    """(height, centre, width Hz) of the broad line that best explains the positive
+    residual ``r`` within OH_RANGE_PPM (widths 5, 15, 40 Hz tried), or None."""
     from scipy.signal import correlate
 
-    x, used = model.x_all, model.used
     h = x[1] - x[0]
-    theta = theta.copy()
-    theta[model.i_free[q][0]] = 0.0
-    r = np.where(used, model.y_all - model.evaluate(theta, x, model.leg_all), 0.0)
     m = used.astype(float)
+    r = np.where(used, r, 0.0)
     lo, hi = max(OH_RANGE_PPM[0], x[0]), min(OH_RANGE_PPM[1], x[-1])
-    best = (0.0, 0.5 * (lo + hi), 10.0)
-    best_gain = 0.0
+    best, best_gain = None, 0.0
     for wd in (5.0, 15.0, 40.0):
-        hw = wd / model.f / 2.0
+        hw = wd / f / 2.0
         half_pts = int(np.ceil(30 * hw / h))
         tx = np.arange(-half_pts, half_pts + 1) * h
         t = _profile(tx, 0.0, np.zeros(1), np.ones(1), hw)
-        rp, mp = np.pad(r, half_pts), np.pad(m, half_pts)
-        corr = correlate(rp, t, mode="valid")
-        norm = correlate(mp, t * t, mode="valid")
+        corr = correlate(np.pad(r, half_pts), t, mode="valid")
+        norm = correlate(np.pad(m, half_pts), t * t, mode="valid")
         ok = (x >= lo) & (x <= hi) & (corr > 0) & (norm > 0)
         if not ok.any():
             continue
@@ -566,7 +575,18 @@ def _search_oh(model: _Model, theta: np.ndarray, q: int) -> np.ndarray:
         if gain[i] > best_gain:
             best_gain = gain[i]
             best = (corr[i] / norm[i], x[i], wd)
-    theta[model.i_free[q]] = best
+    return best
+
+
+def _search_oh(model: _Model, theta: np.ndarray, q: int) -> np.ndarray:
+    """Place the free exchangeable line where the residual has a broad positive hump."""
+    x = model.x_all
+    theta = theta.copy()
+    theta[model.i_free[q][0]] = 0.0
+    r = model.y_all - model.evaluate(theta, x, model.leg_all)
+    best = _broad_line_place(x, r, model.used, model.f)
+    lo, hi = max(OH_RANGE_PPM[0], x[0]), min(OH_RANGE_PPM[1], x[-1])
+    theta[model.i_free[q]] = best if best is not None else (0.0, 0.5 * (lo + hi), 10.0)
     return theta
 
 
@@ -602,9 +622,10 @@ def fit_spectrum(
         Rounds of per-group shift search before the non-linear polish.
     predictions : sequence of Prediction, optional
         One per component, the predictions the groups come from (same order). When
-        given, the first-order solution is polished on the exact second-order
-        spectra at ``frequency_mhz`` (:func:`exact_polish`); the result is kept if it
-        fits better.
+        given, the fit is made on the exact second-order spectra at ``frequency_mhz``
+        (:func:`exact_fit`); if that leaves a reduced chi-square above
+        ``EXACT_GOOD_CHI2``, the first-order fit runs too and the lower data
+        chi-square wins.
 
     Returns
     -------
@@ -628,14 +649,35 @@ def fit_spectrum(
         used &= ~((x >= min(a, b)) & (x <= max(a, b)))
     with_oh = has_oh and (x[0] < OH_RANGE_PPM[1]) and (x[-1] > OH_RANGE_PPM[0])
     # free lines: (name, start centre, centre bounds, width bounds Hz, start width Hz)
-    free = []
-    if with_oh:
-        free.append(("OH", 2.0, OH_RANGE_PPM, OH_WIDTH_BOUNDS_HZ, 15.0))
-    for name, c in extra_lines_ppm:
-        if x[0] - 0.05 <= c <= x[-1] + 0.05:
-            free.append((name, float(c), (c - 0.03, c + 0.03), (0.3, 12.0), 2.0))
-    model = _Model(x, y, used, groups, K, f, noise, free)
+    extra = [(name, float(c), (c - 0.03, c + 0.03), (0.3, 12.0), 2.0)
+             for name, c in extra_lines_ppm if x[0] - 0.05 <= c <= x[-1] + 0.05]
+    oh_line = ("OH", 2.0, OH_RANGE_PPM, OH_WIDTH_BOUNDS_HZ, 15.0)
+    free = ([oh_line] if with_oh else []) + extra
+    model, theta, lb, ub = _setup(x, y, used, groups, K, f, noise, free)
 
+    exact = None
+    if predictions is not None and len(predictions) == K:
+        # exact fit: one free broad line per candidate with OH (slow exchange between the
+        # alcohols gives one line each; fast exchange makes them coincide, which the
+        # free lines can do as well)
+        n_oh = sum(1 for comp in components if any(g.exchangeable for g in comp)) if with_oh else 0
+        free_x = [(f"OH{i + 1}" if i else "OH", *oh_line[1:]) for i in range(n_oh)] + extra
+        model_x, theta_x, lb_x, ub_x = _setup(x, y, used, groups, K, f, noise, free_x)
+        try:
+            exact = exact_fit(model_x, theta_x, lb_x, ub_x, predictions, free_x, n_oh)
+        except SpecmatchError:
+            exact = None  # groups that do not match a structure: first order only
+        if exact is not None and exact.chi2_red <= EXACT_GOOD_CHI2:
+            return exact
+    fit = _first_order_fit(model, theta, lb, ub, groups, free, with_oh, sweeps)
+    if exact is not None and _data_chi2(exact) <= _data_chi2(fit):
+        return exact
+    return fit
+
+
+def _setup(x, y, used, groups, K, f, noise, free):
+    """The first-order model, its start vector and bounds."""
+    model = _Model(x, y, used, groups, K, f, noise, free)
     theta = np.zeros(model.n)
     theta[model.i_c] = [g.shift0 for g in groups]
     for j, g in enumerate(groups):
@@ -654,7 +696,18 @@ def fit_spectrum(
     for q, (_, _, (clo, chi), (wlo, whi), _) in enumerate(free):
         lb[model.i_free[q]] = (0.0, clo, wlo)
         ub[model.i_free[q]] = (np.inf, chi, whi)
+    return model, theta, lb, ub
 
+
+def _data_chi2(fit: SpectrumFit) -> float:
+    r = (fit.y - fit.fitted)[fit.used] / fit.noise_sd
+    return float(r @ r)
+
+
+def _first_order_fit(model: _Model, theta: np.ndarray, lb: np.ndarray, ub: np.ndarray, groups, free,
+                     with_oh: bool, sweeps: int) -> SpectrumFit:
+    """Staged searches on first-order multiplets, detection test, restart from the resolved signals."""
+    K = model.K
     theta, best_cost = _fit_starts(model, theta, lb, ub, list(range(K)), sweeps, with_oh)
     theta, undetected = _detection_test(model, theta, best_cost, lb, ub, sweeps, with_oh)
 
@@ -679,16 +732,6 @@ def fit_spectrum(
             trial, c_trial = _fit_starts(model, theta, lb, ub, comps, sweeps, with_oh, w_init=trial[model.i_w])
             if c_trial < model.cost(theta):
                 fit = _assemble(model, trial, undetected, groups, free, with_oh)
-                theta = trial
-    if predictions is not None and len(predictions) == K:
-        for k in undetected:  # candidates found absent keep zero weight
-            lb[model.i_w[k]] = ub[model.i_w[k]] = 0.0
-        try:
-            exact = exact_polish(fit, model, theta, lb, ub, predictions)
-        except SpecmatchError:
-            exact = None  # groups that do not match a structure: first order only
-        if exact is not None:
-            fit = exact
     return fit
 
 
@@ -699,20 +742,8 @@ def _assemble(model: _Model, theta: np.ndarray, undetected: dict[int, float], gr
     # covariance over the parameters that are not pinned (weights at zero stay in:
     # their sd is what says "absent within the uncertainty")
     Jm = model.jacobian(theta)
-    r = model.residuals(theta)
-    N = len(model.xu)
-    rd = r[:N]
-    comp = model.component_matrix(theta)
-    shape_total = theta[model.i_w] @ comp
-    signal = shape_total > 3.0 * noise
-    dof = max(1, int(signal.sum()) - model.n) if signal.any() else max(1, N - model.n)
-    chi2_sig = float(np.sum(rd[signal] ** 2) / dof) if signal.any() else float(np.mean(rd**2))
-    tau = _autocorr_time(rd, signal)
-    inflation = max(1.0, chi2_sig) * tau
-    JTJ = _gram(Jm)
-    keep = np.where(np.abs(np.diag(JTJ)) > 1e-12 * max(1.0, float(np.max(np.diag(JTJ)))))[0]
-    cov = np.zeros((model.n, model.n))
-    cov[np.ix_(keep, keep)] = np.linalg.pinv(JTJ[np.ix_(keep, keep)]) * inflation
+    rd = model.residuals(theta)[:len(model.xu)]
+    cov, chi2_sig, inflation = _uncertainty(Jm, rd, theta[model.i_w] @ model.component_matrix(theta), noise, model.n)
     wcov = cov[np.ix_(model.i_w, model.i_w)]
 
     full_comp = model.component_matrix(theta, x)
@@ -1010,22 +1041,69 @@ def signal_regions(fit: SpectrumFit, model: _Model, theta: np.ndarray) -> list[S
     return regions
 
 
-# ------------------------------------------------------------ exact (second-order) polish
+# ------------------------------------------------------------ exact (second-order) fit
 #: lines of a candidate are evaluated within this many Hz of their centre (the
 #: Lorentzian value there is below 1e-4 of the peak for lines narrower than 1.2 Hz)
 EXACT_WINDOW_HZ = 60.0
+#: ... and a line k times weaker than the candidate's strongest within EXACT_WINDOW_HZ /
+#: sqrt(k), at least EXACT_MIN_WINDOW_HZ: its cut-off tail is then no larger than the
+#: strongest line's (the Lorentzian tail falls as amplitude / distance**2)
+EXACT_MIN_WINDOW_HZ = 6.0
 #: rounds of (exact simulation at the current shifts -> least squares with the lines
 #: moved to first order in the shift changes); stops earlier when shifts settle (ppm)
-EXACT_ROUNDS = 4
+EXACT_ROUNDS = 3
 EXACT_SETTLE_PPM = 2e-4
+#: function evaluations per least-squares round (the searches have placed the groups)
+EXACT_MAX_NFEV = 15
+#: for the fit, exact lines weaker than this (share of one proton) are dropped and lines
+#: closer than EXACT_MERGE_HZ merged: with lines >= 0.2 Hz wide neither shows above the noise
+EXACT_MIN_INTENSITY = 1e-5
+EXACT_MERGE_HZ = 0.01
+#: places tried per group and sweep (the best separated minima of the grid correlation)
+EXACT_TRIALS = 3
+#: sweeps of per-group searches per start
+EXACT_SWEEPS = 2
+#: starts: the predicted shifts, then shifts drawn within one prediction sigma (fixed
+#: seed), EXACT_MAX_STARTS in all
+EXACT_MAX_STARTS = 3
+EXACT_SEED = 20260419
+#: chi-square per point after the first start's searches beyond which the exact fit
+#: stops there (the first-order fit is compared with it instead of more starts)
+EXACT_HOPELESS_CHI2 = 50.0
 
 
 def _exact_lines(pred, shifts_ppm, f):
     from ...prediction.simulate import prediction_lines
+    from ...prediction.spin import merge_lines
 
-    lines = prediction_lines(pred, f, shifts=shifts_ppm)
-    keep = lines.intensity > 1e-6
-    return lines.ppm[keep], lines.intensity[keep], lines.dhz_dshift[keep]
+    lines = prediction_lines(pred, f, shifts=shifts_ppm, cached=False)
+    keep = lines.intensity > EXACT_MIN_INTENSITY
+    hz, a, d = merge_lines(lines.hz[keep], lines.intensity[keep], lines.dhz_dshift[keep], EXACT_MERGE_HZ)
+    return hz / f, a, d
+
+
+def _line_windows(amps: np.ndarray, f: float) -> np.ndarray:
+    """Per line, the half range (ppm) over which it is evaluated (see EXACT_MIN_WINDOW_HZ)."""
+    if amps.size == 0:
+        return np.zeros(0)
+    rel = np.sqrt(amps / float(amps.max()))
+    return np.clip(rel * EXACT_WINDOW_HZ, EXACT_MIN_WINDOW_HZ, EXACT_WINDOW_HZ) / f
+
+
+def _stick_curve(x: np.ndarray, centres: np.ndarray, amps: np.ndarray, hw: float, win: float,
+                 comp: np.ndarray | None = None, n_comp: int = 1) -> np.ndarray:
+    """Area-normalised Lorentzians (half width ``hw``) on an ascending axis, each evaluated
+    within ``win`` (scalar or per line) of its centre; with ``comp`` one row per component."""
+    lo = np.searchsorted(x, centres - win)
+    hi = np.searchsorted(x, centres + win)
+    cnt = hi - lo
+    line = np.repeat(np.arange(centres.size), cnt)
+    pt = np.repeat(lo - np.concatenate([[0], np.cumsum(cnt)[:-1]]), cnt) + np.arange(cnt.sum())
+    d = x[pt] - centres[line]
+    v = amps[line] * (hw / np.pi) / (d * d + hw * hw)
+    if comp is None:
+        return np.bincount(pt, weights=v, minlength=len(x))
+    return np.bincount(comp[line] * len(x) + pt, weights=v, minlength=n_comp * len(x)).reshape(n_comp, len(x))
 
 
 class _ExactModel:
@@ -1033,7 +1111,8 @@ class _ExactModel:
 
     theta: group shifts (G), width (Hz), weights (K), baseline, free lines (height,
     centre, width) as in :class:`_Model`; no coupling parameters (couplings are the
-    predicted network; the first-order search has refined the shifts already).
+    predicted network). Each candidate's lines (``parts[k]``: ppm, intensity,
+    d ppm / d shift per fit group) come from the exact simulation at ``ref``.
     """
 
     def __init__(self, base: _Model, predictions, ref_shifts: np.ndarray):
@@ -1047,38 +1126,49 @@ class _ExactModel:
         self.i_b = self.G + 1 + self.K + np.arange(self.nb)
         self.i_free = (self.G + 1 + self.K + self.nb + np.arange(3 * self.L)).reshape(self.L, 3)
         self.n = self.G + 1 + self.K + self.nb + 3 * self.L
+        self.parts: list = [None] * self.K
         self.relinearise(ref_shifts)
+
+    def simulate(self, k: int, shifts: np.ndarray):
+        """Exact lines of candidate k with its groups at ``shifts`` (one per fit group)."""
+        pred = self.preds[k]
+        sh = np.array([g.shift for g in pred.protons], float)
+        cols = {}
+        for j, g in enumerate(self.b.groups):
+            if g.component == k:
+                sh[g.index] = shifts[j]
+                cols[g.index] = j
+        p, a, d = _exact_lines(pred, sh, self.f)
+        Dj = np.zeros((p.size, self.G))
+        for idx, j in cols.items():
+            Dj[:, j] = d[:, idx]
+        return p, a, Dj
+
+    def set_part(self, k: int, part, shifts: np.ndarray) -> None:
+        self.parts[k] = part
+        own = [j for j, g in enumerate(self.b.groups) if g.component == k]
+        self.ref[own] = np.asarray(shifts, float)[own]
+        self._join()
 
     def relinearise(self, shifts: np.ndarray) -> None:
         """Exact simulation of every candidate at ``shifts`` (one per fit group)."""
         self.ref = np.array(shifts, float)
-        ppm, inten, comp, D = [], [], [], []
-        for k, pred in enumerate(self.preds):
-            sh = np.array([g.shift for g in pred.protons], float)
-            cols = {}
-            for j, g in enumerate(self.b.groups):
-                if g.component == k:
-                    sh[g.index] = self.ref[j]
-                    cols[g.index] = j
-            p, a, d = _exact_lines(pred, sh, self.f)
-            Dj = np.zeros((p.size, self.G))
-            for idx, j in cols.items():
-                Dj[:, j] = d[:, idx]
-            ppm.append(p)
-            inten.append(a)
-            comp.append(np.full(p.size, k))
-            D.append(Dj)
-        self.ppm0 = np.concatenate(ppm)
-        self.amp = np.concatenate(inten)
-        self.comp = np.concatenate(comp)
-        self.D = np.vstack(D)
+        for k in range(self.K):
+            self.parts[k] = self.simulate(k, self.ref)
+        self._join()
+
+    def _join(self) -> None:
+        self.ppm0 = np.concatenate([p for p, _, _ in self.parts])
+        self.amp = np.concatenate([a for _, a, _ in self.parts])
+        self.comp = np.concatenate([np.full(p.size, k) for k, (p, _, _) in enumerate(self.parts)])
+        self.D = np.vstack([D for _, _, D in self.parts])
+        self.win = np.concatenate([_line_windows(a, self.f) for _, a, _ in self.parts])
 
     def _lines(self, theta, x):
         c = self.ppm0 + self.D @ (theta[self.i_c] - self.ref)
         hw = theta[self.i_wd] / self.f / 2.0
-        win = EXACT_WINDOW_HZ / self.f
-        lo = np.searchsorted(x, c - win)
-        hi = np.searchsorted(x, c + win)
+        lo = np.searchsorted(x, c - self.win)
+        hi = np.searchsorted(x, c + self.win)
         cnt = hi - lo
         line = np.repeat(np.arange(c.size), cnt)
         start = np.repeat(lo - np.concatenate([[0], np.cumsum(cnt)[:-1]]), cnt)
@@ -1093,13 +1183,20 @@ class _ExactModel:
         v = self.amp[line] * (hw / np.pi) / den
         return np.bincount(self.comp[line] * len(x) + pt, weights=v, minlength=self.K * len(x)).reshape(self.K, len(x))
 
+    def free_lines(self, theta, x):
+        """Unit-height free-line profiles (L, N)."""
+        out = np.zeros((self.L, len(x)))
+        for q in range(self.L):
+            _, c, wd = theta[self.i_free[q]]
+            out[q] = _profile(x, c, np.zeros(1), np.ones(1), wd / self.f / 2.0)
+        return out
+
     def evaluate(self, theta, x=None, leg=None):
         x = self.b.xu if x is None else x
         leg = self.b.leg if leg is None else leg
         m = theta[self.i_w] @ self.components(theta, x) + leg @ theta[self.i_b]
-        for q in range(self.L):
-            h, c, wd = theta[self.i_free[q]]
-            m = m + h * _profile(x, c, np.zeros(1), np.ones(1), wd / self.f / 2.0)
+        if self.L:
+            m = m + theta[self.i_free[:, 0]] @ self.free_lines(theta, x)
         return m
 
     def priors(self, theta):
@@ -1107,6 +1204,9 @@ class _ExactModel:
 
     def residuals(self, theta):
         return np.concatenate([(self.evaluate(theta) - self.b.yu) / self.b.noise, self.priors(theta)])
+
+    def cost(self, theta) -> float:
+        return float(np.sum(self.residuals(theta) ** 2))
 
     def jacobian(self, theta):
         from scipy.sparse import csr_matrix
@@ -1135,93 +1235,406 @@ class _ExactModel:
         return J
 
 
-def exact_polish(fit: SpectrumFit, model: _Model, theta: np.ndarray, lb: np.ndarray, ub: np.ndarray,
-                 predictions) -> SpectrumFit | None:
-    """Refit on exact (second-order) candidate spectra, starting from the first-order solution.
+class _ExactSearch:
+    """Global search of the group shifts on exact candidate spectra.
 
-    ``scipy.optimize.least_squares`` (trust-region reflective, bounds: shifts within
-    their prediction bounds, weights and heights >= 0, widths within their ranges)
-    with an analytic Jacobian: line positions move with the shifts through their
-    Hellmann-Feynman derivatives, and the spectra are re-simulated exactly at the new
-    shifts between rounds. Returns the new fit, or None if it is not better.
+    Per group, the grid correlation of its own lines (those whose position follows its
+    shift, Hellmann-Feynman derivative > 0.5) with the residual proposes the
+    ``EXACT_TRIALS`` best places within its bounds; each is judged by simulating the
+    candidate exactly there and re-solving amounts, baseline and free-line heights
+    (linear, non-negative), so a strongly coupled pattern that changes shape as its
+    groups move is judged as it really looks. Shifts always equal the simulation's
+    reference here (no linearisation).
     """
-    from scipy.optimize import least_squares
 
-    G = model.G
-    em = _ExactModel(model, predictions, theta[model.i_c])
-    # map first-order theta -> exact theta
-    t = np.zeros(em.n)
-    t[em.i_c] = theta[model.i_c]
-    t[em.i_wd] = theta[model.i_wd]
-    t[em.i_w] = theta[model.i_w]
-    t[em.i_b] = theta[model.i_b]
-    for q in range(model.L):
-        t[em.i_free[q]] = theta[model.i_free[q]]
+    def __init__(self, em: _ExactModel, theta: np.ndarray, hi: np.ndarray, n_oh: int):
+        self.em = em
+        b = em.b
+        self.x, self.y, self.used = b.x_all, b.y_all, b.used
+        self.h = self.x[1] - self.x[0]
+        self.t = theta.copy()
+        self.t[em.i_c] = em.ref
+        self.active = hi[em.i_w] > 0
+        self.n_oh = n_oh
+        self.curves = self._curves()
+        self.t, self.c = self.solve(self.curves, self.t)
+
+    # -- model pieces on the full grid
+    def _hw(self, t=None) -> float:
+        return float((self.t if t is None else t)[self.em.i_wd]) / self.em.f / 2.0
+
+    def _curve(self, part, t=None) -> np.ndarray:
+        p, a, _ = part
+        return _stick_curve(self.x, p, a, self._hw(t), _line_windows(a, self.em.f))
+
+    def _curves(self, t=None) -> np.ndarray:
+        return np.vstack([self._curve(part, t) for part in self.em.parts])
+
+    def total(self, curves=None, t=None) -> np.ndarray:
+        em, t = self.em, (self.t if t is None else t)
+        curves = self.curves if curves is None else curves
+        m = t[em.i_w] @ curves + em.b.leg_all @ t[em.i_b]
+        if em.L:
+            m = m + t[em.i_free[:, 0]] @ em.free_lines(t, self.x)
+        return m
+
+    def prior_cost(self, t) -> float:
+        return float(np.sum(self.em.priors(t) ** 2))
+
+    def solve(self, curves: np.ndarray, t: np.ndarray) -> tuple[np.ndarray, float]:
+        """Best amounts (>= 0), baseline and free-line heights (>= 0) for fixed shapes; (theta, cost)."""
+        from scipy.optimize import lsq_linear
+
+        em, b = self.em, self.em.b
+        u = self.used
+        C = curves[:, u] * self.active[:, None]
+        F = em.free_lines(t, b.xu)
+        A = np.hstack([C.T, b.leg, F.T]) / b.noise
+        lbv = np.concatenate([np.zeros(em.K), np.full(em.nb, -np.inf), np.zeros(em.L)])
+        Gm = _gram(A)
+        Gm[np.diag_indices_from(Gm)] += 1e-12 * max(float(np.max(np.diag(Gm))), 1e-300)
+        R = np.linalg.cholesky(Gm).T
+        rhs = np.einsum("ij,i->j", A, b.yu / b.noise)
+        d = np.linalg.solve(R.T, rhs)
+        sol = lsq_linear(R, d, bounds=(lbv, np.full(lbv.shape, np.inf)), method="bvls")
+        out = t.copy()
+        out[em.i_w] = sol.x[: em.K]
+        out[em.i_b] = sol.x[em.K: em.K + em.nb]
+        out[em.i_free[:, 0]] = sol.x[em.K + em.nb:]
+        r = A @ sol.x - b.yu / b.noise
+        return out, float(r @ r) + self.prior_cost(out)
+
+    # -- moves
+    def search_group(self, j: int) -> bool:
+        """Try the best grid places of group j; keep the best exact one. True if it moved."""
+        from scipy.signal import correlate
+
+        em, t = self.em, self.t
+        g = em.b.groups[j]
+        k = g.component
+        if not self.active[k]:
+            return False
+        p, a, D = em.parts[k]
+        own = D[:, j] > 0.5
+        if not own.any():
+            return False
+        hw = self._hw()
+        win = _line_windows(a, em.f)[own]
+        offs = p[own] - t[j]
+        amps = a[own]
+        wk = float(t[em.i_w[k]])
+        own_curve = _stick_curve(self.x, p[own], amps, hw, win)
+        r0 = np.where(self.used, self.y - self.total() + wk * own_curve, 0.0)
+        m = self.used.astype(float)
+        h = self.h
+        half_pts = int(np.ceil((float(np.max(np.abs(offs))) + 40.0 * 2 * hw) / h))
+        tx = np.arange(-half_pts, half_pts + 1) * h
+        tmpl = _stick_curve(tx, offs, amps, hw, win)
+        lo_c, hi_c = g.shift0 - g.bound, g.shift0 + g.bound
+        x = self.x
+        i_lo = max(int(np.ceil((lo_c - x[0]) / h)), 0)
+        i_hi = min(int(np.floor((hi_c - x[0]) / h)), len(x) - 1)
+        if i_hi <= i_lo:
+            return False
+        seg = slice(i_lo, i_hi + 2 * half_pts + 1)
+        corr = correlate(np.pad(r0, half_pts)[seg], tmpl, mode="valid")
+        norm = correlate(np.pad(m, half_pts)[seg], tmpl * tmpl, mode="valid")
+        centres = x[i_lo:i_hi + 1]
+        prior = ((centres - g.shift0) / g.sigma) ** 2 * em.b.noise**2
+        if wk > 0:
+            cost = -2.0 * wk * corr + wk * wk * norm + prior
+        else:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                cost = -np.where((corr > 0) & (norm > 0), corr * corr / norm, 0.0) + prior
+        # separated local minima, best first
+        order = np.argsort(cost)
+        sep = max(4.0 * hw, 2 * h)
+        picks: list[float] = []
+        for i in order:
+            c = centres[i]
+            if any(abs(c - q) < sep for q in picks):
+                continue
+            if 0 < i < len(cost) - 1:
+                aa, bb, cc = cost[i - 1], cost[i], cost[i + 1]
+                den = aa - 2 * bb + cc
+                if den > 0:
+                    c += float(np.clip(0.5 * (aa - cc) / den, -1.0, 1.0)) * h
+            picks.append(float(np.clip(c, lo_c, hi_c)))
+            if len(picks) >= EXACT_TRIALS:
+                break
+        best = None
+        for c in picks:
+            if abs(c - t[j]) < 0.2 * hw:
+                continue
+            sh = em.ref.copy()
+            sh[j] = c
+            part = em.simulate(k, sh)
+            curves = self.curves.copy()
+            curves[k] = self._curve(part)
+            trial = t.copy()
+            trial[j] = c
+            trial, cst = self.solve(curves, trial)
+            if cst < self.c and (best is None or cst < best[0]):
+                best = (cst, trial, part, curves, sh)
+        if best is None:
+            return False
+        self.c, self.t, part, self.curves, sh = best
+        em.set_part(k, part, sh)
+        return True
+
+    def search_oh(self) -> None:
+        """Place each free exchangeable line (the first ``n_oh`` free lines) in turn on the
+        broadest positive residual hump left by the others."""
+        em = self.em
+        for q in range(self.n_oh):
+            t = self.t.copy()
+            t[em.i_free[q][0]] = 0.0
+            best = _broad_line_place(self.x, self.y - self.total(t=t), self.used, em.f)
+            if best is None:
+                continue
+            t[em.i_free[q]] = best
+            trial, cst = self.solve(self.curves, t)
+            if cst < self.c:
+                self.t, self.c = trial, cst
+
+    def search_width(self) -> None:
+        em = self.em
+        w0 = float(self.t[em.i_wd])
+        for factor in (0.7, 0.85, 1.2, 1.45):
+            t = self.t.copy()
+            t[em.i_wd] = float(np.clip(w0 * factor, *WIDTH_BOUNDS_HZ))
+            curves = self._curves(t)
+            trial, cst = self.solve(curves, t)
+            if cst < self.c:
+                self.t, self.c, self.curves = trial, cst, curves
+
+    def sweep(self, order: Sequence[int]) -> int:
+        self.search_oh()
+        moved = sum(self.search_group(j) for j in order)
+        self.search_width()
+        return moved
+
+    def refresh(self, t: np.ndarray) -> None:
+        """Adopt a polished solution: simulate at its shifts, re-solve the linear part."""
+        self.em.relinearise(t[self.em.i_c])
+        self.curves = self._curves(t)
+        self.t, self.c = self.solve(self.curves, t)
+
+
+def _shared_index(model: _Model, em: _ExactModel) -> tuple[np.ndarray, np.ndarray]:
+    """Positions of the shared parameters (shifts, width, amounts, baseline, free lines) in
+    the first-order and in the exact parameter vector; the couplings are first-order only."""
+    fo = np.concatenate([model.i_c, [model.i_wd], model.i_w, model.i_b, model.i_free.ravel()]).astype(int)
+    ex = np.concatenate([em.i_c, [em.i_wd], em.i_w, em.i_b, em.i_free.ravel()]).astype(int)
+    return fo, ex
+
+
+def _exact_bounds(model: _Model, em: _ExactModel, lb: np.ndarray, ub: np.ndarray):
+    fo, ex = _shared_index(model, em)
     lo = np.full(em.n, -np.inf)
     hi = np.full(em.n, np.inf)
-    lo[em.i_c], hi[em.i_c] = lb[model.i_c], ub[model.i_c]
-    lo[em.i_wd], hi[em.i_wd] = lb[model.i_wd], ub[model.i_wd]
-    lo[em.i_w], hi[em.i_w] = lb[model.i_w], ub[model.i_w]
-    for q in range(model.L):
-        lo[em.i_free[q]], hi[em.i_free[q]] = lb[model.i_free[q]], ub[model.i_free[q]]
+    lo[ex], hi[ex] = lb[fo], ub[fo]
+    return lo, hi
+
+
+def _exact_theta(model: _Model, em: _ExactModel, theta: np.ndarray) -> np.ndarray:
+    """First-order parameter vector -> exact layout (couplings dropped)."""
+    fo, ex = _shared_index(model, em)
+    t = np.zeros(em.n)
+    t[ex] = theta[fo]
+    return t
+
+
+def _first_order_theta(model: _Model, em: _ExactModel, t: np.ndarray) -> np.ndarray:
+    """Exact solution -> first-order layout (predicted couplings), for the signal regions."""
+    fo, ex = _shared_index(model, em)
+    theta = np.zeros(model.n)
+    theta[fo] = t[ex]
+    for j, g in enumerate(model.groups):
+        theta[model.i_j[j]] = g.j0_hz
+    return theta
+
+
+def _exact_least_squares(em: _ExactModel, t: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+    """Bounded least squares on the exact model (``scipy.optimize.least_squares``, trust-region
+    reflective, analytic Jacobian: lines move with the shifts through their Hellmann-Feynman
+    derivatives); the candidates are re-simulated exactly at the new shifts between rounds."""
+    from scipy.optimize import least_squares
+
     span = np.where(np.isfinite(hi - lo), np.abs(hi - lo), 1.0)
     eps = 1e-9 * np.maximum(1.0, span)
+    t = t.copy()
     for _ in range(EXACT_ROUNDS):
         t = np.clip(t, lo + np.where(np.isfinite(lo), eps, 0), hi - np.where(np.isfinite(hi), eps, 0))
-        # weights pinned at zero (undetected candidates) stay there
-        pin = (hi - lo) <= 0
-        free = ~pin
+        free = (hi - lo) > 0  # weights pinned at zero (absent candidates) stay there
+        t[~free] = lo[~free]
 
-        def fun(v):
+        def fun(v, t=t, free=free):
             full = t.copy()
             full[free] = v
             return em.residuals(full)
 
-        def jac(v):
+        def jac(v, t=t, free=free):
             full = t.copy()
             full[free] = v
             return em.jacobian(full)[:, free]
 
         sol = least_squares(fun, t[free], jac=jac, bounds=(lo[free], hi[free]), method="trf",
-                            x_scale="jac", max_nfev=25)
+                            x_scale="jac", max_nfev=EXACT_MAX_NFEV)
         t[free] = sol.x
-        moved = float(np.max(np.abs(t[em.i_c] - em.ref))) if G else 0.0
+        moved = float(np.max(np.abs(t[em.i_c] - em.ref))) if em.G else 0.0
         em.relinearise(t[em.i_c])
         if moved < EXACT_SETTLE_PPM:
             break
-    cost_exact = float(np.sum(em.residuals(t) ** 2))
-    if not np.isfinite(cost_exact) or cost_exact >= model.cost(theta):
-        return None
-    # uncertainties, chi-square and curves as in _assemble, on the exact model
-    x, noise = model.x_all, model.noise
-    N = len(model.xu)
-    Jm = em.jacobian(t)
-    rd = em.residuals(t)[:N]
-    shape_total = t[em.i_w] @ em.components(t)
+    return t
+
+
+def _exact_run(em: _ExactModel, start: np.ndarray, lo: np.ndarray, hi: np.ndarray, n_oh: int,
+               sweeps: int = EXACT_SWEEPS, polish: bool = True) -> tuple[np.ndarray, float]:
+    """One start: per-group searches (largest groups first), then (``polish``) least squares,
+    a last search round and least squares again if a group moved; (theta, cost)."""
+    em.relinearise(start[em.i_c])
+    s = _ExactSearch(em, start, hi, n_oh)
+    order = sorted(range(em.G), key=lambda j: -em.b.groups[j].count)
+    for _ in range(sweeps):
+        if not s.sweep(order):
+            break
+    if polish:
+        s.refresh(_exact_least_squares(em, s.t, lo, hi))
+        if s.sweep(order):
+            s.refresh(_exact_least_squares(em, s.t, lo, hi))
+    return s.t.copy(), em.cost(s.t)
+
+
+def _exact_starts(model: _Model, em: _ExactModel, theta0: np.ndarray, hi: np.ndarray) -> list[np.ndarray]:
+    """The predicted shifts, then shifts drawn uniformly within one prediction sigma (fixed seed).
+
+    Amounts need no starts of their own: the search re-solves them (linear, non-negative)
+    for every place it tries.
+    """
+    groups = model.groups
+    t0 = _exact_theta(model, em, theta0)
+    starts = [t0]
+    rng = np.random.default_rng(EXACT_SEED)
+    sig = np.array([g.sigma for g in groups])
+    bound = np.array([g.bound for g in groups])
+    shift0 = np.array([g.shift0 for g in groups])
+    while len(starts) < max(EXACT_MAX_STARTS, 1):
+        t = t0.copy()
+        t[em.i_c] = shift0 + np.clip(rng.uniform(-1.0, 1.0, em.G) * sig, -bound, bound)
+        starts.append(t)
+    return starts
+
+
+def _uncertainty(Jm: np.ndarray, rd: np.ndarray, shape_total: np.ndarray, noise: float, n: int):
+    """Covariance of all parameters, reduced chi-square over the signal points and the
+    inflation applied (excess residual x residual correlation), at a solution.
+
+    ``rd``: the data residuals (in noise units), ``shape_total``: the fitted compound
+    lines at the same points. Parameters the data do not touch (zero diagonal) get
+    zero variance instead of breaking the inverse.
+    """
+    N = rd.size
     signal = shape_total > 3.0 * noise
-    dof = max(1, int(signal.sum()) - em.n) if signal.any() else max(1, N - em.n)
+    dof = max(1, int(signal.sum()) - n) if signal.any() else max(1, N - n)
     chi2_sig = float(np.sum(rd[signal] ** 2) / dof) if signal.any() else float(np.mean(rd**2))
     tau = _autocorr_time(rd, signal)
     inflation = max(1.0, chi2_sig) * tau
     JTJ = _gram(Jm)
     keep = np.where(np.abs(np.diag(JTJ)) > 1e-12 * max(1.0, float(np.max(np.diag(JTJ)))))[0]
-    cov = np.zeros((em.n, em.n))
+    cov = np.zeros((n, n))
     cov[np.ix_(keep, keep)] = np.linalg.pinv(JTJ[np.ix_(keep, keep)]) * inflation
+    return cov, chi2_sig, float(inflation)
+
+
+def _assemble_exact(model: _Model, em: _ExactModel, t: np.ndarray, undetected: dict[int, float], free,
+                    n_oh: int) -> SpectrumFit:
+    """SpectrumFit at an exact solution (covariance on the exact model)."""
+    x, noise = model.x_all, model.noise
+    N = len(model.xu)
+    Jm = em.jacobian(t)
+    rd = em.residuals(t)[:N]
+    cov, chi2_sig, inflation = _uncertainty(Jm, rd, t[em.i_w] @ em.components(t), noise, em.n)
     w = t[em.i_w]
     comp_full = em.components(t, x)
-    fit.weights = w.copy()
-    fit.weights_cov = cov[np.ix_(em.i_w, em.i_w)]
-    fit.shifts_ppm = t[em.i_c].copy()
-    fit.width_hz = float(t[em.i_wd])
-    fit.baseline = t[em.i_b].copy()
-    if fit.oh is not None:
-        fit.oh = tuple(float(v) for v in t[em.i_free[0]])
-    fit.extra_lines = {name: tuple(float(v) for v in t[em.i_free[q]]) for q, name in enumerate(fit.extra_lines)}
-    fit.fitted = em.evaluate(t, x, model.leg_all)
-    fit.component_curves = w[:, None] * comp_full
-    fit.baseline_curve = model.leg_all @ t[em.i_b]
-    fit.chi2_red = chi2_sig
-    fit.inflation = float(inflation)
+    fit = SpectrumFit(
+        groups=model.groups,
+        weights=w.copy(),
+        weights_cov=cov[np.ix_(em.i_w, em.i_w)],
+        shifts_ppm=t[em.i_c].copy(),
+        j_hz=[g.j0_hz.copy() for g in model.groups],
+        width_hz=float(t[em.i_wd]),
+        baseline=t[em.i_b].copy(),
+        oh=max((tuple(float(v) for v in t[em.i_free[q]]) for q in range(n_oh)), default=None),
+        extra_lines={name: tuple(float(v) for v in t[em.i_free[q]]) for q, (name, *_) in enumerate(free)},
+        x=x, y=model.y_all, used=model.used,
+        fitted=em.evaluate(t, x, model.leg_all),
+        component_curves=w[:, None] * comp_full,
+        baseline_curve=model.leg_all @ t[em.i_b],
+        noise_sd=noise,
+        chi2_red=chi2_sig,
+        inflation=inflation,
+        undetected=undetected,
+    )
+    # signal windows and integrals: the first-order coupling trees at the exact shifts
+    # span the same ranges (areas are exact either way)
+    fit.regions = signal_regions(fit, model, _first_order_theta(model, em, t))
     fit.notes.append(f"exact second-order candidate spectra at {model.f:g} MHz "
                      f"(reduced chi-square {chi2_sig:.2f} over the signal points)")
     return fit
+
+
+def exact_fit(model: _Model, theta0: np.ndarray, lb: np.ndarray, ub: np.ndarray, predictions, free,
+              n_oh: int) -> SpectrumFit:
+    """Whole-spectrum fit on the exact (second-order) spectra of the candidates.
+
+    Starts (:func:`_exact_starts`) from the predicted shifts: per-group searches on
+    exact spectra (:class:`_ExactSearch`), width and exchangeable line searched too,
+    then ``scipy.optimize.least_squares`` with bounds (shifts within their prediction
+    bounds, amounts and heights >= 0, widths within their ranges) and the analytic
+    Jacobian; the lowest cost wins. Minor candidates then face the detection test of
+    the first-order fit (a refit without them must be clearly worse). Raises
+    SpecmatchError when a candidate's groups do not match its structure.
+    """
+    em = _ExactModel(model, predictions, theta0[model.i_c])
+    lo, hi = _exact_bounds(model, em, lb, ub)
+    # every start searched; the best one polished. A first start that leaves a misfit far
+    # beyond what polishing can remove (a crowded envelope the search could not untangle)
+    # ends the exact attempt early: the first-order fit is then compared with it
+    best = None
+    n_pts = max(1, len(model.xu))
+    for i, start in enumerate(_exact_starts(model, em, theta0, hi)):
+        t, c = _exact_run(em, start, lo, hi, n_oh, polish=False)
+        if best is None or c < best[1]:
+            best = (t, c)
+        if i == 0 and c / n_pts > EXACT_HOPELESS_CHI2:
+            em.relinearise(t[em.i_c])
+            return _assemble_exact(model, em, t, {}, free, n_oh)
+    t, cost = _exact_run(em, best[0], lo, hi, n_oh, sweeps=1)
+    undetected: dict[int, float] = {}
+    for k in range(em.K):
+        w = t[em.i_w]
+        tot = w.sum()
+        if em.K < 2 or tot <= 0 or w[k] / tot >= DETECT_MAX_FRACTION or hi[em.i_w[k]] <= 0:
+            continue
+        lo2, hi2 = lo.copy(), hi.copy()
+        for q in list(undetected) + [k]:
+            lo2[em.i_w[q]] = hi2[em.i_w[q]] = 0.0
+        start = t.copy()
+        start[em.i_w[k]] = 0.0
+        trial, c0 = _exact_run(em, start, lo2, hi2, n_oh, sweeps=1)
+        n_groups = sum(1 for g in model.groups if g.component == k)
+        if c0 - cost > DETECT_DCHI2 + DETECT_DCHI2_PER_GROUP * n_groups:
+            continue
+        undetected[k] = float(w[k] / tot)
+        # the absent candidate at its predicted shifts, its amount re-solved there (that
+        # gives "absent" its uncertainty)
+        own = [j for j, g in enumerate(model.groups) if g.component == k]
+        trial[own] = [model.groups[j].shift0 for j in own]
+        hi3 = hi2.copy()
+        hi3[em.i_w[k]] = np.inf
+        em.relinearise(trial[em.i_c])
+        s = _ExactSearch(em, trial, hi3, n_oh)
+        t, cost = s.t, em.cost(s.t)
+    em.relinearise(t[em.i_c])
+    return _assemble_exact(model, em, t, undetected, free, n_oh)

@@ -186,7 +186,7 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
         fallback = bool(missing) or env.kind == "other"
         if env.kind == "other":
             sigma = NO_CLASS_SIGMA_PPM
-            warnings.append(f"13C: no increment table for the {env.atom_type} carbon at atom {atoms[0]}; "
+            warnings.append(f"13C: no increment table for the {env.atom_type} carbon at atom {atoms[0] + 1}; "
                             f"a rough class value is used (sigma {sigma:.0f} ppm)")
         else:
             sigma = _class_sigma(env.kind, env.hydrogens, _coverage(min_support))
@@ -194,7 +194,7 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
                 sigma = math.sqrt(sigma ** 2 + unseen * UNSEEN_CORRECTION_SIGMA_PPM ** 2)
             if missing:
                 sigma = math.sqrt(sigma ** 2 + len(missing) * MISSING_TERM_SIGMA_PPM ** 2)
-                warnings.append(f"13C: environment of atom {atoms[0]} not covered by the tables "
+                warnings.append(f"13C: environment of atom {atoms[0] + 1} not covered by the tables "
                                 f"({', '.join(sorted(set(missing)))}); nearest class used, sigma {sigma:.0f} ppm")
         parts = _split_diastereotopic(structure, atoms) if structure.diastereotopic_pairs else [atoms]
         if len(parts) == 2 and _DIASTEREOTOPIC_SPLIT_PPM:
@@ -237,7 +237,7 @@ def _deuterated(carbons: list[CarbonShift], n_d: tuple[int, ...], warnings: list
             out.append(c)
             continue
         lines = 2 * d + 1
-        warnings.append(f"13C: atom {c.atoms[0]} carries {d} D: predicted {abs(D_ISOTOPE_SHIFT_PPM) * d:.1f} ppm upfield "
+        warnings.append(f"13C: atom {c.atoms[0] + 1} carries {d} D: predicted {abs(D_ISOTOPE_SHIFT_PPM) * d:.1f} ppm upfield "
                         f"of the C-H value, seen as a {lines}-line C-D multiplet (1J(C,D) about {J_CD_HZ:.0f} Hz) "
                         f"that DEPT does not edit (it counts {c.hydrogens - d} H)")
         out.append(replace(c, shift=c.shift + D_ISOTOPE_SHIFT_PPM * d, hydrogens=c.hydrogens - d,

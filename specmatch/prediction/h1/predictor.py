@@ -75,7 +75,7 @@ def predict_protons(structure: Structure, *, correction: bool = True, codes: Mol
         s, extra = sigma.get(site.sigma_class, sigma["other"])
         if site.fallback or missing:
             s += extra
-            warnings.append(f"1H: the tables do not cover the protons on atom {site.atoms[0]} "
+            warnings.append(f"1H: the tables do not cover the protons on atom {site.atoms[0] + 1} "
                             f"({site.environment}); a generic value with a wide sigma is used")
         mult, js = multiplicity(site.couplings, exchangeable=site.exchangeable)
         if site.complex_multiplet and not site.exchangeable:

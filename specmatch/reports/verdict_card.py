@@ -12,10 +12,11 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any
 
+from ..identification.ranking import THRESHOLDS
 from . import numbers as fmt
 from .naming import CandidateName, candidate_names
 
-__all__ = ["Summary", "summarise", "names_for_result", "signal_words", "fit_words"]
+__all__ = ["VerdictCard", "verdict_card", "names_for_result", "signal_words", "fit_words", "threshold_words"]
 
 #: how far a measured signal may sit from a prediction and still "fit" (in units of the
 #: expected error of that prediction; common practice: within about 2 sigma)
@@ -23,7 +24,7 @@ FITS_WITHIN_SIGMA = 2.0
 
 
 @dataclass(frozen=True)
-class Summary:
+class VerdictCard:
     """The top of the results view.
 
     Attributes
@@ -63,6 +64,15 @@ class Summary:
     deciding_title: str
     advice: str
     strong: bool
+
+
+def threshold_words() -> str:
+    """The verdict thresholds in words, from ``identification.ranking.THRESHOLDS`` (never
+    retyped: the text, the HTML report and the app say what the ranking applies)."""
+    t = THRESHOLDS
+    return (f"thresholds: decisive at {fmt.percent(t['decisive'])} or more, likely at "
+            f"{fmt.percent(t['likely'])} or more, tentative at odds of {t['tentative_odds']:g}:1 or better "
+            "over the runner-up, otherwise cannot tell apart")
 
 
 def names_for_result(result: Any) -> dict[str, CandidateName]:
@@ -125,8 +135,8 @@ def _mixture_line(result: Any, names: dict[str, CandidateName], by_canonical: di
     return f"{ratio} ({who}) {source}"
 
 
-def summarise(result: Any, names: dict[str, CandidateName] | None = None, limit: int = 3) -> Summary:
-    """The chemist-facing summary of ``result`` (see :class:`Summary`).
+def verdict_card(result: Any, names: dict[str, CandidateName] | None = None, limit: int = 3) -> VerdictCard:
+    """The chemist-facing summary of ``result`` (see :class:`VerdictCard`).
 
     Built on the verdict's hypothesis: "pure" names one candidate, "mixture" its
     components with their shares, "undecided" the top two candidates.
@@ -169,7 +179,7 @@ def summarise(result: Any, names: dict[str, CandidateName] | None = None, limit:
                  else "What decided it")
         deciding = tuple(signal_words(d, code(v.top), code(v.runner_up))
                          for d in result.ranking.discriminating[:limit])
-    return Summary(answer=answer, answer_name=full(answer) if answer else "", word=v.word, headline=headline,
+    return VerdictCard(answer=answer, answer_name=full(answer) if answer else "", word=v.word, headline=headline,
                    probability=fmt.percent(p) if answer and n > 1 else "", meaning=meaning,
                    mixture=_mixture_line(result, names, by_canonical), deciding=deciding, deciding_title=title,
                    advice=v.advice or "", strong=v.word in ("decisive", "likely"))

@@ -17,11 +17,15 @@
 1H
     With integrals, observed multiplets are cut into proton "slots" (integral scaled
     so the total equals the candidate's proton count, with or without its OH: the
-    per-candidate scale) and predicted protons are assigned to slots. A slot in a
-    multiplet of n slots carries 1/n of the multiplet's cost, so each observed
-    multiplet contributes one density term whatever the candidate, and integrals
-    constrain which groups can sit where. Multiplicity and J are compared where both
-    sides know them; OH protons get a wide scale and may be absent. Without
+    per-candidate scale) and the candidate's proton groups are placed on multiplets
+    **as whole groups** within the slots (the shared
+    :class:`~specmatch.identification.assignment.GroupAssignment`, solved exactly by
+    :func:`~specmatch.identification.assignment.assign_whole_groups`). A group of n
+    protons on a multiplet of n_k slots carries n/n_k of the multiplet's cost, so each
+    observed multiplet contributes one density term whatever the candidate, and
+    integrals constrain which groups can sit where. Multiplicity and J are compared
+    where both sides know them; an OH/NH group gets a wide scale, may be absent and
+    only takes a line without resolved couplings within its window. Without
     integrals, groups are assigned to multiplets like 13C signals to lines.
 """
 
@@ -38,6 +42,7 @@ from ..errors import SpecmatchError
 from ..prediction import Prediction, predict
 from ..spectra.types import Multiplet, Peak, PeakList
 from ..structures import parse_structure
+from .assignment import GroupAssignment, assign_whole_groups, exchangeable_allowed
 from .errormodel import NucleusModel, t_logpdf
 
 
@@ -79,7 +84,7 @@ linear_sum_assignment = _load_assignment()
 
 __all__ = [
     "ObservedC13", "ObservedH1", "PreparedCandidate", "SignalRow",
-    "observed_c13", "observed_h1", "prepare", "prepare_c13", "score_c13", "score_h1",
+    "h1_assignment", "observed_c13", "observed_h1", "prepare", "prepare_c13", "score_c13", "score_h1",
 ]
 
 _BIG = 1.0e6
@@ -571,25 +576,62 @@ def _slots(integral: np.ndarray, total: int) -> np.ndarray:
     return n
 
 
-def _h1_slot_assignment(cand: PreparedCandidate, obs: ObservedH1, nll: np.ndarray, m: NucleusModel,
-                        target: int):
+#: an exchangeable group may take a multiplet at most this many of its (wide) sigmas
+#: from its predicted shift, and only one without resolved couplings (its position
+#: and width allow it; assignment.exchangeable_allowed)
+EXCHANGEABLE_WINDOW_SIGMAS = 3.0
+
+
+def _h1_group_assignment(cand: PreparedCandidate, obs: ObservedH1, nll: np.ndarray, m: NucleusModel,
+                         target: int, s: np.ndarray):
+    """Whole groups on multiplets with integral capacity (the shared assignment object).
+
+    The integrals are rounded to ``target`` proton slots; a group of n protons on a
+    multiplet of n_k slots carries n/n_k of that multiplet's density term, so each
+    observed multiplet contributes one density term whatever the candidate, a full
+    multiplet its (count-weighted) mean, an empty one the impurity density. Returns
+    (log-likelihood, GroupAssignment, slots per multiplet).
+    """
     # every multiplet offers at least one slot: a small integral (or a candidate that
     # is only part of the sample) must not make a multiplet unreachable
     n_k = np.maximum(_slots(obs.integral, target), 1)
-    slot_mult = np.repeat(np.arange(obs.n), n_k)
-    pg = cand.p_group
-    n_p = pg.size
-    S = slot_mult.size
-    cost = np.full((n_p, S + n_p), _BIG)
-    if S:
-        w = 1.0 / n_k[slot_mult]
-        cost[:, :S] = (nll[pg][:, slot_mult] + m.impurity_logp) * w[None, :]
-    per_proton_miss = np.where(cand.h_exch[pg], -m.exchangeable_missing_logp, -m.missing_logp) \
-        / cand.h_count[pg]
-    cost[np.arange(n_p), S + np.arange(n_p)] = per_proton_miss
-    r, c = linear_sum_assignment(cost)
-    total = float(cost[r, c].sum()) - obs.n * m.impurity_logp
-    return -total, r, c, slot_mult, n_k
+    cost = (nll + m.impurity_logp) / n_k[None, :]
+    resolved = [_resolved_pattern(obs.multiplicity[k], obs.j_hz[k]) for k in range(obs.n)]
+    for g in np.flatnonzero(cand.h_exch):
+        ok = exchangeable_allowed(float(cand.h_shift[g]), float(s[g]), obs.shift, resolved,
+                                  EXCHANGEABLE_WINDOW_SIGMAS)
+        cost[g, ~ok] = _BIG
+    miss = np.where(cand.h_exch, -m.exchangeable_missing_logp, -m.missing_logp)
+    total, where = assign_whole_groups(cost, cand.h_count, n_k, miss)
+    ga = GroupAssignment(tuple((0, int(g)) for g in range(cand.h_shift.size)),
+                         tuple(int(c) for c in cand.h_count), tuple(bool(x) for x in cand.h_exch),
+                         tuple(int(w) for w in where), obs.n, cost=float(total))
+    return -(total - obs.n * m.impurity_logp), ga, n_k
+
+
+def h1_assignment(cand: PreparedCandidate, obs: ObservedH1, m: NucleusModel,
+                  shares: tuple[float, ...] | None = None) -> tuple[float, GroupAssignment | None]:
+    """The 1H log-likelihood and the assignment behind it (None without integrals).
+
+    ``shares``: the share of the total integral the candidate may account for (the
+    best is taken; default :data:`H1_SHARES`).
+    """
+    if obs.n == 0:
+        return 0.0, None
+    if cand.h_shift.size == 0:
+        return obs.n * m.impurity_logp, None
+    s, _, nll = _h1_group_costs(cand, obs, m)
+    if obs.has_integrals:
+        best = None
+        for t in _h1_hypotheses(cand, H1_SHARES if shares is None else shares):
+            if t <= 0:
+                continue
+            ll, ga, _ = _h1_group_assignment(cand, obs, nll, m, t, s)
+            if best is None or ll > best[0]:
+                best = (ll, ga)
+        return best
+    miss = np.where(cand.h_exch, -m.exchangeable_missing_logp, -m.missing_logp)
+    return _line_assignment(nll, miss, m)[0], None
 
 
 #: integral scale hypotheses: the candidate accounts for this share of the total
@@ -613,15 +655,7 @@ def score_h1(cand: PreparedCandidate, obs: ObservedH1, m: NucleusModel,
     best is taken); a mixture hypothesis's union candidate accounts for the whole
     sample and is scored with ``(1.0,)``.
     """
-    if obs.n == 0:
-        return 0.0
-    if cand.h_shift.size == 0:
-        return obs.n * m.impurity_logp
-    _, _, nll = _h1_group_costs(cand, obs, m)
-    if obs.has_integrals:
-        return max(_h1_slot_assignment(cand, obs, nll, m, t)[0] for t in _h1_hypotheses(cand, shares) if t > 0)
-    miss = np.where(cand.h_exch, -m.exchangeable_missing_logp, -m.missing_logp)
-    return _line_assignment(nll, miss, m)[0]
+    return h1_assignment(cand, obs, m, shares)[0]
 
 
 def h1_table(cand: PreparedCandidate, obs: ObservedH1, m: NucleusModel) -> list[SignalRow]:
@@ -638,31 +672,29 @@ def h1_table(cand: PreparedCandidate, obs: ObservedH1, m: NucleusModel) -> list[
     out: list[SignalRow] = []
     used: set[int] = set()
     if obs.has_integrals:
-        best = max((_h1_slot_assignment(cand, obs, nll, m, t) for t in _h1_hypotheses(cand) if t > 0),
-                   key=lambda x: x[0])
-        _, rows, cols, slot_mult, n_slots = best
-        S = slot_mult.size
-        per: dict[tuple[int, int], int] = {}
-        missing: dict[int, int] = {}
-        for r, c in zip(rows, cols):
-            g = int(cand.p_group[r])
-            if c < S:
-                per[(g, int(slot_mult[c]))] = per.get((g, int(slot_mult[c])), 0) + 1
-            else:
-                missing[g] = missing.get(g, 0) + 1
+        best = None
+        for t in _h1_hypotheses(cand):
+            if t > 0:
+                res = _h1_group_assignment(cand, obs, nll, m, t, s)
+                if best is None or res[0] > best[0]:
+                    best = res
+        _, ga, n_slots = best
         first_seen: set[int] = set()
-        for (g, k), cnt in sorted(per.items(), key=lambda x: -obs.shift[x[0][1]]):
+        order = sorted(range(len(ga.groups)), key=lambda q: (ga.multiplet[q] < 0, -obs.shift[ga.multiplet[q]]
+                                                           if ga.multiplet[q] >= 0 else 0.0))
+        for q in order:
+            g, k = ga.groups[q][1], ga.multiplet[q]
             p = groups[g]
+            if k < 0:
+                out.append(SignalRow("1H", None, p.shift, float(s[g]), None, p.atoms, None, p.environment,
+                                     "not observed", None, p.count, None, p.multiplicity))
+                continue
             status = "assigned" if k not in first_seen else "overlap"
             first_seen.add(k)
             used.add(k)
             out.append(SignalRow("1H", float(obs.shift[k]), p.shift, float(s[g]), float(z[g, k]), p.atoms,
-                                 None, p.environment, status, k, cnt, float(obs.integral[k]),
-                                 p.multiplicity, -float(nll[g, k]) * cnt / max(1, int(n_slots[k]))))
-        for g, cnt in missing.items():
-            p = groups[g]
-            out.append(SignalRow("1H", None, p.shift, float(s[g]), None, p.atoms, None, p.environment,
-                                 "not observed", None, cnt, None, p.multiplicity))
+                                 None, p.environment, status, k, p.count, float(obs.integral[k]),
+                                 p.multiplicity, -float(nll[g, k]) * p.count / max(1, int(n_slots[k]))))
     else:
         miss = np.where(cand.h_exch, -m.exchangeable_missing_logp, -m.missing_logp)
         _, rows, cols = _line_assignment(nll, miss, m)

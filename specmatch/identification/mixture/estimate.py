@@ -937,7 +937,7 @@ def _from_peaklist(cands, peaklist, warnings, src) -> MixtureEstimate:
     unc = ("covariance of the amounts for the best assignment, integrals taken to +-2% (+0.5% of the largest), "
            f"scaled by the reduced chi-square when above 1, plus {100 * MODEL_SD_FLOOR:.1f} percentage points in "
            "quadrature; 95% interval = fraction +- 1.96 sd")
-    details = {"chi2_red": fit.chi2_red, "oh_multiplet": -1 if fit.oh_multiplet is None else fit.oh_multiplet}
+    details = {"chi2_red": fit.chi2_red, "oh_multiplet": fit.assignment.free_exchange}
     weights = fit.weights
     extra_sd = None
     if fit.averaged_fractions is not None:
@@ -946,6 +946,18 @@ def _from_peaklist(cands, peaklist, warnings, src) -> MixtureEstimate:
         weights = fit.averaged_fractions * float(fit.weights.sum())
         extra_sd = fit.assignment_sd
         unc += "; averaged over the plausible assignments (weights exp(-chi2/2)), their spread added in quadrature"
+    if len(fit.confounded) > 1:
+        # only the confounded candidates' summed amount is measured: split it evenly and
+        # give each the sd of a uniform share of it (the data say nothing inside it)
+        weights = np.array(weights, float)
+        conf = list(fit.confounded)
+        tot_all = float(weights.sum())
+        share = float(weights[conf].sum())
+        weights[conf] = share / len(conf)
+        flat = np.zeros(len(cands))
+        flat[conf] = (share / tot_all if tot_all > 0 else 1.0) / np.sqrt(12.0)
+        extra_sd = flat if extra_sd is None else np.sqrt(np.asarray(extra_sd) ** 2 + flat**2)
+        unc += "; candidates the integrals cannot tell apart share their summed amount evenly, with a uniform sd"
     return _finish(cands, weights, fit.weights_cov, regions, method=method, uncertainty_method=unc,
                    warnings=warnings, source=src, fitted={}, group_keys=group_keys, details=details,
                    extra_sd=extra_sd)

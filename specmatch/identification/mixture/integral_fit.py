@@ -3,25 +3,32 @@
 Each measured multiplet's integral is modelled as the sum, over the proton groups
 assigned to it, of (amount of that group's molecule) x (its proton count):
 
-    I_m = sum_k w_k * sum_{g in k, g -> m} n_g   (+ a free OH term on one multiplet)
+    I_m = sum_k w_k * sum_{g in k, g -> m} n_g   (+ a free exchange term on one multiplet)
 
-Each group goes to one multiplet as a whole, within ``ASSIGN_SIGMAS`` prediction
-sigmas of its predicted shift (distance to the multiplet's range); the assignment
-and the weights are found together by minimising
+The assignment is the shared :class:`~specmatch.identification.assignment.GroupAssignment`:
+each group goes to one multiplet as a whole, within ``ASSIGN_SIGMAS`` prediction
+sigmas of its predicted shift (distance to the multiplet's range). An exchangeable
+OH/NH group is a group like the others (its integral tied to its molecule's amount,
+a separate OH line per component is what a dry sample shows) but only on a line its
+position and width allow (no resolved couplings, within its wide window), and it
+may instead be absent or part of one free exchange-averaged line (a wet sample).
+The assignment and the weights are found together by minimising
 
-    chi2 = sum_m ((I_m - model_m) / s_m)**2 + sum_g (df + 1) log(1 + (distance_g / sigma_g)**2 / df)
+    chi2 = sum_m rho(((I_m - model_m) / s_m)**2) + sum_g (df + 1) log(1 + (distance_g / sigma_g)**2 / df)
 
-(the shift term is -2 log of a Student-t density, df = SHIFT_DF)
-
-with non-negative least squares for the weights and a coordinate search (with a
-few seeded restarts) over the assignment. Inside the search the weights come
-from ``scipy.optimize.nnls`` (exact for this linear problem and fast enough for
-the thousands of trial assignments); the reported weights are then refined with
-``scipy.optimize.least_squares`` (bounds w >= 0, analytic Jacobian), which also
-gives the Jacobian for the covariance. ``s_m = INTEGRAL_REL_SD * I_m +
-INTEGRAL_ABS_SD * max(I)``: integrals of routine spectra reproduce to a few per
-cent (common practice). Exchangeable (OH) protons exchange between the
-components, so one multiplet may be declared the OH line with a free integral.
+(the shift term is -2 log of a Student-t density, df = SHIFT_DF; rho is the identity,
+or with ``ROBUST_C`` a Cauchy loss so that one multiplet whose integral no whole-group
+assignment matches, a diastereotopic CH2 listed as two lines for instance, does not
+pull the amounts) with non-negative least squares for the weights (iteratively
+reweighted for the robust loss) and a coordinate search over the assignment: single
+group moves, swaps of two groups of different components between their multiplets
+(an isomer pair's assignments are often swapped as a whole), with seeded restarts.
+The reported weights are refined with ``scipy.optimize.least_squares`` (bounds
+w >= 0, analytic Jacobian, the same robust weights), which also gives the Jacobian
+for the covariance. ``s_m = INTEGRAL_REL_SD * I_m + INTEGRAL_ABS_SD * max(I)``:
+integrals of routine spectra reproduce to a few per cent (common practice); a
+multiplet holding an exchangeable group gets ``EXCHANGEABLE_REL_SD`` instead
+(exchange with water makes those integrals the least reliable).
 """
 
 from __future__ import annotations
@@ -31,13 +38,18 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ...prediction.multiplicity import partners_of
 from ...prediction.types import ProtonGroup
 from ...spectra.types import Multiplet
-from .spectrum_fit import MAX_BOUND_PPM, MIN_BOUND_PPM, OH_RANGE_PPM, SignalRegion
+from ..assignment import NOT_OBSERVED, GroupAssignment
+from .spectrum_fit import MAX_BOUND_PPM, MIN_BOUND_PPM, SignalRegion
 
 INTEGRAL_REL_SD = 0.02
 INTEGRAL_ABS_SD = 0.005
-_RESTARTS = 16
+#: relative sd of a multiplet holding an OH/NH group (exchange, broad lines; common practice)
+EXCHANGEABLE_REL_SD = 0.10
+#: random restarts of the assignment search (besides the nearest-shift start)
+_RESTARTS = 8
 #: Student-t degrees of freedom of the shift term (prediction errors have heavy tails;
 #: the value of the identification error model's 1H fit, rounded)
 SHIFT_DF = 2.0
@@ -50,6 +62,15 @@ ASSIGNMENT_AVERAGING = True
 #: heavy-tailed, so a wider window costs little; 5 gave better figures than 3 on
 #: bench_mixture.py, chosen looking at both halves, so not a held-out choice)
 ASSIGN_SIGMAS = 5.0
+#: an exchangeable group may go to a line this many of its (wide) sigmas away
+EXCHANGEABLE_SIGMAS = 2.5
+#: cost (chi-square units) of an exchangeable group that is absent or in the free
+#: exchange-averaged line: about the shift term of a line 1.5 sigma away, so a
+#: separate OH line near its prediction is preferred, a far one is not forced (set by hand)
+EXCHANGEABLE_NONE_COST = 3.0
+#: Cauchy scale (in sd) of the robust integral loss; None for plain least squares
+#: (set by hand: 3 sd keeps clean multiplets at full weight)
+ROBUST_C: float | None = 3.0
 
 
 @dataclass
@@ -58,23 +79,32 @@ class IntegralFit:
 
     weights: np.ndarray
     weights_cov: np.ndarray
-    assignment: dict[tuple[int, int], int]  # (component, group index) -> multiplet index
-    oh_multiplet: int | None
+    assignment: GroupAssignment  # the shared assignment object (component = candidate index)
     chi2_red: float
     regions: list[SignalRegion] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
     degenerate: bool = False
-    group_index: list[tuple[int, int]] = field(default_factory=list)  # fitted (component, group) pairs
     abs_sd: float = 0.0  # the absolute integral uncertainty used (integral units)
     #: fractions averaged over the plausible assignments, and their spread between them
     #: (see ASSIGNMENT_AVERAGING); None when one assignment is clearly best
     averaged_fractions: np.ndarray | None = None
     assignment_sd: np.ndarray | None = None
+    #: candidates the peak list cannot tell apart (their groups fall into the same
+    #: multiplets in the same proportions): only their summed amount is measured
+    confounded: tuple[int, ...] = ()
 
     @property
     def fractions(self) -> np.ndarray:
         tot = self.weights.sum()
         return self.weights / tot if tot > 0 else np.full(self.weights.shape, np.nan)
+
+    @property
+    def group_index(self) -> list[tuple[int, int]]:
+        return list(self.assignment.groups)
+
+    @property
+    def oh_multiplet(self) -> int | None:
+        return None if self.assignment.free_exchange < 0 else self.assignment.free_exchange
 
 
 def _distance(p: float, m: Multiplet) -> float:
@@ -82,6 +112,14 @@ def _distance(p: float, m: Multiplet) -> float:
     if lo <= p <= hi:
         return 0.0
     return min(abs(p - lo), abs(p - hi))
+
+
+def _resolved(m: Multiplet) -> bool:
+    """Resolved couplings (d, t, dd, ... or a J listed): not an exchanging OH/NH line."""
+    if any(float(j) > 0 for j in (getattr(m, "j_hz", ()) or ())):
+        return True
+    n = partners_of(m.multiplicity or "")
+    return n is not None and n > 0
 
 
 def fit_integrals(multiplets: Sequence[Multiplet], components: Sequence[Sequence[ProtonGroup]],
@@ -97,52 +135,106 @@ def fit_integrals(multiplets: Sequence[Multiplet], components: Sequence[Sequence
     from scipy.optimize import nnls
 
     mults = list(multiplets)
+    M = len(mults)
     I = np.array([float(m.integral) for m in mults])
-    s = INTEGRAL_REL_SD * I + INTEGRAL_ABS_SD * float(I.max())
+    s_plain = INTEGRAL_REL_SD * I + INTEGRAL_ABS_SD * float(I.max())
+    s_exch = EXCHANGEABLE_REL_SD * I + INTEGRAL_ABS_SD * float(I.max())
     K = len(components)
-    groups = [(k, i, g) for k, comp in enumerate(components) for i, g in enumerate(comp)
-              if not g.exchangeable and g.count > 0]
-    has_oh = any(g.exchangeable for comp in components for g in comp)
+    groups = [(k, i, g) for k, comp in enumerate(components) for i, g in enumerate(comp) if g.count > 0]
+    exch = np.array([g.exchangeable for _, _, g in groups], bool)
+    counts = np.array([g.count for _, _, g in groups], float)
+    comp_of = np.array([k for k, _, _ in groups], int)
     notes: list[str] = []
+    resolved = [_resolved(mm) for mm in mults]
     options: list[list[tuple[int, float]]] = []
     for k, i, g in groups:
-        bound = float(np.clip(ASSIGN_SIGMAS * g.sigma, MIN_BOUND_PPM, MAX_BOUND_PPM))
         sig = max(float(g.sigma), 1e-3)
-        pen = lambda d: (SHIFT_DF + 1.0) * np.log1p((d / sig) ** 2 / SHIFT_DF)  # -2 log Student-t
-        opts = [(m, float(pen(_distance(g.shift, mm)))) for m, mm in enumerate(mults)
-                if _distance(g.shift, mm) <= bound]
-        if not opts:
-            m = int(np.argmin([_distance(g.shift, mm) for mm in mults]))
-            opts = [(m, float(pen(_distance(g.shift, mults[m]))))]
+        pen = lambda d: float((SHIFT_DF + 1.0) * np.log1p((d / sig) ** 2 / SHIFT_DF))  # -2 log Student-t
+        if g.exchangeable:
+            opts = [(m, pen(_distance(g.shift, mm))) for m, mm in enumerate(mults)
+                    if not resolved[m] and _distance(g.shift, mm) <= EXCHANGEABLE_SIGMAS * sig]
+            opts.append((NOT_OBSERVED, EXCHANGEABLE_NONE_COST))
+        else:
+            bound = float(np.clip(ASSIGN_SIGMAS * g.sigma, MIN_BOUND_PPM, MAX_BOUND_PPM))
+            opts = [(m, pen(_distance(g.shift, mm))) for m, mm in enumerate(mults)
+                    if _distance(g.shift, mm) <= bound]
+            if not opts:
+                m = int(np.argmin([_distance(g.shift, mm) for mm in mults]))
+                opts = [(m, pen(_distance(g.shift, mults[m])))]
         options.append(opts)
+    # the free exchange-averaged line: an unresolved multiplet where some OH/NH group could be
     oh_opts: list[int | None] = [None]
-    if has_oh:
-        oh_opts += [m for m, mm in enumerate(mults) if OH_RANGE_PPM[0] <= mm.shift <= OH_RANGE_PPM[1]]
+    if exch.any():
+        oh_opts += sorted({m for q in np.flatnonzero(exch) for m, _ in options[q] if m >= 0})
 
-    def solve(assign: list[int], oh: int | None):
-        A = np.zeros((len(mults), K + 1))
+    def design(assign: list[int], oh: int | None):
+        A = np.zeros((M, K + 1))
         pen = 0.0
-        for (k, _, g), (m, p) in zip(groups, assign_pairs(assign)):
-            A[m, k] += g.count
+        s = s_plain.copy()
+        for q, a in enumerate(assign):
+            m, p = options[q][a]
             pen += p
+            if m >= 0:
+                A[m, comp_of[q]] += counts[q]
+                if exch[q]:
+                    s[m] = s_exch[m]
         if oh is not None:
             A[oh, K] = 1.0
-        w, _ = nnls(A / s[:, None], I / s)
-        r = (I - A @ w) / s
-        return float(r @ r) + pen, w, A
+            s[oh] = s_exch[oh]
+        return A, s, pen
 
-    def assign_pairs(assign):
-        return [options[q][a] for q, a in enumerate(assign)]
+    def robust_chi2(z: np.ndarray) -> float:
+        return float(np.sum(ROBUST_C**2 * np.log1p((z / ROBUST_C) ** 2))) if ROBUST_C else float(z @ z)
+
+    def weighted_nnls(A, s, iterations: int = 3):
+        """NNLS, iteratively reweighted for the Cauchy loss; returns (w, robust weights, chi2)."""
+        rw = np.ones(M)
+        n_iter = iterations if ROBUST_C else 1
+        for it in range(n_iter):
+            sw = s / np.sqrt(rw)
+            w, _ = nnls(A / sw[:, None], I / sw)
+            z = (I - A @ w) / s
+            if it + 1 == n_iter:
+                break
+            new = 1.0 / (1.0 + (z / ROBUST_C) ** 2)
+            if float(np.max(np.abs(new - rw))) < 1e-3:
+                break
+            rw = new
+        return w, rw, robust_chi2(z)
+
+    memo: dict[tuple, tuple[float, np.ndarray]] = {}
+
+    def solve(assign: list[int], oh: int | None):
+        # inside the search: one NNLS, its residuals scored with the robust loss (the
+        # reweighted amounts are computed for the optima only); restarts revisit
+        # assignments, hence the memo
+        key = (tuple(assign), oh)
+        hit = memo.get(key)
+        if hit is None:
+            A, s, pen = design(assign, oh)
+            w, _, chi2 = weighted_nnls(A, s, iterations=1)
+            hit = memo[key] = (chi2 + pen, w)
+        return hit
+
+    # moves: single group to another option; two groups of different components with
+    # the same proton count exchanging their multiplets (the integrals stay, the labels swap)
+    swaps = [(q1, q2) for q1 in range(len(groups)) for q2 in range(q1 + 1, len(groups))
+             if comp_of[q1] != comp_of[q2] and exch[q1] == exch[q2] and counts[q1] == counts[q2]]
+    opt_index = [{m: a for a, (m, _) in enumerate(opts)} for opts in options]
 
     rng = np.random.default_rng(seed)
     best = None
     optima: dict[tuple, tuple[float, np.ndarray]] = {}
     starts = [[int(np.argmin([p for _, p in opts])) for opts in options]]
     starts += [[int(rng.integers(len(opts))) for opts in options] for _ in range(_RESTARTS)]
+    seen_starts: set[tuple] = set()
     for start in starts:
+        if tuple(start) in seen_starts:
+            continue
+        seen_starts.add(tuple(start))
         assign = list(start)
         oh = None
-        cur, w, A = solve(assign, oh)
+        cur, w = solve(assign, oh)
         improved = True
         while improved:
             improved = False
@@ -152,19 +244,28 @@ def fit_integrals(multiplets: Sequence[Multiplet], components: Sequence[Sequence
                         continue
                     trial = assign.copy()
                     trial[q] = a
-                    c, w2, A2 = solve(trial, oh)
+                    c, w2 = solve(trial, oh)
                     if c < cur - 1e-9:
-                        cur, w, A, assign, improved = c, w2, A2, trial, True
+                        cur, w, assign, improved = c, w2, trial, True
+            for q1, q2 in swaps:
+                m1, m2 = options[q1][assign[q1]][0], options[q2][assign[q2]][0]
+                if m1 == m2 or m2 not in opt_index[q1] or m1 not in opt_index[q2]:
+                    continue
+                trial = assign.copy()
+                trial[q1], trial[q2] = opt_index[q1][m2], opt_index[q2][m1]
+                c, w2 = solve(trial, oh)
+                if c < cur - 1e-9:
+                    cur, w, assign, improved = c, w2, trial, True
             for o in oh_opts:
                 if o == oh:
                     continue
-                c, w2, A2 = solve(assign, o)
+                c, w2 = solve(assign, o)
                 if c < cur - 1e-9:
-                    cur, w, A, oh, improved = c, w2, A2, o, True
+                    cur, w, oh, improved = c, w2, o, True
         optima[(tuple(assign), oh)] = (cur, w[:K].copy())
         if best is None or cur < best[0]:
-            best = (cur, w, A, assign, oh)
-    _, w, A, assign, oh = best
+            best = (cur, assign, oh)
+    cost_best, assign, oh = best
     averaged = spread = None
     if ASSIGNMENT_AVERAGING and len(optima) > 1:
         costs = np.array([c for c, _ in optima.values()])
@@ -174,40 +275,52 @@ def fit_integrals(multiplets: Sequence[Multiplet], components: Sequence[Sequence
         p /= p.sum()
         averaged = p @ fr[ok]
         spread = np.sqrt(np.clip(p @ (fr[ok] - averaged) ** 2, 0.0, None))
-    # final weights: bounded least squares with the analytic Jacobian (the model is linear)
+    # final weights: bounded least squares with the analytic Jacobian (the model is
+    # linear), with the robust weights of the search's solution
     from scipy.optimize import least_squares
 
+    A, s, _ = design(assign, oh)
+    w0, rw, _ = weighted_nnls(A, s)
+    sw = s / np.sqrt(rw)
     cols = list(range(K)) + ([K] if oh is not None else [])
-    Aw = A[:, cols] / s[:, None]
-    sol = least_squares(lambda x: Aw @ x - I / s, np.maximum(w[cols], 0.0), jac=lambda x: Aw,
+    Aw = A[:, cols] / sw[:, None]
+    sol = least_squares(lambda x: Aw @ x - I / sw, np.maximum(w0[cols], 0.0), jac=lambda x: Aw,
                         bounds=(0.0, np.inf), method="trf", xtol=1e-12, ftol=1e-12, gtol=1e-12)
     w = np.zeros(K + 1)
     w[cols] = sol.x
-    # covariance of the weights with the assignment fixed (OH column left out if unused)
+    # covariance of the weights with the assignment fixed (exchange column left out if unused);
+    # the misfit that scales it is measured with the plain sd: a multiplet the robust loss
+    # set aside still says the model does not explain the integrals
     r = (I - A @ w) / s
-    dof = max(1, len(mults) - len(cols))
+    dof = max(1, M - len(cols))
     chi2_red = float(r @ r) / dof
-    M = Aw.T @ Aw
-    ev = np.linalg.eigvalsh(M)
-    degenerate = bool(ev.min() <= 1e-9 * max(ev.max(), 1e-300))
-    cov_full = np.linalg.pinv(M) * max(1.0, chi2_red)
-    wcov = cov_full[:K, :K]
+    Mx = Aw.T @ Aw
+    ev, vec = np.linalg.eigh(Mx)
+    tiny = ev <= 1e-9 * max(ev.max(), 1e-300)
+    degenerate = bool(tiny.any())
+    confounded: tuple[int, ...] = ()
     if degenerate:
+        null = np.abs(vec[:, tiny]).max(axis=1)
+        confounded = tuple(int(cols[j]) for j in np.flatnonzero(null > 1e-6) if cols[j] < K)
         notes.append("the peak list cannot tell some candidates apart: their groups fall into the same "
                       "multiplets in the same proportions")
-    amap = {(k, i): options[q][assign[q]][0] for q, (k, i, _) in enumerate(groups)}
+    cov_full = np.linalg.pinv(Mx) * max(1.0, chi2_red)
+    wcov = cov_full[:K, :K]
+    mult_of = tuple(int(options[q][assign[q]][0]) for q in range(len(groups)))
+    assignment = GroupAssignment(
+        groups=tuple((int(k), int(i)) for k, i, _ in groups), counts=tuple(int(c) for c in counts),
+        exchangeable=tuple(bool(x) for x in exch), multiplet=mult_of, n_multiplets=M,
+        free_exchange=-1 if oh is None else int(oh), cost=float(cost_best))
     regions = []
-    for m, mm in enumerate(mults):
-        comps = {k for (k, _), mi in amap.items() if mi == m}
-        if len(comps) != 1 or m == oh:
-            continue
-        k = comps.pop()
-        protons = sum(g.count for (kk, i, g) in groups if kk == k and amap[(kk, i)] == m)
-        gidx = tuple(q for q, (kk, i, _) in enumerate(groups) if kk == k and amap[(kk, i)] == m)
-        reg = SignalRegion(k, gidx, float(min(mm.range)), float(max(mm.range)), protons, 1.0,
-                           integral=float(I[m]), amount=float(I[m]) / protons, amount_sd=float(s[m]) / protons)
-        regions.append(reg)
-    return IntegralFit(weights=w[:K].copy(), weights_cov=wcov, assignment=amap, oh_multiplet=oh,
-                       chi2_red=chi2_red, regions=regions, notes=notes, degenerate=degenerate,
-                       group_index=[(k, i) for k, i, _ in groups], abs_sd=float(INTEGRAL_ABS_SD * I.max()),
-                       averaged_fractions=averaged, assignment_sd=spread)
+    for k in range(K):
+        for m in assignment.exclusive(k):
+            gidx = tuple(q for q in assignment.on(m))
+            protons = assignment.protons_on(m)
+            regions.append(SignalRegion(k, gidx, float(min(mults[m].range)), float(max(mults[m].range)),
+                                        protons, 1.0, integral=float(I[m]), amount=float(I[m]) / protons,
+                                        amount_sd=float(s[m]) / protons))
+    regions.sort(key=lambda r: r.lo_ppm)
+    return IntegralFit(weights=w[:K].copy(), weights_cov=wcov, assignment=assignment, chi2_red=chi2_red,
+                       regions=regions, notes=notes, degenerate=degenerate,
+                       abs_sd=float(INTEGRAL_ABS_SD * I.max()), averaged_fractions=averaged,
+                       assignment_sd=spread, confounded=confounded)

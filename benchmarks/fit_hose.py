@@ -46,7 +46,8 @@ sys.path.insert(0, os.path.join(ROOT, "benchmarks"))
 from specmatch.errors import SpecmatchError  # noqa: E402
 from specmatch.prediction.c13.predictor import predict_carbons  # noqa: E402
 from specmatch.prediction.h1.predictor import predict_protons  # noqa: E402
-from specmatch.prediction.hose import TABLE_DIR, MolCodes, fold_of_block, rank_tags, write_table  # noqa: E402
+from specmatch.prediction.hose import (TABLE_DIR, MolCodes, environment_smiles, fold_of_block, rank_tags,  # noqa: E402
+                                       write_table)
 from specmatch.structures import parse_structure  # noqa: E402
 
 H_OF = {"S": 0, "D": 1, "T": 2, "Q": 3}
@@ -120,7 +121,7 @@ def load(path: str, limit: int = 0):
                 sig = []
                 for c, tag in zip(carbons, rank_tags([cls[c.atoms[0]] for c in carbons], [c.shift for c in carbons])):
                     cs = [x + tag for x in codes.codes(c.atoms[0], RADII)]
-                    sig.append((c.atoms, c.shift, c.sigma, c.hydrogens, cs))
+                    sig.append((c.atoms, c.shift, c.sigma, c.hydrogens, cs, c.atoms[0]))
                 obs = [(float(s), H_OF.get(letter, -1)) for s, letter, _ in spec]
                 c13.append({"block": block, "fold": fold_of(block), "core": core, "signals": sig,
                             "obs": obs, "smiles": rec["smiles"]})
@@ -131,10 +132,24 @@ def load(path: str, limit: int = 0):
                 sig = []
                 for g, tag in zip(groups, rank_tags([cls[g.atoms[0]] for g in groups], [g.shift for g in groups])):
                     cs = [x + tag for x in codes.codes(g.atoms[0], RADII)]
-                    sig.append((g.count, g.shift, g.sigma, g.exchangeable, cs))
+                    sig.append((g.count, g.shift, g.sigma, g.exchangeable, cs, g.atoms[0]))
                 h1.append({"block": block, "fold": fold_of(block), "core": core, "signals": sig,
                            "obs": [float(s) for s, _ in spec], "smiles": rec["smiles"]})
     return c13, h1
+
+
+def examples(recs, keys) -> dict[tuple[int, str], str]:
+    """(radius, code) -> the environment of its first atom in the records, as a SMILES fragment."""
+    out: dict[tuple[int, str], str] = {}
+    for rec in recs:
+        mol = None
+        for sg in rec["signals"]:
+            for r, code in enumerate(sg[4], start=1):
+                if (r, code) in keys and (r, code) not in out:
+                    if mol is None:
+                        mol = parse_structure(rec["smiles"]).mol
+                    out[(r, code)] = environment_smiles(mol, sg[5], r)
+    return out
 
 
 # ------------------------------------------------------------------ residuals
@@ -142,7 +157,8 @@ def residuals_c13(rec, shifts=None):
     """(signal index, residual) for one record; shifts default to the stored predictions."""
     sig = rec["signals"]
     pred, hyd, owner = [], [], []
-    for k, (atoms, shift, _, h, _) in enumerate(sig):
+    for k, sg in enumerate(sig):
+        atoms, shift, h = sg[0], sg[1], sg[3]
         s = shift if shifts is None else shifts[k]
         for _ in atoms:
             pred.append(s)
@@ -158,7 +174,8 @@ def residuals_c13(rec, shifts=None):
 def residuals_h1(rec, shifts=None):
     sig = rec["signals"]
     pred, owner = [], []
-    for k, (count, shift, _, _, _) in enumerate(sig):
+    for k, sg in enumerate(sig):
+        count, shift = sg[0], sg[1]
         s = shift if shifts is None else shifts[k]
         pred += [s] * count
         owner += [k] * count
@@ -244,7 +261,7 @@ def errors_of(recs, nucleus, shifts_of):
         shifts, sigmas = shifts_of(rec)
         if nucleus == "13C":
             _, pred, y = residuals_c13(rec, shifts)
-            sig_atom = [s for (atoms, *_), s in zip(rec["signals"], sigmas) for _ in atoms]
+            sig_atom = [s for sg, s in zip(rec["signals"], sigmas) for _ in sg[0]]
         else:
             _, pred, y = residuals_h1(rec, shifts)
             sig_atom = [s for sg, s in zip(rec["signals"], sigmas) for _ in range(sg[0])]
@@ -267,6 +284,8 @@ def oof_increment_shifts(path: str, c13, limit: int):
     """
     import fit_c13_tables as f13
 
+    # the settings the shipped tables were fitted with (fit_c13_tables.py defaults)
+    f13.LAMBDA_CORRECTION, f13.SIZE_WEIGHTING = 1.0, True
     mols = f13.load(path)
     if limit:
         keep = {r["smiles"] for r in c13}
@@ -397,12 +416,17 @@ def main() -> None:
             resid_of = (lambda r: residuals_c13(r)[0]) if nucleus == "13C" else (lambda r: residuals_h1(r)[0])
             stats = build(recs, nucleus, resid_of, by_fold=True)
             table = finish(stats, min_n)
-            rows = sorted((r, code, n, mean, sd, fold_text(stats[(r, code)][3]))
+            example = examples(recs, {key for key in table if key[0] <= radius})
+            rows = sorted((r, code, n, mean, sd, fold_text(stats[(r, code)][3]), example[(r, code)])
                           for (r, code), (n, mean, sd) in table.items() if r <= radius)
             name = "hose_c13.csv.gz" if nucleus == "13C" else "hose_h1.csv.gz"
-            prov = [f"{nucleus} environment-code correction table (HOSE-style codes, Bremser, Anal. Chim. Acta 1978, 103, 355)",
+            prov = [f"{nucleus} environment-code correction table (codes of growing radius, the sphere idea of HOSE codes, "
+                    "Bremser, Anal. Chim. Acta 1978, 103, 355)",
                     f"fitted on the nmrshiftdb2 development part (../shared/reference/nmrshiftdb2_dev.jsonl; "
                     f"Kuhn & Schlörer, Magn. Reson. Chem. 2015, 53, 582), {len(recs)} records, {today}",
+                    "codes: RDKit Morgan atom-environment identifiers of radius 1..R in hex (Morgan, J. Chem. Doc. "
+                    "1965, 5, 107; Rogers & Hahn, J. Chem. Inf. Model. 2010, 50, 742), '|0'/'|1' = rank tag; "
+                    "example = the environment of the first atom seen with the code, as a SMILES fragment",
                     "rows: residual (measured minus increment prediction, specbench pairing) per code: count, "
                     f"mean, sd; residuals clipped at +-{CLIP[nucleus]:g} ppm; codes seen >= {min_n} times",
                     f"chosen by 5-fold cross-validation grouped by InChIKey block: MAE core {cv_core:.3f}, "

@@ -20,14 +20,16 @@ The limits can be changed per kind with an environment variable
 from __future__ import annotations
 
 import codecs
+import hashlib
 import os
 import stat
 from pathlib import Path
+from typing import Iterator
 
 from .errors import SpecmatchError
 
 __all__ = ["LIMITS", "limit", "check_file", "read_bytes", "read_head", "read_text", "decode_text",
-           "text_encoding"]
+           "sha256_file", "text_encoding"]
 
 _MIB = 1024 * 1024
 
@@ -44,6 +46,8 @@ LIMITS: dict[str, int] = {
     "manifest": 16 * _MIB,     # batch manifests (CSV)
     "parameters": 8 * _MIB,    # instrument parameter files (acqus, procs, procpar)
     "config": 1 * _MIB,        # settings files
+    "spin_system": 1 * _MIB,   # JSON spin systems (``simulate --spin-system``)
+    "batch": 256 * _MIB,       # JSON-lines / SMILES-lines inputs of ``rank --batch``, ``predict --batch``
 }
 
 _CHUNK = 1 << 20
@@ -88,6 +92,15 @@ def _fmt(n: int) -> str:
     return f"{n / _MIB:,.1f} MB" if n >= _MIB else f"{n:,} bytes"
 
 
+def _cannot_read(p: Path, exc: OSError) -> SpecmatchError:
+    """The one message for a file that cannot be opened or stat'ed."""
+    if isinstance(exc, FileNotFoundError):
+        return SpecmatchError(f"cannot read '{p}': no such file")
+    if isinstance(exc, PermissionError):
+        return SpecmatchError(f"cannot read '{p}': permission denied")
+    return SpecmatchError(f"cannot read '{p}': {exc.strerror or exc}")
+
+
 def check_file(path: str | os.PathLike, *, kind: str) -> Path:
     """Raise unless `path` names an existing regular file within the size limit.
 
@@ -96,12 +109,8 @@ def check_file(path: str | os.PathLike, *, kind: str) -> Path:
     p = Path(path)
     try:
         st = os.stat(p)
-    except FileNotFoundError:
-        raise SpecmatchError(f"cannot read '{p}': no such file") from None
-    except PermissionError:
-        raise SpecmatchError(f"cannot read '{p}': permission denied") from None
     except OSError as exc:
-        raise SpecmatchError(f"cannot read '{p}': {exc.strerror or exc}") from None
+        raise _cannot_read(p, exc) from None
     what = _what(st.st_mode)
     if what is not None:
         hint = "; give the file inside it, or a zip of it" if what == "a directory" else ""
@@ -119,17 +128,40 @@ def _open(p: Path) -> int:
     flags = os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_BINARY", 0)
     try:
         fd = os.open(p, flags)
-    except FileNotFoundError:
-        raise SpecmatchError(f"cannot read '{p}': no such file") from None
-    except PermissionError:
-        raise SpecmatchError(f"cannot read '{p}': permission denied") from None
     except OSError as exc:
-        raise SpecmatchError(f"cannot read '{p}': {exc.strerror or exc}") from None
+        raise _cannot_read(p, exc) from None
     what = _what(os.fstat(fd).st_mode)
     if what is not None:  # changed between the check and the open
         os.close(fd)
         raise SpecmatchError(f"'{p}' is {what}, not a file")
     return fd
+
+
+def _chunks(path: str | os.PathLike, kind: str) -> Iterator[bytes]:
+    """The file's bytes in blocks; raises once more than the limit has been read."""
+    p = check_file(path, kind=kind)
+    cap = limit(kind)
+    fd = _open(p)
+    got = 0
+    try:
+        while got <= cap:
+            try:
+                chunk = os.read(fd, min(_CHUNK, cap + 1 - got))
+            except BlockingIOError:  # pragma: no cover - regular files never block
+                continue
+            except OSError as exc:
+                raise SpecmatchError(f"cannot read '{p}': {exc.strerror or exc}") from None
+            if not chunk:
+                return
+            got += len(chunk)
+            if got > cap:
+                break
+            yield chunk
+    finally:
+        os.close(fd)
+    raise SpecmatchError(
+        f"'{p}' is larger than the {_fmt(cap)} limit for a {kind} file; check it is the right "
+        f"file (or raise SPECMATCH_MAX_{kind.upper()}_MB)")
 
 
 def read_bytes(path: str | os.PathLike, *, kind: str) -> bytes:
@@ -148,30 +180,16 @@ def read_bytes(path: str | os.PathLike, *, kind: str) -> bytes:
         Not a regular file, missing, unreadable, or larger than the limit
         (checked on the bytes actually read, not only on ``stat``).
     """
-    p = check_file(path, kind=kind)
-    cap = limit(kind)
-    fd = _open(p)
-    parts: list[bytes] = []
-    got = 0
-    try:
-        while got <= cap:
-            try:
-                chunk = os.read(fd, min(_CHUNK, cap + 1 - got))
-            except BlockingIOError:  # pragma: no cover - regular files never block
-                continue
-            except OSError as exc:
-                raise SpecmatchError(f"cannot read '{p}': {exc.strerror or exc}") from None
-            if not chunk:
-                break
-            parts.append(chunk)
-            got += len(chunk)
-    finally:
-        os.close(fd)
-    if got > cap:
-        raise SpecmatchError(
-            f"'{p}' is larger than the {_fmt(cap)} limit for a {kind} file; check it is the right "
-            f"file (or raise SPECMATCH_MAX_{kind.upper()}_MB)")
-    return b"".join(parts)
+    return b"".join(_chunks(path, kind))
+
+
+def sha256_file(path: str | os.PathLike, *, kind: str) -> str:
+    """SHA-256 (hex) of a regular file, streamed: same checks and limit as :func:`read_bytes`,
+    memory of one block."""
+    h = hashlib.sha256()
+    for chunk in _chunks(path, kind):
+        h.update(chunk)
+    return h.hexdigest()
 
 
 def read_head(path: str | os.PathLike, n: int = 4096, *, kind: str) -> bytes:
@@ -218,7 +236,7 @@ def text_encoding(head: bytes) -> str | None:
     return "UTF-16" if _bomless_utf16(head) else None
 
 
-def decode_text(data: bytes, *, name: str = "file") -> str:
+def decode_text(data: bytes, *, name: str = "file", legacy_8bit: bool = True) -> str:
     """Text of file contents: BOM-aware UTF-8/16/32, UTF-8, else Latin-1; binary refused.
 
     Parameters
@@ -227,6 +245,10 @@ def decode_text(data: bytes, *, name: str = "file") -> str:
         File contents.
     name
         File name for messages.
+    legacy_8bit
+        Read text that is not UTF-8 as Latin-1 (old instrument exports). False for
+        inputs whose values become keys or paths (manifests, JSON lines): a wrong
+        guess there would be silently wrong, so such text is refused with a hint.
     """
     for bom, codec, label in _BOMS:
         if data.startswith(bom):
@@ -250,12 +272,16 @@ def decode_text(data: bytes, *, name: str = "file") -> str:
             "(UTF-16, UTF-32), save it again as UTF-8")
     try:
         return data.decode("utf-8")
-    except UnicodeDecodeError:
+    except UnicodeDecodeError as exc:
+        if not legacy_8bit:
+            raise SpecmatchError(
+                f"'{name}' is not UTF-8 text (byte {exc.start:,} is not valid UTF-8); "
+                "save it again as UTF-8") from None
         # Older instrument software writes 8-bit text (Latin-1 / Windows-1252).
         return data.decode("latin-1")
 
 
-def read_text(path: str | os.PathLike, *, kind: str) -> str:
+def read_text(path: str | os.PathLike, *, kind: str, legacy_8bit: bool = True) -> str:
     """Decoded text of a regular file (see :func:`read_bytes`, :func:`decode_text`)."""
     data = read_bytes(path, kind=kind)
-    return decode_text(data, name=str(path))
+    return decode_text(data, name=str(path), legacy_8bit=legacy_8bit)

@@ -124,6 +124,33 @@ def test_rerun_skips_done_and_retries_failed(tmp_path, sqlite_url):
     assert _per_sample_counts(db)["S001"] == 2
 
 
+def test_stop_right_after_a_commit_still_counts_the_sample_as_done(tmp_path, sqlite_url,
+                                                                   monkeypatch):
+    # a signal that lands after the store committed a result but before the runner noted
+    # it: the summary, taken from the store, must still call it done by this run (it said
+    # "done-earlier", one fewer "done" than the store held)
+    from specmatch.store.store import Store
+
+    real = Store.save_many
+    calls = []
+
+    def save_then_stop(self, items):
+        ids = real(self, items)
+        calls.append(ids)
+        if len(calls) == 2:
+            raise KeyboardInterrupt  # as Ctrl-C between the commit and the bookkeeping
+        return ids
+
+    monkeypatch.setattr(Store, "save_many", save_then_stop)
+    m = _manifest(tmp_path, 4)
+    with pytest.raises(KeyboardInterrupt):
+        run_batch(m, tmp_path / "out", workers=0, store=sqlite_url, runner=echo_runner)
+    rows = _summary(tmp_path / "out" / "summary.csv")
+    db = Path(sqlite_url.removeprefix("sqlite:///"))
+    assert {k for k, r in rows.items() if r["status"] == "done"} == set(_per_sample_counts(db))
+    assert [rows[f"S{i:03d}"]["status"] for i in range(4)] == ["done", "done", "not-run", "not-run"]
+
+
 def test_worker_process_death_fails_its_samples_and_the_batch_goes_on(tmp_path, sqlite_url):
     m = _manifest(tmp_path, 8, "B-DIE,DIE,HBr,{f},,,,,\n".format(f=_spectrum(tmp_path, "d.jdx")))
     first = run_batch(m, tmp_path / "out", workers=2, store=sqlite_url, runner=echo_runner)
@@ -229,7 +256,7 @@ def test_manifest_problems_are_reported(tmp_path):
     bad.write_bytes(b"sample_id,substrate\n\xff\xfe\n")
     with pytest.raises(SpecmatchError, match="not UTF-8"):
         read_manifest(bad)
-    with pytest.raises(SpecmatchError, match="cannot read the manifest"):
+    with pytest.raises(SpecmatchError, match="cannot read .*nope.csv.: no such file"):
         read_manifest(tmp_path / "nope.csv")
     # a spreadsheet export: BOM, upper-case header, blank lines, spaces around cells
     (tmp_path / "a.jdx").write_text("x")
@@ -268,7 +295,7 @@ def test_batch_cli(tmp_path, sqlite_url, monkeypatch, capsys):
     assert [r["status"] for r in out["samples"]] == ["done-earlier", "done-earlier", "failed"]
     assert Path(out["summary"]) == tmp_path / "plate_results" / "summary.csv"
     assert main(["batch", str(tmp_path / "none.csv"), "--store", sqlite_url]) == 2
-    assert "cannot read the manifest" in capsys.readouterr().err
+    assert "none.csv': no such file" in capsys.readouterr().err
 
 
 def test_default_runner_runs_the_identify_pipeline(tmp_path, sqlite_url):

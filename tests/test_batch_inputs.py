@@ -38,31 +38,61 @@ def test_devices_pipes_and_folders_fail_their_row_quickly(tmp_path, sqlite_url):
     assert time.monotonic() - t0 < 20  # never reads a device without limit, never blocks
     rows = {r["sample_id"]: r for r in res.rows}
     assert rows["OK"]["status"] == "done"
-    assert "'/dev/zero' is a device, not a file" in rows["ZERO"]["error"]
-    assert "'/dev/urandom' is a device" in rows["URANDOM"]["error"]
-    assert "'pipe.jdx' is a pipe" in rows["PIPE"]["error"]
-    assert "'folder' is a folder" in rows["DIR"]["error"]
+    # the guarded reader's words (specmatch.safeio), the same as for every other input
+    assert "'/dev/zero' is a character device, not a file" in rows["ZERO"]["error"]
+    assert "'/dev/urandom' is a character device" in rows["URANDOM"]["error"]
+    assert "pipe.jdx' is a FIFO (named pipe), not a file" in rows["PIPE"]["error"]
+    assert "folder' is a directory, not a file; give the file inside it, or a zip of it" \
+        in rows["DIR"]["error"]
 
 
 def test_oversized_and_bad_manifests_are_refused(tmp_path, monkeypatch, capsys):
-    with pytest.raises(SpecmatchError, match="is a device"):
+    with pytest.raises(SpecmatchError, match="is a character device, not a file"):
         read_manifest("/dev/zero")
     big = tmp_path / "big.jdx"
     big.write_bytes(b"x" * 2000)
-    monkeypatch.setattr(batch_mod, "MAX_FILE_BYTES", 1000)
+    monkeypatch.setenv("SPECMATCH_MAX_SPECTRUM_MB", str(1000 / (1024 * 1024)))
     m = tmp_path / "m.csv"
     m.write_text(HEADER + "BIG,C=CC,HBr,big.jdx,,,,,\n")
     (s,) = read_manifest(m)
-    assert "more than the" in s.error
+    assert "above the 1,000 bytes limit for a spectrum file" in s.error
+    assert "SPECMATCH_MAX_SPECTRUM_MB" in s.error  # says how to raise it
+    monkeypatch.setenv("SPECMATCH_MAX_MANIFEST_MB", str(50 / (1024 * 1024)))
+    with pytest.raises(SpecmatchError, match="limit for a manifest file"):
+        read_manifest(m)
+    monkeypatch.delenv("SPECMATCH_MAX_MANIFEST_MB")
+    # UTF-16 is decoded (byte-order mark); a refusal names the encoding and what to do
     m.write_bytes("sample_id,substrate\n".encode("utf-16"))
-    with pytest.raises(SpecmatchError, match="UTF-16"):
+    with pytest.raises(SpecmatchError, match=r"\(read as UTF-16 text\) has no column 'reagent'; "
+                                             r"save it as CSV UTF-8; its first line must name"):
         read_manifest(m)
     monkeypatch.setattr(batch_mod, "MAX_MANIFEST_ROWS", 3)
     m.write_text(HEADER + "".join(f"S{i},C=CC,HBr,big.jdx,,,,,\n" for i in range(5)))
     with pytest.raises(SpecmatchError, match="more than 3 samples"):
         read_manifest(m)
     assert main(["batch", "/dev/zero", "--store", f"sqlite:///{tmp_path / 's.sqlite'}"]) == 2
-    assert "is a device" in capsys.readouterr().err
+    assert "is a character device" in capsys.readouterr().err
+
+
+def test_utf16_manifest_with_a_bom_is_read(tmp_path):
+    # what a spreadsheet's "Unicode" CSV export gives: the rows are read as written
+    (tmp_path / "a.jdx").write_text("##TITLE=invented\n##END=\n")
+    m = tmp_path / "m.csv"
+    for codec in ("utf-16", "utf-32"):
+        m.write_bytes((HEADER + "S-\u00e9,C=CC,HBr,a.jdx,,,,,\n").encode(codec))
+        (s,) = read_manifest(m)
+        assert s.error is None and s.sample_id == "S-\u00e9" and s.files["c13"][0] == "a.jdx"
+
+
+def test_tab_separated_or_8bit_manifest_is_refused_with_what_to_do(tmp_path):
+    m = tmp_path / "m.csv"
+    m.write_bytes(HEADER.replace(",", "\t").encode("utf-16"))
+    with pytest.raises(SpecmatchError, match="UTF-16 text.*tab-separated: save it as CSV"):
+        read_manifest(m)
+    # Latin-1 bytes: not guessed (sample ids and paths would be silently mis-read)
+    m.write_bytes((HEADER + "S-\u00e9,C=CC,HBr,a.jdx,,,,,\n").encode("latin-1"))
+    with pytest.raises(SpecmatchError, match="is not UTF-8 text .*save it again as UTF-8"):
+        read_manifest(m)
 
 
 # a NUL byte means a binary file was given as the manifest: say so, run no rows of it

@@ -5,18 +5,21 @@ from __future__ import annotations
 import pytest
 from rdkit import Chem
 
-from specmatch.prediction.hose import HoseEntry, HoseTable, MolCodes, load_table, rank_tags
+from specmatch.prediction.hose import HoseEntry, HoseTable, MolCodes, environment_smiles, load_table, rank_tags
 
 
 def codes_of(smiles: str, atom: int, radius: int = 3) -> list[str]:
     return MolCodes(Chem.MolFromSmiles(smiles)).codes(atom, radius)
 
 
-def test_ethanol_codes_sphere_by_sphere():
-    # CH2 of ethanol: one sphere holds the methyl and the OH oxygen, the next is empty
+def test_codes_grow_sphere_by_sphere():
+    # CH2 of ethanol: radius 1 already holds the whole molecule, yet each radius keeps its own code
     c1, c2, c3 = codes_of("CCO", 1)
-    assert c1 == "C2(-C3,-O1)"
-    assert c2 == c3 == c1  # nothing beyond two bonds
+    assert len({c1, c2, c3}) == 3
+    # CH2-O of propanol and butanol: the same first sphere (HO, CH2), different second ones
+    p1, p2, _ = codes_of("CCCO", 2)
+    b1, b2, _ = codes_of("CCCCO", 3)
+    assert p1 == b1 and p2 != b2 and p1 != c1
 
 
 def test_codes_do_not_depend_on_atom_order():
@@ -27,21 +30,38 @@ def test_codes_do_not_depend_on_atom_order():
         m = Chem.MolFromSmiles(s)
         centre.append(next(a.GetIdx() for a in m.GetAtoms()
                            if a.GetSymbol() == "C" and any(n.GetSymbol() == "O" for n in a.GetNeighbors())))
-    got = {tuple(codes_of(s, c, 4)) for s, c in zip(smiles, centre)}
+    got = {tuple(codes_of(s, c, 5)) for s, c in zip(smiles, centre)}
     assert len(got) == 1
 
 
-def test_ring_closure_is_marked_and_rings_differ_from_chains():
-    # cyclopropane closes within the first sphere; propane does not
-    ring = codes_of("C1CC1", 0, 2)
-    chain = codes_of("CCC", 1, 2)
-    assert "&" in ring[1] and "&" not in chain[1]
-    assert ring != chain
+def test_rings_differ_from_chains():
+    # a cyclopropane CH2 and the CH2 of propane have the same neighbours, not the same environment
+    assert codes_of("C1CC1", 0, 2) != codes_of("CCC", 1, 2)
 
 
 def test_different_environments_get_different_codes():
     # the CH2 of 1-bromopropane vs 1-chloropropane at radius 1
     assert codes_of("CCCBr", 2, 1) != codes_of("CCCCl", 2, 1)
+
+
+def test_a_lone_atom_has_a_code_at_every_radius():
+    assert len(codes_of("C", 0, 5)) == 5
+
+
+def test_example_column_shows_the_environment():
+    mol = Chem.MolFromSmiles("CCCCO")
+    assert environment_smiles(mol, 3, 1) in ("C(C)O", "C(O)C")
+    assert Chem.MolFromSmiles(environment_smiles(mol, 3, 9)) is not None  # radius beyond the molecule
+
+
+def test_shipped_codes_are_those_of_this_rdkit():
+    # the identifiers are RDKit's Morgan hashes: a version that hashed differently would leave
+    # the table unused; the CH3 and CH2 of ethyl groups are in every table at radius 1 and 2
+    mc = MolCodes(Chem.MolFromSmiles("CCOC(C)=O"))  # ethyl acetate
+    for nucleus in ("13C", "1H"):
+        table = load_table(nucleus)
+        for atom in (0, 1):
+            assert all(table.entry(r, c) is not None for r, c in enumerate(mc.codes(atom, 2), start=1)), nucleus
 
 
 def test_shrinkage_walks_outward_and_stops_at_an_unknown_code():
@@ -86,4 +106,5 @@ def test_shipped_table_names_its_provenance(nucleus):
         r, code = key.split(",", 1)
         e = table.entry(int(r), code[1:-1])
         assert e.n >= 1 and e.sd >= 0
-    assert table.entry(1, "C3(-C2)").n >= 20
+    ethyl_ch3 = MolCodes(Chem.MolFromSmiles("CCCC")).codes(0, 1)[0]
+    assert table.entry(1, ethyl_ch3).n >= 20

@@ -114,22 +114,125 @@ def test_utf16_peak_list_reads_through_peaks(tmp_path):
     assert [m.multiplicity for m in pl.multiplets] == ["q", "t"]
 
 
-def _cli(*args: str, timeout: float = 60) -> subprocess.CompletedProcess:
-    # address space capped (a runaway read fails fast instead of swapping); the resident size of
-    # these runs is far lower (measured with /usr/bin/time in the boundary notes of DEVELOPERS.md)
+#: runs the CLI and, on exit, writes the process's own peak resident size (VmHWM: reset
+#: by exec, unlike ru_maxrss, which keeps the high-water mark of the forked test process)
+_PEAK_WRAPPER = """
+import atexit, os, runpy, sys
+def _peak():
+    with open("/proc/self/status") as fh:
+        kb = next(int(l.split()[1]) for l in fh if l.startswith("VmHWM:"))
+    with open(os.environ["SPECMATCH_TEST_PEAK_FILE"], "w") as out:
+        out.write(str(kb))
+atexit.register(_peak)
+sys.argv = ["specmatch", *sys.argv[1:]]
+runpy.run_module("specmatch", run_name="__main__")
+"""
+
+
+def _cli(*args: str, timeout: float = 60) -> tuple[subprocess.CompletedProcess, float]:
+    """Run the CLI in a child; returns the result and the child's own peak resident size (MB).
+
+    The address space is capped (a runaway read fails fast instead of swapping). The peak
+    size is a bound the readers must stay under, not a figure: the figures come from
+    ``benchmarks/bench_boundary.py``.
+    """
+    import tempfile
+
     pre = None
     if sys.platform.startswith("linux"):
         import resource
 
         def pre():  # pragma: no cover - runs in the child
             resource.setrlimit(resource.RLIMIT_AS, (1500 * 2**20, 1500 * 2**20))
-    return subprocess.run([sys.executable, "-m", "specmatch", *args], capture_output=True, text=True,
-                          timeout=timeout, preexec_fn=pre)
+    with tempfile.TemporaryDirectory() as tmp:
+        peak_file = Path(tmp) / "peak"
+        done = subprocess.run([sys.executable, "-c", _PEAK_WRAPPER, *args], capture_output=True,
+                              text=True, timeout=timeout, preexec_fn=pre,
+                              env=dict(os.environ, SPECMATCH_TEST_PEAK_FILE=str(peak_file)))
+        peak_mb = int(peak_file.read_text()) / 1024 if peak_file.exists() else float("inf")
+    return done, peak_mb
 
 
-@pytest.mark.skipif(not os.path.exists("/dev/zero"), reason="needs /dev/zero")
-def test_cli_peaks_and_identify_on_dev_zero_exit_2():
-    p = _cli("peaks", "/dev/zero")
-    assert p.returncode == 2 and "character device" in p.stderr and "Traceback" not in p.stderr
-    p = _cli("identify", "--substrate", "C=CC", "--reagent", "HBr", "--c13", "/dev/zero")
-    assert p.returncode == 2 and "character device" in p.stderr and "Traceback" not in p.stderr
+@pytest.mark.skipif(not (os.path.exists("/dev/zero") and os.path.exists("/proc/self/status")),
+                    reason="needs /dev/zero and /proc")
+def test_cli_peaks_and_identify_on_dev_zero_exit_2_quickly_and_small():
+    # the Done-when bound of the hostile-input work: exit 2, within seconds, under 300 MB
+    for args in (("peaks", "/dev/zero"),
+                 ("identify", "--substrate", "C=CC", "--reagent", "HBr", "--c13", "/dev/zero")):
+        p, peak_mb = _cli(*args)
+        assert p.returncode == 2, (args, p.returncode, p.stderr)
+        assert "character device" in p.stderr and "Traceback" not in p.stderr
+        assert len(p.stderr.strip().splitlines()) == 1  # one line on stderr
+        assert peak_mb < 300, (args, peak_mb)
+
+
+def test_every_path_input_of_the_cli_goes_through_the_guarded_reader(tmp_path, capsys):
+    from specmatch.cli import main
+
+    fifo = tmp_path / "pipe.txt"
+    os.mkfifo(fifo)  # would block an unguarded open() for ever
+    out = str(tmp_path / "out.jsonl")
+    cases = [["predict", "--batch", str(fifo), "--out", out],
+             ["rank", "--batch", str(fifo), "--out", out],
+             ["simulate", "--spin-system", str(fifo), "--field", "400"],
+             ["identify", "--substrate", "C=CC", "--reagent", "HBr", "--c13", str(fifo)],
+             ["identify", "--substrate", "C=CC", "--reagent", "HBr", "--candidates", str(fifo)]]
+    if os.path.exists("/dev/zero"):
+        cases += [["predict", "--batch", "/dev/zero", "--out", out],
+                  ["rank", "--batch", "/dev/zero", "--out", out],
+                  ["simulate", "--spin-system", "/dev/zero", "--field", "400"]]
+    for argv in cases:
+        assert main(argv) == 2, argv
+        err = capsys.readouterr().err
+        assert "not a file" in err and "Traceback" not in err, (argv, err)
+
+
+def test_batch_inputs_have_their_own_documented_limit(tmp_path, monkeypatch, capsys):
+    from specmatch.cli import main
+
+    smiles = tmp_path / "smiles.txt"
+    smiles.write_text("CCO\n" * 100)
+    monkeypatch.setenv("SPECMATCH_MAX_BATCH_MB", str(100 / 2**20))
+    assert main(["predict", "--batch", str(smiles), "--out", str(tmp_path / "o.jsonl")]) == 2
+    assert "limit for a batch file" in capsys.readouterr().err
+    assert "`batch`" in (Path(__file__).parents[1] / "DEVELOPERS.md").read_text(encoding="utf-8")
+    monkeypatch.delenv("SPECMATCH_MAX_BATCH_MB")
+    tasks = tmp_path / "tasks.jsonl"
+    tasks.write_bytes(b'{"id": "caf\xe9"}\n')  # Latin-1: JSON lines must be UTF-8
+    assert main(["rank", "--batch", str(tasks), "--out", str(tmp_path / "o.jsonl")]) == 2
+    assert "is not UTF-8 text" in capsys.readouterr().err
+
+
+def test_streamed_hash_is_bounded_and_matches(tmp_path, monkeypatch):
+    import hashlib
+
+    p = tmp_path / "a.jdx"
+    p.write_bytes(b"##TITLE= invented\n" * 1000)
+    assert safeio.sha256_file(p, kind="spectrum") == hashlib.sha256(p.read_bytes()).hexdigest()
+    monkeypatch.setenv("SPECMATCH_MAX_SPECTRUM_MB", str(1000 / 2**20))
+    with pytest.raises(SpecmatchError, match="limit for a spectrum file"):
+        safeio.sha256_file(p, kind="spectrum")
+    if os.path.exists("/dev/zero"):
+        with pytest.raises(SpecmatchError, match="character device"):
+            safeio.sha256_file("/dev/zero", kind="archive")
+
+
+def test_instrument_folder_input_is_identified_and_hashed_by_its_files(tmp_path):
+    # an instrument folder given to identify: read as a folder, hashed over its files
+    # (before: an internal error, since the folder was opened as a file to hash it)
+    import shutil
+
+    from specmatch.demo import demo_case
+    from specmatch.identification import identify
+    from specmatch.spectra.reader import input_sha256
+
+    case = demo_case("b")
+    exp = tmp_path / "exp" / "10"
+    exp.mkdir(parents=True)
+    shutil.copy(case.files["c13"], exp / "13C.jdx")
+    (exp / "notes.txt").write_text("invented run notes\n")
+    result = identify(substrate=case.substrate, reagent=case.reagent, c13=tmp_path / "exp")
+    assert result.inputs["files"]["c13"]["sha256"] == input_sha256(tmp_path / "exp")
+    before = input_sha256(tmp_path / "exp")
+    (exp / "notes.txt").write_text("changed\n")
+    assert input_sha256(tmp_path / "exp") != before

@@ -83,6 +83,23 @@ def test_history_on_a_read_only_file_system(tmp_path):
     assert "Read-only file system" in res.stderr and res.stderr.count("\n") == 1
 
 
+def test_identify_prints_its_verdict_before_a_save_that_fails(tmp_path, capsys):
+    # the store cannot be created (its folder would sit under a regular file, as on a
+    # read-only or full disk): the verdict is printed first, then one line on stderr, exit 2
+    from specmatch.demo import demo_case
+
+    case = demo_case("b")
+    blocker = tmp_path / "not_a_folder"
+    blocker.write_text("invented\n")
+    url = f"sqlite:///{blocker / 'analyses.sqlite'}"
+    code = main(["identify", "--substrate", case.substrate, "--reagent", case.reagent,
+                 "--c13", str(case.c13), "--save", "--store", url])
+    out, err = capsys.readouterr()
+    assert code == 2
+    assert out.startswith("Verdict: ") and "Data: 13C" in out  # the whole verdict, first
+    assert err.startswith("specmatch: cannot create the folder") and err.count("\n") == 1
+
+
 def test_damaged_database_is_detected_on_open(sqlite_url, tmp_path, capsys):
     _fill(sqlite_url, 40)
     db = Path(sqlite_url.removeprefix("sqlite:///"))

@@ -38,13 +38,10 @@ def _progress(total: int, desc: str):
 
 
 def _read_lines(path: str) -> list[str]:
-    try:
-        with open(path, encoding="utf-8") as fh:
-            return fh.read().splitlines()
-    except OSError as exc:
-        raise SpecmatchError(f"cannot read '{path}': {exc.strerror}") from None
-    except UnicodeDecodeError:
-        raise SpecmatchError(f"cannot read '{path}': it is not UTF-8 text") from None
+    """Lines of a ``--batch`` input (guarded reader, ``batch`` limit, UTF-8 or a BOM)."""
+    from .. import safeio
+
+    return safeio.read_text(path, kind="batch", legacy_8bit=False).splitlines()
 
 
 def _open_out(path: str):

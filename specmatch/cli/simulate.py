@@ -26,12 +26,9 @@ def _field(value: float | None, default: float | None) -> float:
 def _read_spin_system(path: str):
     from ..prediction.spin import SpinSystem
 
-    try:
-        text = Path(path).read_text(encoding="utf-8")
-    except OSError as exc:
-        raise SpecmatchError(f"cannot read '{path}': {exc.strerror}") from None
-    except UnicodeDecodeError:
-        raise SpecmatchError(f"cannot read '{path}': it is not UTF-8 text") from None
+    from .. import safeio
+
+    text = safeio.read_text(path, kind="spin_system", legacy_8bit=False)
     try:
         data = json.loads(text)
     except json.JSONDecodeError as exc:

@@ -161,13 +161,11 @@ def rank_batch(in_path: str, out_path: str, progress: Callable[[int, str], Any] 
     """
     from ..executor import plan_workers, run_tasks
 
-    try:
-        with open(in_path, encoding="utf-8") as fh:
-            lines = [ln for ln in fh.read().splitlines() if ln.strip()]
-    except OSError as exc:
-        raise SpecmatchError(f"cannot read '{in_path}': {exc.strerror}") from None
-    except UnicodeDecodeError:
-        raise SpecmatchError(f"cannot read '{in_path}': it is not UTF-8 text") from None
+    from .. import safeio
+
+    # guarded: regular files only, the documented ``batch`` limit (no /dev/zero, no FIFO)
+    text = safeio.read_text(in_path, kind="batch", legacy_8bit=False)
+    lines = [ln for ln in text.splitlines() if ln.strip()]
     try:
         out = open(out_path, "w", encoding="utf-8")
     except OSError as exc:

@@ -7,12 +7,11 @@ request, estimate the product ratio (the mixture module's hook).
 
 from __future__ import annotations
 
-import hashlib
 import os
 from dataclasses import replace
 from typing import Any, Mapping, Sequence
 
-from .. import __version__, safeio
+from .. import __version__
 from ..errors import SpecmatchError
 from ..spectra.types import Peak, PeakList
 from .errormodel import ErrorModel, load_error_model
@@ -27,13 +26,11 @@ DEPT_MATCH_PPM = 0.25
 
 
 def sha256_file(path: str | os.PathLike) -> str:
-    h = hashlib.sha256()
-    if not os.path.isdir(path):
-        safeio.check_file(path, kind="archive")  # regular file, bounded size (no /dev/zero)
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()
+    """SHA-256 of an input file or instrument folder (guarded, streamed:
+    :func:`specmatch.spectra.reader.input_sha256`)."""
+    from ..spectra.reader import input_sha256
+
+    return input_sha256(path)
 
 
 def _is_path(x: Any) -> bool:

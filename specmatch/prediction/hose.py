@@ -1,14 +1,15 @@
-"""HOSE-style environment codes and the learned correction table built on them.
+"""Environment codes of growing radius around each atom and the learned correction table built on them.
 
-An atom's environment is described sphere by sphere (Bremser, Anal. Chim. Acta
-1978, 103, 355): the atoms one bond away, two bonds away, ... each with the bond
-that reaches it, its element (lower case if aromatic) and its hydrogen count;
-a bond back into the same sphere (a ring closure) is marked ``&``. Our code is
-the canonical form of the shortest-path tree from the centre: every sphere is
-sorted, each atom's branch being written with its children sorted, so the code
-does not depend on the input's atom order. ``code(radius=r)`` keeps r spheres.
-
-Bond symbols: ``-`` single, ``=`` double, ``#`` triple, ``:`` aromatic.
+An atom's environment is described sphere by sphere, as in HOSE codes (Bremser,
+Anal. Chim. Acta 1978, 103, 355): radius 1 holds the atom and its neighbours,
+radius 2 adds the next sphere, and so on. The code of one radius is RDKit's
+Morgan identifier of the atom at that radius (Morgan, J. Chem. Doc. 1965, 5,
+107; the circular-environment form of Rogers & Hahn, J. Chem. Inf. Model. 2010,
+50, 742): element, heavy-atom degree, H count, charge and ring membership of each
+atom, the bond types between them, hashed sphere by sphere in C++. The identifier
+does not depend on the input's atom order, and one of radius r fixes those of
+smaller radii, so a code unknown at radius r is unknown beyond. Each table row
+also shows the environment as a SMILES fragment (``example``) for the reader.
 
 The correction table (``tables/hose_c13.csv.gz``, ``tables/hose_h1.csv.gz``,
 written by ``benchmarks/fit_hose.py``) holds, per nucleus, radius and code, the
@@ -43,9 +44,11 @@ from pathlib import Path
 from typing import NamedTuple
 
 from rdkit import Chem
+from rdkit import rdBase
+from rdkit.Chem import rdMolDescriptors
 
 TABLE_DIR = Path(__file__).resolve().parent / "tables"
-MAX_RADIUS = 4
+MAX_RADIUS = 5
 FOLDS = 5
 #: correct development molecules with their own fold left out (see the module docstring)
 CROSS_VALIDATED = os.environ.get("SPECMATCH_CROSS_VALIDATED", "") == "1"
@@ -63,79 +66,61 @@ def fold_of_mol(mol: Chem.Mol) -> int | None:
     return fold_of_block(Chem.MolToInchiKey(mol).split("-")[0])
 
 
-_BOND = {Chem.BondType.SINGLE: "-", Chem.BondType.DOUBLE: "=", Chem.BondType.TRIPLE: "#",
-         Chem.BondType.AROMATIC: ":"}
-
-
 class MolCodes:
-    """Per-molecule arrays for code building (read once from RDKit)."""
+    """The environment codes of every atom of one molecule, computed once.
 
-    __slots__ = ("n", "token", "nbrs")
+    RDKit's Morgan algorithm (C++) gives each atom an identifier per radius: radius 0
+    from the atom's own invariants (element, heavy-atom degree, H count, charge, ring
+    membership), radius r from the radius r-1 identifiers of the atom and of its
+    neighbours with the bond types. An identifier of radius r therefore fixes those
+    of smaller radii, as a HOSE code's r spheres fix its first r-1. Codes are the
+    identifiers in hexadecimal.
+    """
+
+    __slots__ = ("bits",)
 
     def __init__(self, mol: Chem.Mol):
-        n = self.n = mol.GetNumAtoms()
-        token = []
-        for i in range(n):
-            a = mol.GetAtomWithIdx(i)
-            s = a.GetSymbol()
-            token.append((s.lower() if a.GetIsAromatic() else s) + str(a.GetTotalNumHs()))
-        self.token = token
-        # per atom: (neighbour, bond symbol, bond symbol + neighbour token), strings built once
-        nbrs: list[list[tuple[int, str, str]]] = [[] for _ in range(n)]
-        for k in range(mol.GetNumBonds()):
-            b = mol.GetBondWithIdx(k)
-            i, j = b.GetBeginAtomIdx(), b.GetEndAtomIdx()
-            sym = _BOND.get(b.GetBondType(), "~")
-            nbrs[i].append((j, sym, sym + token[j]))
-            nbrs[j].append((i, sym, sym + token[i]))
-        self.nbrs = nbrs
+        # the function form of the Morgan algorithm gives the same identifiers as RDKit's
+        # fingerprint generator, which would import numpy (start-up of predict --batch);
+        # its deprecation notice is blocked for the call. Redundant environments are kept
+        # so every atom has a code at every radius.
+        info: dict[int, tuple[tuple[int, int], ...]] = {}
+        block = rdBase.BlockLogs()
+        rdMolDescriptors.GetMorganFingerprint(mol, MAX_RADIUS, bitInfo=info, includeRedundantEnvironments=True)
+        del block
+        bits = [[0] * (MAX_RADIUS + 1) for _ in range(mol.GetNumAtoms())]
+        for bit, where in info.items():
+            for atom, radius in where:
+                bits[atom][radius] = bit
+        for row, atom in zip(bits, mol.GetAtoms()):
+            if not atom.GetDegree():  # a lone atom (water, methane): itself at every radius
+                row[1:] = [row[0]] * MAX_RADIUS
+        #: per atom: identifiers of radius 0..MAX_RADIUS
+        self.bits: list[list[int]] = bits
 
     def codes(self, centre: int, max_radius: int = MAX_RADIUS) -> list[str]:
         """Codes of radius 1..max_radius around one atom (index r-1 is radius r)."""
         return list(self.iter_codes(centre, max_radius))
 
     def iter_codes(self, centre: int, max_radius: int = MAX_RADIUS) -> Iterator[str]:
-        """The codes of radius 1, 2, ... one at a time: a lookup that stops at an unknown
-        code never pays for the larger spheres."""
-        nbrs, token = self.nbrs, self.token
-        # distances from the centre by breadth-first search, up to max_radius
-        d = {centre: 0}
-        frontier = [centre]
-        for r in range(1, max_radius + 1):
-            nxt = []
-            for x in frontier:
-                for y, _, _ in nbrs[x]:
-                    if y not in d:
-                        d[y] = r
-                        nxt.append(y)
-            frontier = nxt
-            if not frontier:
-                break
-        memo: dict[tuple[int, int], str] = {}
+        """The codes of radius 1, 2, ..., max_radius (at most MAX_RADIUS) of one atom."""
+        for x in self.bits[centre][1:max_radius + 1]:
+            yield f"{x:08x}"
 
-        def branch(x: int, depth: int) -> str:
-            # the children of x: neighbours one sphere further out; ring closures within x's sphere
-            key = (x, depth)
-            got = memo.get(key)
-            if got is not None:
-                return got
-            dx = d[x]
-            parts = []
-            for y, b, bt in nbrs[x]:
-                dy = d.get(y)
-                if dy is None:
-                    continue
-                if dy == dx + 1:
-                    parts.append(bt if depth == 1 else bt + branch(y, depth - 1))
-                elif dy == dx and dx > 0:
-                    parts.append(b + "&")
-            s = "(" + ",".join(sorted(parts)) + ")" if parts else ""
-            memo[key] = s
-            return s
 
-        head = token[centre]
-        for r in range(1, max_radius + 1):
-            yield head + branch(centre, r)
+def environment_smiles(mol: Chem.Mol, centre: int, radius: int) -> str:
+    """A readable picture of an atom's environment of one radius: the fragment of the
+    bonds within ``radius`` of the atom, written as SMILES from the atom (for the
+    table's ``example`` column; the code itself is the identifier)."""
+    bonds = list(Chem.FindAtomEnvironmentOfRadiusN(mol, radius, centre))
+    while not bonds and radius > 1:  # the sphere is beyond the molecule: the whole of it
+        radius -= 1
+        bonds = list(Chem.FindAtomEnvironmentOfRadiusN(mol, radius, centre))
+    if not bonds:
+        return Chem.MolFragmentToSmiles(mol, [centre], isomericSmiles=False)
+    atoms = sorted({a for k in bonds for a in (mol.GetBondWithIdx(k).GetBeginAtomIdx(),
+                                                 mol.GetBondWithIdx(k).GetEndAtomIdx())})
+    return Chem.MolFragmentToSmiles(mol, atoms, bonds, rootedAtAtom=centre, isomericSmiles=False)
 
 
 def rank_tags(keys: list[int], shifts: list[float]) -> list[str]:
@@ -210,7 +195,7 @@ class HoseTable:
         v = self.rows.get(key)
         if v is None:
             return None
-        n_t, mean_t, sd_t, folds = v.split(",")
+        n_t, mean_t, sd_t, folds = v.split(",")[:4]
         n, mean, sd = int(n_t), float(mean_t), float(sd_t)
         if exclude_fold is None:
             e = self._parsed[key] = HoseEntry(n, mean, sd)
@@ -275,19 +260,20 @@ def read_table(path: Path) -> HoseTable:
     return HoseTable(dict(_ROW.findall(text)), shrink, max_radius, "\n".join(head), scale)
 
 
-def write_table(path: Path, rows: list[tuple[int, str, int, float, float, str]], provenance: list[str],
+def write_table(path: Path, rows: list[tuple[int, str, int, float, float, str, str]], provenance: list[str],
                 shrink: float, max_radius: int, sigma_scale: float) -> None:
-    """Write a correction table: provenance lines, then radius, code, n, mean, sd and the
-    per-fold statistics (``fold:n:mean:sd`` joined by ``;``) per row."""
+    """Write a correction table: provenance lines, then radius, code, n, mean, sd, the
+    per-fold statistics (``fold:n:mean:sd`` joined by ``;``) and an example environment
+    (SMILES fragment, no commas) per row."""
     with gzip.GzipFile(path, "wb", mtime=0) as raw:  # mtime 0: same bytes for the same table
         with io.TextIOWrapper(raw, encoding="utf-8", newline="") as fh:
             for line in provenance:
                 fh.write(f"# {line}\n")
             fh.write(f"# shrink {shrink:g}\n# max_radius {max_radius}\n# sigma_scale {sigma_scale:.3f}\n")
             # codes are always quoted (they hold commas) and never contain quotes
-            fh.write("radius,code,n,mean_ppm,sd_ppm,by_fold\n")
-            for r, code, n, mean, sd, folds in rows:
-                fh.write(f'{r},"{code}",{n},{mean:.4f},{sd:.4f},{folds}\n')
+            fh.write("radius,code,n,mean_ppm,sd_ppm,by_fold,example\n")
+            for r, code, n, mean, sd, folds, example in rows:
+                fh.write(f'{r},"{code}",{n},{mean:.4f},{sd:.4f},{folds},{example}\n')
 
 
 @lru_cache(maxsize=4)

@@ -453,26 +453,14 @@ def encode_xy_lines(x: np.ndarray, y: np.ndarray, form: str = "DIFDUP") -> list[
     i = 0
     while i < n:
         head = _fmt_x(float(x[i]))
-        if form == "AFFN":
+        if form in ("AFFN", "PAC"):
+            # AFFN separates ordinates by a space, PAC by their sign
             parts = [head]
             length = len(head)
             j = i
             while j < n:
-                tok = " " + str(yi[j])
-                if length + len(tok) > MAX_LINE and j > i:
-                    break
-                parts.append(tok)
-                length += len(tok)
-                j += 1
-            lines.append("".join(parts))
-            i = j
-            continue
-        if form == "PAC":
-            parts = [head]
-            length = len(head)
-            j = i
-            while j < n:
-                tok = ("-" if yi[j] < 0 else "+") + str(abs(yi[j]))
+                tok = (" " + str(yi[j]) if form == "AFFN"
+                       else ("-" if yi[j] < 0 else "+") + str(abs(yi[j])))
                 if length + len(tok) > MAX_LINE and j > i:
                     break
                 parts.append(tok)

@@ -40,7 +40,7 @@ MAX_DEPTH = 6
 MAX_ENTRIES = 5000
 
 
-def _files(root: Path) -> list[Path]:
+def folder_files(root: Path) -> list[Path]:
     """Regular files (no symbolic links) up to MAX_DEPTH levels below `root`; the walk is
     bounded, so a huge tree (a home folder, /proc) is refused quickly instead of scanned."""
     import os
@@ -66,7 +66,7 @@ def _files(root: Path) -> list[Path]:
 def read_folder(root: Path, *, nucleus: str | None = None, label: str | None = None) -> Spectrum | PeakList:
     """The spectrum held in an instrument folder (see module docstring for the order)."""
     label = label or root.name
-    files = _files(root)
+    files = folder_files(root)
 
     def where(p: Path) -> str:
         rel = p.relative_to(root).as_posix()
@@ -128,14 +128,66 @@ def _ng():
     return ng
 
 
-def _guard(folder: Path, data_names: tuple[str, ...], param_names: tuple[str, ...]) -> None:
-    """Size and file-type checks (``safeio``) on the files nmrglue is about to read."""
+def _guard(folder: Path, data_names: tuple[str, ...], param_names: tuple[str, ...],
+           *, bruker: bool = False) -> None:
+    """Size and file-type checks (``safeio``) on the files nmrglue is about to read;
+    with ``bruker``, the parameter files are also checked to end every value they open
+    (:func:`check_bruker_parameters`)."""
     for name in data_names:
         if (folder / name).exists():
             safeio.check_file(folder / name, kind="spectrum")
     for name in param_names:
         if (folder / name).exists():
             safeio.check_file(folder / name, kind="parameters")
+            if bruker:
+                check_bruker_parameters(safeio.read_text(folder / name, kind="parameters"),
+                                        name=str(folder / name))
+
+
+_LINE_BREAK = re.compile(r"\r\n|\r|\n")
+_ARRAY_SIZE = re.compile(r"\.\.\s*(\d+)\s*\)")
+
+
+def check_bruker_parameters(text: str, *, name: str) -> None:
+    """Refuse a Bruker parameter file (acqus, procs) with an unterminated value.
+
+    nmrglue's parser reads on past the end of the file, for ever, when a ``<string``
+    lacks its ``>`` or an array ``(0..N)`` gives fewer than N + 1 values (a truncated or
+    hand-edited file); it also stops at the first blank line. This walks the text the
+    same way and raises a SpecmatchError naming the line instead of letting the read hang.
+    """
+    lines = _LINE_BREAK.split(text)
+    i = 0
+    while i < len(lines):
+        line = lines[i].rstrip()
+        i += 1
+        if line == "" or line.startswith("##END="):
+            return  # where the parser stops
+        if not line.startswith("##$") or "=" not in line:
+            continue
+        value = line[line.index("=") + 1:].lstrip()
+        start = i
+        if "<" in value:
+            while ">" not in value:
+                if i >= len(lines):
+                    raise SpecmatchError(
+                        f"'{name}' line {start}: the text value opened by '<' is never closed "
+                        "by '>'; the parameter file is damaged (copy it again from the instrument)")
+                value += lines[i].rstrip()
+                i += 1
+        elif "(" in value:
+            m = _ARRAY_SIZE.search(line)
+            if m is None:
+                continue  # the parser gives up on this line alone
+            want = int(m.group(1)) + 1
+            got = len(line[line.index(")") + 1:].split()) if ")" in line else 0
+            while got < want:
+                if i >= len(lines):
+                    raise SpecmatchError(
+                        f"'{name}' line {start}: the array declares {want:,} values but the file "
+                        f"ends after {got:,}; the parameter file is truncated or damaged")
+                got += len(lines[i].rstrip().split())
+                i += 1
 
 
 def _nmrglue_call(what: str, fn, *args, **kwargs):
@@ -162,8 +214,8 @@ def read_bruker_pdata(pdata_dir: Path, *, label: str, nucleus: str | None = None
     ng = _ng()
     expno = pdata_dir.parent.parent
     acqus_ok = (expno / "acqus").exists()
-    _guard(pdata_dir, ("1r", "1i"), ("procs",))
-    _guard(expno, (), ("acqus",))
+    _guard(pdata_dir, ("1r", "1i"), ("procs",), bruker=True)
+    _guard(expno, (), ("acqus",), bruker=True)
 
     def _read():
         dic, data = ng.bruker.read_pdata(str(pdata_dir), read_acqus=False, scale_data=True)
@@ -182,15 +234,23 @@ def read_bruker_pdata(pdata_dir: Path, *, label: str, nucleus: str | None = None
         sw_p = float(procs["SW_p"])
     except (KeyError, TypeError, ValueError):
         raise SpecmatchError(f"'{label}': procs lacks SF, OFFSET or SW_p; cannot place the ppm axis") from None
+    if not (np.isfinite(offset) and np.isfinite(sw_p) and sw_p > 0):
+        raise SpecmatchError(f"'{label}': procs gives OFFSET {offset:g} ppm and SW_p {sw_p:g} Hz; "
+                             "they must be finite and SW_p positive to place the ppm axis")
     n = len(data)
-    ppm = offset - np.arange(n) * (sw_p / sf) / n
+    if n == 0:
+        raise SpecmatchError(f"'{label}': the processed data file holds no points")
     nuc = normalise_nucleus(str(acqus.get("NUC1", "")).strip("<>")) or nucleus
     if nuc is None:
         raise SpecmatchError(f"'{label}': no acqus with NUC1; give --nucleus 1H or 13C")
+    check_frequency(sf, nuc, label)  # before dividing by it (SF 0 or inf)
+    ppm = offset - np.arange(n) * (sw_p / sf) / n
     solvent = str(acqus.get("SOLVENT", "")).strip("<> ") or None
     pulprog = str(acqus.get("PULPROG", "")).strip("<> ")
-    check_frequency(sf, nuc, label)
     intensity = np.asarray(data, dtype=float).real
+    if not np.all(np.isfinite(intensity)):
+        raise SpecmatchError(f"'{label}': the processed data hold non-finite values "
+                             "(check NC_proc in procs); reprocess the spectrum")
     title = ""
     if (pdata_dir / "title").is_file():
         title = safeio.read_text(pdata_dir / "title", kind="parameters")
@@ -271,7 +331,7 @@ def read_varian_fid(folder: Path, *, label: str, nucleus: str | None = None) -> 
 def read_bruker_fid(folder: Path, *, label: str, nucleus: str | None = None) -> Spectrum:
     """A raw ``fid`` with ``acqus`` (no processed data): processed here."""
     ng = _ng()
-    _guard(folder, ("fid",), ("acqus",))
+    _guard(folder, ("fid",), ("acqus",), bruker=True)
     dic, data = _nmrglue_call(f"'{label}' (fid)", ng.bruker.read, str(folder))
     data = np.asarray(data)
     if data.ndim != 1:

@@ -7,6 +7,7 @@ name alone, so a renamed file still reads.
 
 from __future__ import annotations
 
+import hashlib
 import tempfile
 from pathlib import Path
 
@@ -19,15 +20,49 @@ MAX_FILE_BYTES = 256 * 1024 * 1024
 _ZIP_MAGIC = (b"PK\x03\x04", b"PK\x05\x06")
 
 
+def input_kind(path: str | Path) -> str:
+    """The ``safeio`` kind of a spectrum input: ``"archive"`` for a zip (by its first
+    bytes, not its name), else ``"spectrum"``."""
+    head = safeio.read_head(path, 8, kind="archive")
+    return "archive" if head.startswith(_ZIP_MAGIC) else "spectrum"
+
+
+def read_input_bytes(path: str | Path) -> bytes:
+    """Bytes of a spectrum input file through the guarded reader: a zip under the
+    archive limit, anything else under the spectrum limit (``safeio.LIMITS``).
+
+    Every place that takes a spectrum file by path (readers, batch manifests, the
+    store's copy of the inputs) reads it here, so one file meets one limit.
+    """
+    return safeio.read_bytes(path, kind=input_kind(path))
+
+
+def input_sha256(path: str | Path) -> str:
+    """SHA-256 (hex) of a spectrum input, streamed through the guarded reader.
+
+    A file: the hash of its bytes (what the store keeps and checks). An instrument
+    folder: the hash of the list of its files (relative name and each file's hash),
+    so the same folder always gives the same hash and a changed file changes it.
+    """
+    p = Path(path)
+    if not p.is_dir():
+        return safeio.sha256_file(p, kind=input_kind(p))
+    from .instrument import folder_files
+
+    h = hashlib.sha256()
+    for f in folder_files(p):
+        # raw data (fid, ser) may be larger than a processed spectrum: the archive limit
+        digest = safeio.sha256_file(f, kind="archive")
+        h.update(f"{f.relative_to(p).as_posix()}\0{digest}\n".encode())
+    return h.hexdigest()
+
+
 def _load(path_or_bytes: str | Path | bytes, name: str | None) -> tuple[bytes, str]:
-    """File contents through the guarded reader: a zip under the archive limit,
-    anything else under the spectrum limit (``safeio.LIMITS``)."""
+    """File contents (see :func:`read_input_bytes`) and the name for messages."""
     if isinstance(path_or_bytes, (bytes, bytearray)):
         return bytes(path_or_bytes), name or "upload"
     p = Path(path_or_bytes)
-    head = safeio.read_head(p, 8, kind="archive")
-    kind = "archive" if head.startswith(_ZIP_MAGIC) else "spectrum"
-    return safeio.read_bytes(p, kind=kind), name or p.name
+    return read_input_bytes(p), name or p.name
 
 
 def read_spectrum(path_or_bytes: str | Path | bytes, *, name: str | None = None,

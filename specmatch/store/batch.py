@@ -7,10 +7,12 @@ A manifest is a CSV file, one row per sample::
     S-002,C=CCC,MeOH/H+,spectra/S-002_13C.jdx,,,CDCl3,CO,CC(C)OC;CCCCOC
 
 ``sample_id``, ``substrate`` and ``reagent`` are required; file paths are relative to
-the manifest; ``candidates`` are extra SMILES separated by ``;``. Limits: at most
-:data:`MAX_MANIFEST_ROWS` rows and :data:`MAX_MANIFEST_BYTES` of manifest; each named
-file must be a regular file (devices, pipes and folders are refused by name) of at
-most :data:`MAX_FILE_BYTES`.
+the manifest; ``candidates`` are extra SMILES separated by ``;``. The manifest and the
+files it names are read through the guarded reader (:mod:`specmatch.safeio`): regular
+files only (devices, pipes and folders are refused by name), the manifest within the
+``manifest`` limit, each named file within the ``spectrum`` limit (a zip: ``archive``);
+text in UTF-8, or UTF-16/UTF-32 with a byte-order mark. At most
+:data:`MAX_MANIFEST_ROWS` rows.
 
 How a batch stays safe to interrupt
 -----------------------------------
@@ -38,7 +40,6 @@ from __future__ import annotations
 import csv
 import json
 import os
-import stat
 import sys
 import tempfile
 import time
@@ -47,6 +48,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterable, Iterator, Mapping, Sequence
 
+from .. import safeio
 from ..errors import SpecmatchError
 from ..executor import Plan, plan_workers, run_tasks, scratch_dir
 from .records import canonical_json, input_key, sha256_hex
@@ -57,10 +59,6 @@ TEXT_COLUMNS = ("solvent", "alcohol")
 MANIFEST_COLUMNS = (*REQUIRED_COLUMNS, *FILE_COLUMNS, *TEXT_COLUMNS, "candidates")
 SUMMARY_COLUMNS = ("sample_id", "status", "verdict", "top_candidate", "probability", "error",
                    "analysis_id")
-MAX_FILE_BYTES = 64 * 1024 * 1024
-"""A spectrum file larger than this is refused (it is not a processed 1D spectrum)."""
-MAX_MANIFEST_BYTES = 16 * 1024 * 1024
-"""A manifest larger than this is refused (100,000 rows of paths fit in far less)."""
 MAX_MANIFEST_ROWS = 100_000
 """Most samples one manifest may list (split bigger plates into several manifests)."""
 MAX_FIELD_CHARS = 10_000
@@ -149,11 +147,13 @@ class Sample:
         return row
 
 
-def parse_manifest(text: str, base: Path, *, name: str = "manifest") -> list[Sample]:
+def parse_manifest(text: str, base: Path, *, name: str = "manifest",
+                   encoding: str | None = None) -> list[Sample]:
     """Check a manifest's text; rows with a problem carry ``error`` and are not run.
 
     Only the text is parsed here (no file is read): :func:`read_manifest` then reads
-    and hashes the files the rows name.
+    and hashes the files the rows name. ``encoding`` (when the file was not UTF-8) is
+    named in the messages about the header, since a wrong export is the usual cause.
     """
     if "\x00" in text:
         raise SpecmatchError(f"the manifest '{name}' contains NUL bytes: it is not a CSV text "
@@ -163,13 +163,18 @@ def parse_manifest(text: str, base: Path, *, name: str = "manifest") -> list[Sam
         header = [(h or "").strip().lower() for h in (reader.fieldnames or [])]
     except csv.Error as exc:
         raise SpecmatchError(f"the manifest '{name}' is not valid CSV ({exc})") from None
+    what = f"the manifest '{name}'" + (f" (read as {encoding} text)" if encoding else "")
     missing = [c for c in REQUIRED_COLUMNS if c not in header]
     if missing:
+        first = text.lstrip("\ufeff").split("\n", 1)[0]
+        tabs = (" it looks tab-separated: save it as CSV (comma-separated) UTF-8;"
+                if "\t" in first and "," not in first else "")
+        again = " save it as CSV UTF-8;" if encoding and not tabs else ""
         raise SpecmatchError(
-            f"the manifest '{name}' has no column {', '.join(repr(m) for m in missing)}; "
+            f"{what} has no column {', '.join(repr(m) for m in missing)};{tabs}{again} "
             f"its first line must name the columns: {','.join(MANIFEST_COLUMNS)}")
     if not any(c in header for c in FILE_COLUMNS):
-        raise SpecmatchError(f"the manifest '{name}' names no spectrum column; "
+        raise SpecmatchError(f"{what} names no spectrum column; "
                              f"give at least one of {', '.join(FILE_COLUMNS)}")
     samples: list[Sample] = []
     seen: dict[str, int] = {}
@@ -228,15 +233,13 @@ def read_manifest(path: str | os.PathLike) -> list[Sample]:
         If the manifest cannot be read, is too large, or lacks a required column.
     """
     path = Path(path)
-    raw = _read_guarded(path, MAX_MANIFEST_BYTES, label=f"the manifest '{path}'",
-                        what="the manifest file (CSV)")
-    try:
-        text = raw.decode("utf-8-sig")  # spreadsheet exports add a BOM
-    except UnicodeDecodeError:
-        hint = (" (it looks like UTF-16: save it as CSV UTF-8)"
-                if raw[:2] in (b"\xff\xfe", b"\xfe\xff") else "; save it as CSV UTF-8")
-        raise SpecmatchError(f"cannot read the manifest '{path}': it is not UTF-8 text{hint}") from None
-    samples = parse_manifest(text, path.parent, name=str(path))
+    raw = safeio.read_bytes(path, kind="manifest")
+    # UTF-8 (a spreadsheet's BOM included), or UTF-16/32 with a byte-order mark; no
+    # Latin-1 guess: sample ids and paths must not be silently mis-read
+    text = safeio.decode_text(raw, name=str(path), legacy_8bit=False).lstrip("\ufeff")
+    encoding = safeio.text_encoding(raw[:4096])
+    samples = parse_manifest(text, path.parent, name=str(path),
+                             encoding=encoding if encoding != "UTF-8" else None)
     for s in samples:
         if s.error:
             continue
@@ -253,58 +256,16 @@ def read_manifest(path: str | os.PathLike) -> list[Sample]:
     return samples
 
 
-def _read_guarded(path: Path, limit: int, *, label: str, what: str, hint: str = "") -> bytes:
-    """Read a regular file of at most ``limit`` bytes; anything else is a clear error.
-
-    Opened without blocking and checked on the open descriptor, so a FIFO, a device
-    such as /dev/zero or a file swapped in after a check is refused, never read
-    without limit.
-    """
-    try:
-        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_NOCTTY", 0))
-    except FileNotFoundError:
-        raise SpecmatchError(f"cannot read {label}: no such file") from None
-    except IsADirectoryError:
-        raise SpecmatchError(f"{label} is a folder; give {what}{hint}") from None
-    except OSError as exc:
-        raise SpecmatchError(f"cannot read {label}: {exc.strerror}") from None
-    try:
-        info = os.fstat(fd)
-        if stat.S_ISDIR(info.st_mode):
-            raise SpecmatchError(f"{label} is a folder; give {what}{hint}")
-        if not stat.S_ISREG(info.st_mode):
-            kind = ("a device" if stat.S_ISCHR(info.st_mode) or stat.S_ISBLK(info.st_mode)
-                    else "a pipe" if stat.S_ISFIFO(info.st_mode)
-                    else "a socket" if stat.S_ISSOCK(info.st_mode) else "not a regular file")
-            raise SpecmatchError(f"{label} is {kind}, not a file; give {what}{hint}")
-        if info.st_size > limit:
-            raise SpecmatchError(f"{label} is {info.st_size / 1e6:.1f} MB, more than the "
-                                 f"{limit / 1e6:.0f} MB allowed for {what}; check the path")
-        chunks, total = [], 0
-        while True:
-            block = os.read(fd, min(1 << 20, limit + 1 - total))
-            if not block:
-                break
-            chunks.append(block)
-            total += len(block)
-            if total > limit:
-                raise SpecmatchError(f"{label} grew past the {limit / 1e6:.0f} MB allowed for "
-                                     f"{what} while it was read")
-        return b"".join(chunks)
-    except OSError as exc:
-        raise SpecmatchError(f"cannot read {label}: {exc.strerror}") from None
-    finally:
-        os.close(fd)
-
-
 def read_named_file(base: Path, rel: str) -> bytes:
-    """The bytes of a file a manifest row names (relative to the manifest's folder)."""
+    """The bytes of a file a manifest row names (relative to the manifest's folder),
+    through the guarded reader (:func:`specmatch.spectra.reader.read_input_bytes`)."""
+    from ..spectra.reader import read_input_bytes
+
     p = base / rel
     if not p.exists() and not p.is_symlink():
         raise SpecmatchError(f"'{rel}' not found (paths are relative to the manifest, "
                              f"here {base})")
-    return _read_guarded(p, MAX_FILE_BYTES, label=f"'{rel}'", what="a spectrum file",
-                         hint=" (zip an instrument data folder)")
+    return read_input_bytes(p)
 
 
 # ----------------------------------------------------------------------- the batch
@@ -325,6 +286,7 @@ class _State:
 
     failed: dict[int, str] = field(default_factory=dict)
     saved: set[str] = field(default_factory=set)
+    earlier: set[str] = field(default_factory=set)  # in the store before this run began
     finished: bool = False
 
 
@@ -372,6 +334,10 @@ def run_batch(manifest: str | os.PathLike, out_dir: str | os.PathLike | None = N
     state = _State()
     try:
         done = st.done_keys([s.key for s in samples if s.key])
+        # "done" vs "done-earlier" is decided against this, not against the ids this run
+        # saw saved: a signal between the store's commit and that bookkeeping must not
+        # turn an analysis of this run into an earlier one
+        state.earlier = set(done.values())
         todo = [i for i, s in enumerate(samples) if not s.error and (s.sample_id, s.key) not in done]
         for i, s in enumerate(samples):
             if s.error:
@@ -455,13 +421,13 @@ def _rows_from_store(store: Any, samples: list[Sample], state: _State) -> list[d
     for i, s in enumerate(samples):
         aid = found.get((s.sample_id, s.key)) if s.key else None
         if aid:
-            status = "done" if aid in state.saved else "done-earlier"
+            status = "done-earlier" if aid in state.earlier else "done"
             rows.append(_row(s, status, brief=brief.get(aid), analysis_id=aid))
         elif i in state.failed:
             rows.append(_row(s, "failed", error=state.failed[i]))
         else:
             rows.append(_row(s, "not-run" if state.finished or state.saved or state.failed
-                             else "pending"))
+                             or len(found) > len(state.earlier) else "pending"))
     return rows
 
 

@@ -1248,7 +1248,8 @@ def save_run(result: Any, paths: Mapping[str, str | os.PathLike | None], *,
 
 
 def _read_input(path: Path) -> bytes:
-    from .batch import MAX_FILE_BYTES, _read_guarded
+    """An input file's bytes to keep with the analysis (the guarded reader's checks and
+    limits, as when the file was read for the analysis)."""
+    from ..spectra.reader import read_input_bytes
 
-    return _read_guarded(path, MAX_FILE_BYTES, label=f"'{path}' (to save it with the analysis)",
-                         what="a spectrum file")
+    return read_input_bytes(path)

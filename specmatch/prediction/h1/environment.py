@@ -316,6 +316,9 @@ def _sp3_terms(g: _Graph, i: int) -> tuple[list[tuple[str, float]], str, str, bo
             terms.append((f"sp3:pair:XX:{hc}", mixed))
         if f_mixed:
             terms.append((f"sp3:pair:FX:{hc}", float(f_mixed)))
+        n_i = alpha_names.count("I")
+        if n_i > 1:  # iodines crowd each other far more than Cl/Br (CH2I2 3.90 ppm; from memory)
+            terms.append((f"sp3:pair:II:{hc}", n_i * (n_i - 1) / 2))
         if n_het and n_c:
             terms.append((f"sp3:pair:XC:{hc}", float(n_het * n_c)))
         if n_c > 1:

@@ -19,7 +19,7 @@ from ..multiplicity import multiplicity
 from .environment import proton_sites
 from .tables import load_tables
 
-TABLES_VERSION = "h1-2026.12-1+codes-2026-12-02"
+TABLES_VERSION = "h1-2026.12-2+morgan-codes-2026-12-02"
 
 
 def _check_deuterium(structure: Structure) -> None:

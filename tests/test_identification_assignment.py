@@ -91,7 +91,7 @@ def test_assignment_round_trips_and_checks_itself():
         GroupAssignment(((0, 0),), (3,), (False,), (4,), 3)
 
 
-def test_peak_list_fit_ties_each_components_oh_line_to_its_amount():
+def test_peak_list_fit_with_resolved_oh_lines_uses_whole_groups():
     # two alcohols whose OH lines are resolved (a dry sample): 2-methylbutan-2-ol and
     # butan-2-ol at 70:30, multiplets from the shifts above (OH lines at 1.60 and 1.85 ppm
     # invented for the test); the integral fit uses the shared assignment, every group whole

@@ -8,10 +8,10 @@ assigned to it, of (amount of that group's molecule) x (its proton count):
 The assignment is the shared :class:`~specmatch.identification.assignment.GroupAssignment`:
 each group goes to one multiplet as a whole, within ``ASSIGN_SIGMAS`` prediction
 sigmas of its predicted shift (distance to the multiplet's range). An exchangeable
-OH/NH group is a group like the others (its integral tied to its molecule's amount,
-a separate OH line per component is what a dry sample shows) but only on a line its
-position and width allow (no resolved couplings, within its wide window), and it
-may instead be absent or part of one free exchange-averaged line (a wet sample).
+OH/NH group is absent or part of one free exchange-averaged line, which may only be
+a line its position and width allow (no resolved couplings, within its wide window);
+with ``TIE_EXCHANGEABLE`` it may also take a line of its own tied to its molecule's
+amount (what a dry sample shows; off by default, see there).
 The assignment and the weights are found together by minimising
 
     chi2 = sum_m rho(((I_m - model_m) / s_m)**2) + sum_g (df + 1) log(1 + (distance_g / sigma_g)**2 / df)
@@ -64,10 +64,16 @@ ASSIGNMENT_AVERAGING = True
 ASSIGN_SIGMAS = 5.0
 #: an exchangeable group may go to a line this many of its (wide) sigmas away
 EXCHANGEABLE_SIGMAS = 2.5
+#: tie an OH/NH line of its own to its candidate's amount (else exchangeable groups are
+#: only absent or in the free exchange line). Off: on bench_mixture.py (both halves looked
+#: at) tying lost 2 points within 3 pp, the diols' OH lines swapping between the isomers
+TIE_EXCHANGEABLE = False
 #: cost (chi-square units) of an exchangeable group that is absent or in the free
 #: exchange-averaged line: about the shift term of a line 1.5 sigma away, so a
 #: separate OH line near its prediction is preferred, a far one is not forced (set by hand)
 EXCHANGEABLE_NONE_COST = 3.0
+#: try swaps of two equal-count groups of different candidates in the search
+SWAP_MOVES = True
 #: Cauchy scale (in sd) of the robust integral loss; None for plain least squares
 #: (set by hand: 3 sd keeps clean multiplets at full weight)
 ROBUST_C: float | None = 3.0
@@ -152,7 +158,7 @@ def fit_integrals(multiplets: Sequence[Multiplet], components: Sequence[Sequence
         pen = lambda d: float((SHIFT_DF + 1.0) * np.log1p((d / sig) ** 2 / SHIFT_DF))  # -2 log Student-t
         if g.exchangeable:
             opts = [(m, pen(_distance(g.shift, mm))) for m, mm in enumerate(mults)
-                    if not resolved[m] and _distance(g.shift, mm) <= EXCHANGEABLE_SIGMAS * sig]
+                    if TIE_EXCHANGEABLE and not resolved[m] and _distance(g.shift, mm) <= EXCHANGEABLE_SIGMAS * sig]
             opts.append((NOT_OBSERVED, EXCHANGEABLE_NONE_COST))
         else:
             bound = float(np.clip(ASSIGN_SIGMAS * g.sigma, MIN_BOUND_PPM, MAX_BOUND_PPM))
@@ -165,7 +171,9 @@ def fit_integrals(multiplets: Sequence[Multiplet], components: Sequence[Sequence
     # the free exchange-averaged line: an unresolved multiplet where some OH/NH group could be
     oh_opts: list[int | None] = [None]
     if exch.any():
-        oh_opts += sorted({m for q in np.flatnonzero(exch) for m, _ in options[q] if m >= 0})
+        oh_opts += sorted({m for q in np.flatnonzero(exch) for m, mm in enumerate(mults)
+                           if not resolved[m] and _distance(groups[q][2].shift, mm)
+                           <= EXCHANGEABLE_SIGMAS * max(float(groups[q][2].sigma), 1e-3)})
 
     def design(assign: list[int], oh: int | None):
         A = np.zeros((M, K + 1))
@@ -219,7 +227,7 @@ def fit_integrals(multiplets: Sequence[Multiplet], components: Sequence[Sequence
     # moves: single group to another option; two groups of different components with
     # the same proton count exchanging their multiplets (the integrals stay, the labels swap)
     swaps = [(q1, q2) for q1 in range(len(groups)) for q2 in range(q1 + 1, len(groups))
-             if comp_of[q1] != comp_of[q2] and exch[q1] == exch[q2] and counts[q1] == counts[q2]]
+             if SWAP_MOVES and comp_of[q1] != comp_of[q2] and exch[q1] == exch[q2] and counts[q1] == counts[q2]]
     opt_index = [{m: a for a, (m, _) in enumerate(opts)} for opts in options]
 
     rng = np.random.default_rng(seed)

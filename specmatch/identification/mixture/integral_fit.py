@@ -122,7 +122,7 @@ def _distance(p: float, m: Multiplet) -> float:
 
 def _resolved(m: Multiplet) -> bool:
     """Resolved couplings (d, t, dd, ... or a J listed): not an exchanging OH/NH line."""
-    if any(float(j) > 0 for j in (getattr(m, "j_hz", ()) or ())):
+    if any(float(j) > 0 for j in m.j_hz):
         return True
     n = partners_of(m.multiplicity or "")
     return n is not None and n > 0

@@ -32,7 +32,7 @@ from pathlib import Path
 import numpy as np
 from rdkit import Chem
 
-from ..structures import Structure, enantiomer_key, mol_smiles
+from ..structures import Structure, enantiomer_key, mirror_image, mol_smiles
 from .types import Prediction, ProtonGroup
 from .multiplicity import multiplicity
 
@@ -358,8 +358,11 @@ def _features_for(smiles: str, to_input: tuple[int, ...]) -> Features | None:
 
 def _diastereomers(structure: Structure) -> list[Chem.Mol]:
     """The structure and every other diastereomer of its specified centres (enantiomers once)."""
-    spec = structure.specified_stereo
     base = structure.mol
+    # centres in canonical order, so the first MAX_DIASTEREOMERS are the same set however
+    # the SMILES was written
+    rank = list(Chem.CanonicalRankAtoms(base, breakTies=True, includeChirality=True))
+    spec = sorted(structure.specified_stereo, key=lambda a: rank[a])
     seen: set[str] = set()
     out = []
     for flips in itertools.product((False, True), repeat=len(spec) - 1):
@@ -383,6 +386,11 @@ def stereo_features(structure: Structure) -> tuple[Features, Features | None] | 
     own: Features | None = None
     others: list[Features] = []
     for k, m in enumerate(_diastereomers(structure)[:MAX_DIASTEREOMERS]):
+        mirror = mirror_image(m)
+        if mol_smiles(mirror) < mol_smiles(m):
+            # one ensemble per enantiomer pair: the embedding is seeded, and the mirror
+            # image must not get other conformers (shifts and couplings are achiral)
+            m = mirror
         smi, order = _order_map(m)
         f = _features_for(smi, tuple(order))
         if f is None:
@@ -439,9 +447,21 @@ def apply_stereo_layer(structure: Structure, prediction: Prediction) -> Predicti
     own, mean = got
     ref_c = mean.c13 if mean is not None else {a: 0.0 for a in own.c13}
     ref_h = mean.h1 if mean is not None else {}
+    # corrections are averaged over the whole symmetry class: a finite ensemble can break
+    # the symmetry between equivalent atoms, and which split entry (diastereotopic halves)
+    # meets which atom depends on atom order, so per-entry values would not be reproducible
+    cls = structure.symmetry_classes
+    members: dict[int, list[int]] = {}
+    for a, k in enumerate(cls):
+        members.setdefault(k, []).append(a)
+
+    def class_mean(table: dict[int, float], ref: dict[int, float], atom: int) -> float:
+        atoms = members[cls[atom]]
+        return math.fsum(table.get(a, 0.0) - ref.get(a, 0.0) for a in atoms) / len(atoms)
+
     carbons = []
     for c in prediction.carbons:
-        d = float(np.mean([own.c13.get(a, 0.0) - ref_c.get(a, 0.0) for a in c.atoms]))
+        d = class_mean(own.c13, ref_c, c.atoms[0])
         carbons.append(replace(c, shift=c.shift + d) if abs(d) > 1e-6 else c)
     mol = structure.mol
     has_f = any(a.GetAtomicNum() == 9 for a in mol.GetAtoms())
@@ -452,7 +472,7 @@ def apply_stereo_layer(structure: Structure, prediction: Prediction) -> Predicti
         if atom.GetAtomicNum() != 6 or atom.GetTotalNumHs() != 1 or g.exchangeable:
             protons.append(g)
             continue
-        dh = float(np.mean([own.h1.get(a, 0.0) - ref_h.get(a, 0.0) for a in g.atoms]))
+        dh = class_mean(own.h1, ref_h, a0)
         new = replace(g, shift=g.shift + dh) if abs(dh) > 1e-6 else g
         if not has_f:
             coup = _methine_couplings(structure, a0, own)

@@ -97,6 +97,45 @@ class Structure:
                 groups.setdefault(self.symmetry_classes[atom.GetIdx()], []).append(atom.GetIdx())
         return [tuple(v) for v in sorted(groups.values())]
 
+    def diastereotopic_halves(self, atoms: tuple[int, ...]) -> tuple[tuple[int, ...], tuple[int, ...]] | None:
+        """The two halves of an equivalence set made of diastereotopic twins, or None.
+
+        The pairs are 2-coloured (each pair has one atom in each half), so the sizes of
+        the halves do not depend on the order the atoms were written in; atoms in no
+        pair, and the larger side of each linked set, go to the first half.
+        """
+        members = set(atoms)
+        adj: dict[int, set[int]] = {}
+        for a, b in self.diastereotopic_pairs:
+            if a in members and b in members and a != b:
+                adj.setdefault(a, set()).add(b)
+                adj.setdefault(b, set()).add(a)
+        if not adj:
+            return None
+        first: list[int] = []
+        second: list[int] = []
+        colour: dict[int, int] = {}
+        for start in sorted(adj):
+            if start in colour:
+                continue
+            colour[start] = 0
+            part = [[start], []]
+            queue = [start]
+            while queue:
+                x = queue.pop()
+                for y in sorted(adj[x]):
+                    if y not in colour:
+                        colour[y] = 1 - colour[x]
+                        part[colour[y]].append(y)
+                        queue.append(y)
+                    elif colour[y] == colour[x]:
+                        return None  # an odd ring of pairs: no consistent split
+            big, small = sorted(part, key=len, reverse=True)
+            first += big
+            second += small
+        rest = [a for a in atoms if a not in colour]
+        return tuple(sorted(first + rest)), tuple(sorted(second))
+
     def is_diastereotopic_group(self, atom_index: int) -> bool:
         """True if this atom attaches a group that has a diastereotopic twin."""
         return any(atom_index in pair for pair in self.diastereotopic_pairs)

@@ -348,7 +348,8 @@ def _sp3_terms(ctx: _Context, i: int) -> list[str]:
             # gamma reached through a heteroatom or an unsaturated atom, not a chain CH2
             via = [a for a in nbrs[i] if ctx.dist[a][j] == 2]
             if via and all(types[a] != "C" for a in via):
-                t.append(f"sp3:g:{types[j]}@via-{types[via[0]]}")
+                # two paths (a ring): the first type in sort order, not in atom order
+                t.append(f"sp3:g:{types[j]}@via-{min(types[a] for a in via)}")
         elif d == 4 and not ctx.internal[j]:
             t.append(f"sp3:d:{HETERO_ELEMENT.get(types[j], 'C')}")
     r = ctx.min_ring(i)
@@ -517,14 +518,23 @@ def _yne_terms(ctx: _Context, i: int) -> list[str]:
     return t
 
 
+def _first_ring(ctx: _Context, i: int, rings: list[tuple[int, ...]]) -> tuple[int, ...] | None:
+    """The ring a fusion atom `i` is read in: the smallest, then the first by the symmetry
+    ranks of its atoms seen from `i` (ring distance, rank), so the choice does not follow
+    the order the atoms were written in."""
+    if len(rings) <= 1:
+        return rings[0] if rings else None
+    ranks = ctx.ranks()
+
+    def key(r: tuple[int, ...]) -> tuple:
+        n, k0 = len(r), r.index(i)
+        return n, sorted((min(abs(k - k0), n - abs(k - k0)), ranks[x]) for k, x in enumerate(r))
+    return min(rings, key=key)
+
+
 def _benzene_ring(ctx: _Context, i: int) -> tuple[int, ...] | None:
-    best = None
-    for k in ctx.atom_rings[i]:
-        ring = ctx.rings[k]
-        if len(ring) == 6 and all(ctx.types[x] == "Car" for x in ring):
-            if best is None:
-                best = ring
-    return best
+    return _first_ring(ctx, i, [ctx.rings[k] for k in ctx.atom_rings[i]
+                             if len(ctx.rings[k]) == 6 and all(ctx.types[x] == "Car" for x in ctx.rings[k])])
 
 
 def _ar_terms(ctx: _Context, i: int, ring: tuple[int, ...], cls: str) -> list[str]:
@@ -640,7 +650,7 @@ def carbon_environments(mol: Chem.Mol, only: list[int] | None = None, graph: Mol
             else:
                 rings = [ctx.rings[k] for k in ctx.atom_rings[i] if all(ctx.arom[x] for x in ctx.rings[k])]
                 if rings:
-                    kind, terms = "har", _ar_terms(ctx, i, min(rings, key=len), "har")
+                    kind, terms = "har", _ar_terms(ctx, i, _first_ring(ctx, i, rings), "har")
                 else:
                     kind, terms = "other", ["other:Car"]
         elif ty == "C#C":

@@ -80,14 +80,14 @@ def shift_of_terms(terms: tuple[str, ...]) -> tuple[float, int, list[str], int]:
         without a row (after trying the nearest atom type); the number of
         interaction corrections never seen (counted as 0, widening sigma).
     """
-    total = 0.0
+    values = []
     min_support = 1 << 30
     missing = []
     unseen = 0
     get = _TERM_INFO.get
     for t in terms:
         info = get(t) or _term_info(t)
-        total += info[0]
+        values.append(info[0])
         s = info[1]
         if s is not None and s < min_support:
             min_support = s
@@ -95,20 +95,9 @@ def shift_of_terms(terms: tuple[str, ...]) -> tuple[float, int, list[str], int]:
             missing.append(t)
         elif info[3]:
             unseen += 1
-    return total, min_support, missing, unseen
-
-
-def _split_diastereotopic(structure: Structure, atoms: tuple[int, ...]) -> list[tuple[int, ...]]:
-    """Split a set of equivalent carbons into the two halves of diastereotopic pairs."""
-    first, second = [], []
-    for a, b in structure.diastereotopic_pairs:
-        if a in atoms and b in atoms and a not in second and b not in first:
-            first.append(a)
-            second.append(b)
-    if not first:
-        return [atoms]
-    rest = [x for x in atoms if x not in first and x not in second]
-    return [tuple(sorted(first + rest)), tuple(sorted(second))]
+    # exactly rounded sum: the same molecule written from another atom meets the
+    # terms in another order and must give the same shift to the last bit
+    return math.fsum(values), min_support, missing, unseen
 
 
 def _on_alkene(g: MolGraph, atom: int) -> bool:
@@ -196,7 +185,8 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
                 sigma = math.sqrt(sigma ** 2 + len(missing) * MISSING_TERM_SIGMA_PPM ** 2)
                 warnings.append(f"13C: environment of atom {atoms[0] + 1} not covered by the tables "
                                 f"({', '.join(sorted(set(missing)))}); nearest class used, sigma {sigma:.0f} ppm")
-        parts = _split_diastereotopic(structure, atoms) if structure.diastereotopic_pairs else [atoms]
+        halves = structure.diastereotopic_halves(atoms) if structure.diastereotopic_pairs else None
+        parts = list(halves) if halves else [atoms]
         if len(parts) == 2 and _DIASTEREOTOPIC_SPLIT_PPM:
             half = _DIASTEREOTOPIC_SPLIT_PPM / 2
             for sub, sign in zip(parts, (1.0, -1.0)):

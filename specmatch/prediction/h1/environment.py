@@ -693,23 +693,6 @@ def _exchangeable_site(g: _Graph, atoms: tuple[int, ...], i: int) -> ProtonSite:
                       fallback=kind == "other")
 
 
-def _split_pairs(structure: Structure, atoms: tuple[int, ...]) -> tuple[tuple[int, ...], tuple[int, ...]] | None:
-    """Halves of an equivalence set made of diastereotopic groups, or None."""
-    members = set(atoms)
-    first: list[int] = []
-    second: list[int] = []
-    for a, b in structure.diastereotopic_pairs:
-        if a in members and b in members and a not in second and b not in first:
-            if a not in first:
-                first.append(a)
-            if b not in second:
-                second.append(b)
-    if not first:
-        return None
-    rest = [a for a in atoms if a not in first and a not in second]
-    return tuple(sorted(first + rest)), tuple(sorted(second))
-
-
 def _alkene_twins(g: _Graph, atoms: tuple[int, ...]) -> tuple[tuple[int, ...], tuple[int, ...]] | None:
     """Halves of an equivalence set of sp3 groups sitting in twos on alkene carbons whose
     partner carbon has two different substituents (cis and trans groups), or None."""
@@ -776,7 +759,7 @@ def proton_sites(structure: Structure, j_hz: dict[str, float]) -> list[ProtonSit
                                             hc, f"{env}, diastereotopic H{tag}", coup2,
                                             diastereotopic=True, fallback=fb))
                 continue
-            halves = _split_pairs(structure, atoms) if structure.diastereotopic_pairs else None
+            halves = structure.diastereotopic_halves(atoms) if structure.diastereotopic_pairs else None
             if halves:
                 for sign, part in ((1.0, halves[0]), (-1.0, halves[1])):
                     sites.append(ProtonSite(part, g.nh[i] * len(part), tuple(terms) + (("sp3:split:group:any", sign),),

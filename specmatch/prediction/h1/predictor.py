@@ -10,6 +10,8 @@ first-order multiplicity with estimated J. The environments are perceived in
 
 from __future__ import annotations
 
+import math
+
 from ...errors import SpecmatchError
 from ...structures import Structure
 from ...structures.molecule import deuterium_counts
@@ -63,7 +65,7 @@ def predict_protons(structure: Structure, *, correction: bool = True, codes: Mol
     rows: list[tuple] = []
     warnings: list[str] = []
     for site in proton_sites(structure, j_hz):
-        shift = 0.0
+        parts = []
         missing = False
         for key, coef in site.terms:
             v = value.get(key)
@@ -71,7 +73,9 @@ def predict_protons(structure: Structure, *, correction: bool = True, codes: Mol
                 missing = True
                 v = value.get(key.rsplit(":", 2)[0] + ":other:" + key.rsplit(":", 1)[1], 0.0) \
                     if key.startswith("sp3:") else 0.0
-            shift += v * coef
+            parts.append(v * coef)
+        # exactly rounded: independent of the order the terms were perceived in
+        shift = math.fsum(parts)
         s, extra = sigma.get(site.sigma_class, sigma["other"])
         if site.fallback or missing:
             s += extra

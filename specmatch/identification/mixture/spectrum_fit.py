@@ -1070,14 +1070,6 @@ EXACT_SEED = 20260419
 #: chi-square per point after the first start's searches beyond which the exact fit
 #: stops there (the first-order fit is compared with it instead of more starts)
 EXACT_HOPELESS_CHI2 = 50.0
-#: trust-region polish (:func:`_exact_polish`): rounds, and the starting step radius (Hz)
-#: of the shifts per round (about half a vicinal coupling: within it a strongly coupled
-#: pattern keeps its shape well enough for the linearised step)
-EXACT_POLISH_ROUNDS = 8
-EXACT_POLISH_RADIUS_HZ = 4.0
-#: function evaluations per polish round (free-line widths and heights under crowded
-#: multiplets converge slowly: 15 left a 6 Hz OH line at 5.5 Hz)
-EXACT_POLISH_NFEV = 40
 
 
 #: exact lines are drawn as exact Lorentzians within EXACT_NEAR_POINTS grid steps (at
@@ -1586,72 +1578,6 @@ def _exact_least_squares(em: _ExactModel, t: np.ndarray, lo: np.ndarray, hi: np.
         if moved < EXACT_SETTLE_PPM:
             break
     return t
-
-
-def _exact_polish(em: _ExactModel, t: np.ndarray, lo: np.ndarray, hi: np.ndarray, *,
-                  rounds: int = EXACT_POLISH_ROUNDS, radius: float = EXACT_POLISH_RADIUS_HZ,
-                  max_nfev: int = EXACT_POLISH_NFEV) -> tuple[np.ndarray, float]:
-    """Trust-region polish on the exact model; (theta, cost).
-
-    Each round solves the bounded least squares of the model linearised at the current
-    shifts (lines moved by their Hellmann-Feynman derivatives; ``scipy.optimize.least_squares``,
-    analytic Jacobian) with every shift kept within ``radius`` Hz of where the simulation
-    was made, re-simulates the candidates whose shifts moved and keeps the step only if
-    the exact cost went down; otherwise the radius shrinks fourfold. A strongly coupled
-    pattern changes shape as its groups move, so a long linearised step is not trusted.
-    """
-    from scipy.optimize import least_squares
-
-    span = np.where(np.isfinite(hi - lo), np.abs(hi - lo), 1.0)
-    eps = 1e-9 * np.maximum(1.0, span)
-    t = np.clip(t.copy(), lo + np.where(np.isfinite(lo), eps, 0), hi - np.where(np.isfinite(hi), eps, 0))
-    free = (hi - lo) > 0  # weights pinned at zero (absent candidates) stay there
-    t[~free] = lo[~free]
-    if np.any(np.abs(t[em.i_c] - em.ref) > 1e-12):
-        em.relinearise(t[em.i_c])
-    cost = em.cost(t)
-    r_ppm = radius / em.f
-    for _ in range(rounds):
-        lo_r, hi_r = lo.copy(), hi.copy()
-        lo_r[em.i_c] = np.maximum(lo[em.i_c], em.ref - r_ppm)
-        hi_r[em.i_c] = np.minimum(hi[em.i_c], em.ref + r_ppm)
-        x0 = np.clip(t, lo_r + np.where(np.isfinite(lo_r), eps, 0), hi_r - np.where(np.isfinite(hi_r), eps, 0))
-
-        def fun(v, x0=x0):
-            full = x0.copy()
-            full[free] = v
-            return em.residuals(full)
-
-        def jac(v, x0=x0):
-            full = x0.copy()
-            full[free] = v
-            return em.jacobian(full)[:, free]
-
-        sol = least_squares(fun, x0[free], jac=jac, bounds=(lo_r[free], hi_r[free]), method="trf",
-                            x_scale="jac", max_nfev=max_nfev)
-        trial = x0.copy()
-        trial[free] = sol.x
-        moved = np.abs(trial[em.i_c] - em.ref)
-        old_parts, old_ref = list(em.parts), em.ref.copy()
-        for k in range(em.K):
-            own = [j for j, g in enumerate(em.b.groups) if g.component == k]
-            if own and np.max(moved[own]) > 1e-9:
-                em.set_part(k, em.simulate(k, trial[em.i_c]), trial[em.i_c])
-        c_new = em.cost(trial)
-        if c_new < cost:
-            step = float(np.max(moved)) if moved.size else 0.0
-            t, cost = trial, c_new
-            if step < EXACT_SETTLE_PPM:
-                break
-            if step > 0.5 * r_ppm:
-                r_ppm = min(2.0 * r_ppm, radius / em.f * 4.0)
-        else:
-            em.parts, em.ref = old_parts, old_ref
-            em._join()
-            r_ppm /= 4.0
-            if r_ppm * em.f < 0.05:
-                break
-    return t, cost
 
 
 def _exact_run(em: _ExactModel, start: np.ndarray, lo: np.ndarray, hi: np.ndarray, n_oh: int,

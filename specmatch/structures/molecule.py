@@ -173,11 +173,13 @@ def _smiles_problem(text: str) -> str:
 _ALLOWED_Z = frozenset(Chem.GetPeriodicTable().GetAtomicNumber(e) for e in _ALLOWED - {"D"})
 
 
-def _check_size(mol: Chem.Mol, what: str, max_heavy_atoms: int, *, connected: bool = False) -> None:
+def _check_size(mol: Chem.Mol, what: str, max_heavy_atoms: int, *, connected: bool = False,
+                elements: bool = True) -> None:
     """Refuse empty, oversized, disconnected molecules and unhandled elements.
 
     ``connected=True``: the caller knows the molecule is one fragment (a SMILES without
-    '.'), which spares the fragment search.
+    '.'), which spares the fragment search; ``elements=False``: the caller knows every
+    element is handled (a SMILES of organic-subset atoms only).
     """
     n = mol.GetNumHeavyAtoms()
     if n == 0:
@@ -194,8 +196,7 @@ def _check_size(mol: Chem.Mol, what: str, max_heavy_atoms: int, *, connected: bo
                 f"{what} has {n_parts} disconnected parts; give one molecule "
                 "(drop counter-ions and solvent)"
             )
-    numbers = {mol.GetAtomWithIdx(i).GetAtomicNum() for i in range(mol.GetNumAtoms())}
-    if not numbers <= _ALLOWED_Z:
+    if elements and not {mol.GetAtomWithIdx(i).GetAtomicNum() for i in range(mol.GetNumAtoms())} <= _ALLOWED_Z:
         odd = sorted({mol.GetAtomWithIdx(i).GetSymbol() for i in range(mol.GetNumAtoms())} - _ALLOWED)
         raise SpecmatchError(f"{what} contains {', '.join(odd)}, which specmatch does not handle")
 
@@ -211,17 +212,21 @@ def _check_species(mol: Chem.Mol, what: str) -> None:
     S+-O-) are accepted; a charged carbon, a net charge or an unpaired electron is not,
     because predicting it as the parent molecule would be silently wrong.
     """
-    radicals = [a for a in mol.GetAtoms() if a.GetNumRadicalElectrons()]
+    atoms = [mol.GetAtomWithIdx(i) for i in range(mol.GetNumAtoms())]  # by index: the sequence wrapper is slow
+    radicals = [a for a in atoms if a.GetNumRadicalElectrons()]
     if radicals:
         a = radicals[0]
         raise SpecmatchError(
             f"{what} is a radical (unpaired electron on {a.GetSymbol()} atom {a.GetIdx() + 1}); "
             "specmatch predicts closed-shell molecules: write every atom's hydrogens "
             "(e.g. C for methane, not [CH3])")
-    net = sum(a.GetFormalCharge() for a in mol.GetAtoms())
-    charged_c = [a for a in mol.GetAtoms() if a.GetFormalCharge() and a.GetAtomicNum() == 6]
+    charges = [a.GetFormalCharge() for a in atoms]
+    if not any(charges):
+        return
+    net = sum(charges)
+    charged_c = [a for a, q in zip(atoms, charges) if q and a.GetAtomicNum() == 6]
     if net or charged_c:
-        where = charged_c[0] if charged_c else next(a for a in mol.GetAtoms() if a.GetFormalCharge())
+        where = charged_c[0] if charged_c else next(a for a, q in zip(atoms, charges) if q)
         kind = "a carbocation" if where.GetAtomicNum() == 6 and where.GetFormalCharge() > 0 else \
             "a carbanion" if where.GetAtomicNum() == 6 else "an ion"
         raise SpecmatchError(
@@ -320,20 +325,23 @@ def mol_from_text(text: str, *, max_heavy_atoms: int = MAX_HEAVY_ATOMS) -> Chem.
         mol = Chem.MolFromSmiles(stripped)
         if mol is None:
             raise SpecmatchError(f"{what} is not a valid SMILES ({_smiles_problem(stripped)})")
-    # one pass over the atoms, by index (RDKit's atom sequence wrapper is slow for small molecules)
-    numbers = {mol.GetAtomWithIdx(i).GetAtomicNum() for i in range(mol.GetNumAtoms())}
-    if 0 in numbers:
-        raise SpecmatchError(f"{what} contains a wildcard atom '*'; give a complete structure")
-    if 1 in numbers:
-        mol = Chem.RemoveHs(mol)  # keeps isotope-labelled H, folded next
-    # isotopes, charges and radicals need a bracket atom in a SMILES: skip the atom
-    # loops for the common plain SMILES
-    if what == "the molfile" or "[" in stripped:
+    # A SMILES without brackets and '*' holds only organic-subset atoms (B, C, N, O, P, S and
+    # the halogens, all handled): no H atoms, isotopes, charges, radicals or wildcards, so
+    # the atom loops below are skipped for the common plain SMILES
+    plain = what != "the molfile" and "[" not in stripped and "*" not in stripped
+    if not plain:
+        # one pass over the atoms, by index (RDKit's atom sequence wrapper is slow for small molecules)
+        numbers = {mol.GetAtomWithIdx(i).GetAtomicNum() for i in range(mol.GetNumAtoms())}
+        if 0 in numbers:
+            raise SpecmatchError(f"{what} contains a wildcard atom '*'; give a complete structure")
+        if 1 in numbers:
+            mol = Chem.RemoveHs(mol)  # keeps isotope-labelled H, folded next
         if any(mol.GetAtomWithIdx(i).GetIsotope() for i in range(mol.GetNumAtoms())):
             mol = _fold_deuterium(mol, what)
         _check_species(mol, what)
     # a SMILES without '.' is one fragment (ring-closure digits only join atoms across a '.')
-    _check_size(mol, what, max_heavy_atoms, connected=what != "the molfile" and "." not in stripped)
+    _check_size(mol, what, max_heavy_atoms, connected=what != "the molfile" and "." not in stripped,
+                elements=not plain)
     return mol
 
 
@@ -395,7 +403,8 @@ def enantiomer_key(mol: Chem.Mol) -> str:
 def mirror_image(mol: Chem.Mol) -> Chem.Mol:
     """The mirror image: every tetrahedral tag inverted (a copy; perception cleared)."""
     m = Chem.Mol(mol)
-    for a in m.GetAtoms():
+    for i in range(m.GetNumAtoms()):  # by index: the sequence wrapper is slow
+        a = m.GetAtomWithIdx(i)
         tag = a.GetChiralTag()
         if tag == Chem.ChiralType.CHI_TETRAHEDRAL_CW:
             a.SetChiralTag(Chem.ChiralType.CHI_TETRAHEDRAL_CCW)

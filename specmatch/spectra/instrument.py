@@ -63,6 +63,29 @@ def folder_files(root: Path) -> list[Path]:
     return sorted(out)
 
 
+def folder_zip(root: Path) -> bytes:
+    """An instrument folder as zip bytes, the same bytes for the same files.
+
+    Used to keep a copy of a folder input (the store holds files, not trees): entries
+    in sorted order, named relative to the folder's parent (as a zip of the folder made
+    by hand would be), a fixed time stamp; compressed size under the archive limit.
+    """
+    import io
+    import zipfile
+
+    limit = safeio.limit("archive")
+    buf = io.BytesIO()
+    with zipfile.ZipFile(buf, "w", zipfile.ZIP_DEFLATED) as zf:
+        for f in folder_files(root):
+            info = zipfile.ZipInfo(f.relative_to(root.parent).as_posix(), date_time=(1980, 1, 1, 0, 0, 0))
+            info.compress_type = zipfile.ZIP_DEFLATED
+            zf.writestr(info, safeio.read_bytes(f, kind="archive"))
+            if buf.tell() > limit:
+                raise SpecmatchError(f"the instrument folder '{root}' is larger than {limit // (1024 * 1024)} MB "
+                                     "compressed; give the processed experiment folder only")
+    return buf.getvalue()
+
+
 def read_folder(root: Path, *, nucleus: str | None = None, label: str | None = None) -> Spectrum | PeakList:
     """The spectrum held in an instrument folder (see module docstring for the order)."""
     label = label or root.name

@@ -1079,6 +1079,10 @@ EXACT_POLISH_RADIUS_HZ = 4.0
 EXACT_STAGES_HZ = (8.0, 3.0, 0.0)
 #: a continuation ending at or below this cost per point is taken without further starts
 EXACT_CONTINUATION_OK = 3.0
+#: the continuation stops after two polish rounds of its first (broadest) stage when they
+#: leave more than this cost per point (noise of the smoothed data): demo (c) leaves 5, the crowded envelope of
+#: demo (a) thousands, where the sharper stages cost minutes and do not recover
+EXACT_STAGE_GIVE_UP = 50.0
 
 
 #: exact lines are drawn as exact Lorentzians within EXACT_NEAR_POINTS grid steps (at
@@ -1675,7 +1679,7 @@ def _smoothed(x: np.ndarray, y: np.ndarray, fwhm_hz: float, f: float) -> tuple[n
 
 
 def _exact_continuation(model: _Model, em: _ExactModel, theta0: np.ndarray, lo: np.ndarray,
-                        hi: np.ndarray, n_oh: int) -> np.ndarray:
+                        hi: np.ndarray, n_oh: int) -> np.ndarray | None:
     """Polish from the predicted shifts on progressively less smoothed data (``EXACT_STAGES_HZ``).
 
     A Lorentzian convolved with a Lorentzian is a Lorentzian with the widths added, so
@@ -1703,7 +1707,13 @@ def _exact_continuation(model: _Model, em: _ExactModel, theta0: np.ndarray, lo: 
         t[widths] = np.clip(t[widths] - prev + delta, lo_s[widths], hi_s[widths])
         s = _ExactSearch(es, t, hi_s, n_oh)
         s.search_oh()
-        t, _ = _exact_polish(es, s.t, lo_s, hi_s, radius=EXACT_POLISH_RADIUS_HZ * (1.0 + delta / 2.0))
+        radius = EXACT_POLISH_RADIUS_HZ * (1.0 + delta / 2.0)
+        t = s.t
+        if prev == 0.0 and delta > 0:
+            t, c = _exact_polish(es, t, lo_s, hi_s, radius=radius, rounds=2)
+            if c / max(1, len(b.xu)) > EXACT_STAGE_GIVE_UP:
+                return None  # far from the data already on smoothed lines: sharper stages only cost time
+        t, _ = _exact_polish(es, t, lo_s, hi_s, radius=radius)
         prev = delta
     return t
 
@@ -1824,8 +1834,10 @@ def exact_fit(model: _Model, theta0: np.ndarray, lb: np.ndarray, ub: np.ndarray,
     # first the continuation from the predicted shifts (smoothed data, then sharper); the
     # searched starts run only when it ends far from the noise
     tc = _exact_continuation(model, em, theta0, lo, hi, n_oh)
-    em.relinearise(tc[em.i_c])
-    cc = em.cost(tc)
+    cc = np.inf
+    if tc is not None:
+        em.relinearise(tc[em.i_c])
+        cc = em.cost(tc)
     if cc / n_pts <= EXACT_CONTINUATION_OK:
         t, cost = tc, cc
     else:

@@ -13,7 +13,12 @@ Prints its inputs (file, scope, molecules, CPUs), then
   the whole ``predict_structure`` and the JSON row;
 - the whole command ``specmatch predict --batch IN --out OUT`` (one process start, default
   worker policy, and ``--workers 0``) in molecules/s, start-up included;
-- the start-up time of ``specmatch --help`` (best of 5).
+- the start-up time of ``specmatch --help`` (best of 5);
+- with ``--baseline DIR`` (another source tree of specmatch, e.g. a checkout of the
+  previous commit: ``git worktree add /tmp/base HEAD~3``), the whole command of that
+  tree and of this one, alternately, ``--rounds`` times each, wall and CPU seconds
+  (the processes' user + system time): on a shared machine the CPU time is the figure
+  to compare, the wall time follows the load. Both trees run with this interpreter.
 
 The scopes are those of ``../shared/tools/specbench.py`` (core: no aromatic ring, no
 carbonyl, at most 12 heavy atoms; wide: every record). Figures depend on the machine and
@@ -25,6 +30,7 @@ from __future__ import annotations
 import argparse
 import json
 import os
+import resource
 import shutil
 import subprocess
 import sys
@@ -111,19 +117,29 @@ def _stages(smiles: list[str]) -> None:
           f"  ({n / total:.0f} molecules/s in one process)")
 
 
-def _command(smiles: list[str], workers: str | None) -> float:
-    exe = shutil.which("specmatch", path=str(Path(sys.executable).parent)) or shutil.which("specmatch")
-    cmd = [exe] if exe else [sys.executable, "-m", "specmatch"]
+def _command(smiles: list[str], workers: str | None, tree: str | None = None) -> tuple[float, float]:
+    """Wall and CPU seconds (user + system of the command and its workers) of one
+    ``predict --batch`` run; ``tree``: run that source tree's specmatch instead."""
+    if tree:
+        cmd = [sys.executable, "-m", "specmatch"]
+        env = {**os.environ, "PYTHONPATH": os.path.abspath(tree)}
+    else:
+        exe = shutil.which("specmatch", path=str(Path(sys.executable).parent)) or shutil.which("specmatch")
+        cmd = [exe] if exe else [sys.executable, "-m", "specmatch"]
+        env = None
     with tempfile.TemporaryDirectory() as tmp:
         src, out = os.path.join(tmp, "in.smi"), os.path.join(tmp, "out.jsonl")
         Path(src).write_text("\n".join(smiles) + "\n", encoding="utf-8")
         args = cmd + ["predict", "--batch", src, "--out", out] + (["--workers", workers] if workers else [])
+        before = resource.getrusage(resource.RUSAGE_CHILDREN)
         t = time.perf_counter()
-        p = subprocess.run(args, capture_output=True, text=True)
+        p = subprocess.run(args, capture_output=True, text=True, env=env, cwd=tree or None)
         wall = time.perf_counter() - t
+        after = resource.getrusage(resource.RUSAGE_CHILDREN)
         if p.returncode not in (0, 1):
             sys.exit(f"{' '.join(args)} exited {p.returncode}: {p.stderr[-2000:]}")
-    return wall
+    cpu = (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
+    return wall, cpu
 
 
 def _startup() -> float:
@@ -143,6 +159,9 @@ def main() -> None:
     ap.add_argument("--scope", choices=("core", "wide"), default="core")
     ap.add_argument("--limit", type=int, default=0, help="first N molecules of the scope (0: all)")
     ap.add_argument("--stages-only", action="store_true", help="skip the whole-command and start-up runs")
+    ap.add_argument("--baseline", metavar="DIR", help="another specmatch source tree to compare with (alternate runs)")
+    ap.add_argument("--rounds", type=int, default=2, help="with --baseline: runs of each tree (default 2)")
+    ap.add_argument("--workers", default="0", help="with --baseline: the --workers of the compared runs (default 0)")
     a = ap.parse_args()
     smiles = _smiles(a.records, a.scope, a.limit)
     try:
@@ -150,15 +169,37 @@ def main() -> None:
     except AttributeError:
         cpus = os.cpu_count() or 1
     print(f"input: {a.records} scope={a.scope} molecules={len(smiles)} cpus={cpus} "
-          f"python={sys.version.split()[0]} SPECMATCH_WORKERS={os.environ.get('SPECMATCH_WORKERS', '')!r}")
+          f"python={sys.version.split()[0]} SPECMATCH_WORKERS={os.environ.get('SPECMATCH_WORKERS', '')!r} "
+          f"PYTHONDONTWRITEBYTECODE={os.environ.get('PYTHONDONTWRITEBYTECODE', '')!r} "
+          f"load average {os.getloadavg()[0]:.1f}")
+    if a.baseline:
+        _compare(smiles, a.baseline, a.rounds, a.workers)
+        return
     _stages(smiles)
     if a.stages_only:
         return
     for workers in (None, "0"):
-        wall = _command(smiles, workers)
+        wall, cpu = _command(smiles, workers)
         what = "default workers" if workers is None else f"--workers {workers}"
-        print(f"whole command, {what}: {len(smiles) / wall:.0f} molecules/s ({wall:.2f} s, start-up included)")
+        print(f"whole command, {what}: {len(smiles) / wall:.0f} molecules/s ({wall:.2f} s wall, "
+              f"{cpu:.2f} s CPU, start-up included)")
     print(f"start-up, specmatch --help (best of 5): {_startup():.2f} s")
+
+
+def _compare(smiles: list[str], baseline: str, rounds: int, workers: str) -> None:
+    """The whole command of the baseline tree and of this one, alternately."""
+    here = str(Path(__file__).resolve().parents[1])
+    runs: dict[str, list[tuple[float, float]]] = {"baseline": [], "this tree": []}
+    for _ in range(rounds):
+        runs["baseline"].append(_command(smiles, workers, baseline))
+        runs["this tree"].append(_command(smiles, workers, here))
+    print(f"whole command, --workers {workers}, {rounds} alternate runs each (best; CPU = user + system):")
+    for name, tree in (("baseline", baseline), ("this tree", here)):
+        wall = min(w for w, _ in runs[name])
+        cpu = min(c for _, c in runs[name])
+        print(f"  {name:10s} {tree}: {len(smiles) / wall:.0f} molecules/s wall ({wall:.2f} s), "
+              f"{len(smiles) / cpu:.0f} molecules per CPU second ({cpu:.2f} s)")
+    print(f"  load average at the end {os.getloadavg()[0]:.1f}")
 
 
 if __name__ == "__main__":

@@ -1,5 +1,6 @@
 """Fuzzing the inputs not covered by the spectrum-reader fuzzers: ``rank --batch`` task
-lines, JSON spin systems, candidate files and instrument-folder parameter files.
+lines, JSON spin systems, candidate files and instrument-folder parameter files (Bruker
+``procs``/``acqus``, Agilent/Varian ``procpar``).
 
 Each property is the boundary rule of the project: whatever the input, the answer
 is a result or a ``SpecmatchError`` that says what is wrong, never another exception.
@@ -158,6 +159,65 @@ def test_instrument_folder_parameters_never_crash(tmp_path, override, n_bytes):
         assert str(exc)
         return
     assert all(math.isfinite(p.shift) for p in pl.peaks)
+
+
+def _varian_folder(root: Path, params: dict, n: int = 256) -> None:
+    """An Agilent/Varian ``fid`` + ``procpar`` folder (invented data: one decaying line)."""
+    import nmrglue as ng
+
+    root.mkdir(parents=True, exist_ok=True)
+    t = np.arange(n) / 4800.0
+    fid = (np.exp(-2j * np.pi * 500.0 * t) * np.exp(-t / 0.05)).astype("complex64")
+    udic = ng.fileiobase.create_blank_udic(1)
+    udic[0].update(size=n, complex=True, encoding="direct", sw=4800.0, obs=400.13, car=6.0 * 400.13,
+                   label="H1", time=True, freq=False)
+    dic = ng.varian.create_dic(udic)
+    for key, val in params.items():
+        dic["procpar"][key] = ng.varian.create_pdic_param(key, [str(val)])
+    ng.varian.write(str(root), dic, fid, overwrite=True)
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(st.dictionaries(st.sampled_from(["sfrq", "sw", "tn", "rfl", "rfp", "rp", "lp", "solvent", "seqfil"]),
+                       PARAM_VALUE, max_size=5),
+       st.one_of(st.none(), st.binary(max_size=200)))
+def test_varian_procpar_never_crashes(tmp_path, override, raw_procpar):
+    # parameter values fuzzed, or the procpar file replaced by arbitrary bytes
+    import shutil
+
+    from specmatch.spectra import peaks_from_file, read_spectrum
+
+    root = tmp_path / "exp.fid"
+    shutil.rmtree(root, ignore_errors=True)
+    params = {"sfrq": 400.13, "sw": 4800.0, "tn": "H1", "rfl": 2000.0, "rfp": 0.0, "rp": 0.0, "lp": 0.0,
+              "solvent": "CDCl3", "seqfil": "s2pul"}
+    params.update(override)
+    _varian_folder(root, params)
+    if raw_procpar is not None:
+        (root / "procpar").write_bytes(raw_procpar)
+    try:
+        sp = read_spectrum(root)
+        assert np.all(np.isfinite(sp.ppm)) and np.all(np.isfinite(sp.intensity))
+        assert sp.frequency_mhz is None or sp.frequency_mhz > 0
+        pl = peaks_from_file(root)
+    except SpecmatchError as exc:
+        assert str(exc)
+        return
+    assert all(math.isfinite(p.shift) for p in pl.peaks)
+
+
+@pytest.mark.parametrize("override,message", [
+    ({"sw": "-.1"}, "spectral width"),        # found by the fuzzer above: NaN spectrum
+    ({"sfrq": "0"}, "sfrq"),
+])
+def test_damaged_varian_parameters_are_refused(tmp_path, override, message):
+    from specmatch.spectra import read_spectrum
+
+    params = {"sfrq": 400.13, "sw": 4800.0, "tn": "H1", "rfl": 2000.0, "rfp": 0.0}
+    params.update(override)
+    _varian_folder(tmp_path / "exp.fid", params)
+    with pytest.raises(SpecmatchError, match=message):
+        read_spectrum(tmp_path / "exp.fid")
 
 
 def _bruker(tmp_path: Path, procs_extra: dict, acqus_lines: str = "") -> Path:

@@ -199,12 +199,19 @@ def test_alkyne_smiles_in_a_candidate_file_survives(tmp_path):
     assert [c.line for c in got] == [2, 3, 6]
 
 
+def test_candidate_file_saved_as_utf16_reads(tmp_path):
+    # editors on Windows save "Unicode" text as UTF-16 with a byte-order mark
+    f = tmp_path / "c16.smi"
+    f.write_bytes("CCO ethanol\nC#Cc1ccc2ccccc2c1 # alkyne\n".encode("utf-16"))
+    assert [c.smiles for c in read_candidates(f)] == ["CCO", "C#Cc1ccc2ccccc2c1"]
+
+
 def test_candidate_file_problems_are_specmatch_errors(tmp_path):
     with pytest.raises(SpecmatchError, match="not found"):
         read_candidates(tmp_path / "missing.smi")
     with pytest.raises(SpecmatchError, match="folder"):
         read_candidates(tmp_path)
-    (tmp_path / "b.smi").write_bytes(b"\xff\xfeC\x00")
+    (tmp_path / "b.smi").write_bytes(b"CCO \xe9thanol\n")  # Latin-1: refused, never guessed
     with pytest.raises(SpecmatchError, match="UTF-8"):
         read_candidates(tmp_path / "b.smi")
     with pytest.raises(SpecmatchError, match="no structures"):

@@ -142,3 +142,16 @@ def test_batch_prediction_loads_neither_numpy_nor_the_3d_layer():
             "print(','.join(m for m in ('numpy', 'specmatch.prediction.stereo') if m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == ""
+
+
+def test_batch_command_loads_no_numpy(tmp_path):
+    # the whole `predict --batch` command, handler imports included (the single-structure
+    # text table once pulled numpy in through the spectra stage)
+    src, out = tmp_path / "in.smi", tmp_path / "out.jsonl"
+    src.write_text("CCO\nC=CCBr\nCC(C)C(C)O\n", encoding="utf-8")
+    code = ("import sys; from specmatch.cli import main; "
+            f"sys.argv = ['specmatch', 'predict', '--batch', {str(src)!r}, '--out', {str(out)!r}, '--workers', '0']; "
+            "rc = main(); print(rc, 'numpy' in sys.modules)")
+    got = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert got.stdout.split()[-2:] == ["0", "False"], got.stdout + got.stderr
+    assert len(out.read_text(encoding="utf-8").splitlines()) == 3

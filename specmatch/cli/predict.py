@@ -15,11 +15,12 @@ PER_WORKER = 50
 
 
 def cmd_predict(args: argparse.Namespace) -> int:
+    if args.batch:
+        return _batch(args)
+    # the text table loads the spectra stage (numpy): only for a single structure
     from ..prediction import predict
     from ..reports.tables_text import prediction_table
 
-    if args.batch:
-        return _batch(args)
     if not args.smiles:
         raise SpecmatchError("give a SMILES, or --batch FILE --out OUT.jsonl")
     pred = predict(args.smiles)

@@ -19,7 +19,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from ..errors import SpecmatchError
-from ..safeio import read_bytes
+from ..safeio import read_text
 
 __all__ = ["CandidateLine", "parse_candidates", "read_candidates"]
 
@@ -66,11 +66,11 @@ def read_candidates(path: str | Path) -> list[CandidateLine]:
                                  "a candidate list is one SMILES per line")
         # the guarded reader refuses devices and FIFOs and never reads past its limit
         # (a /dev/zero reports size 0 and would otherwise be read without end)
-        text = read_bytes(p, kind="candidates").decode("utf-8-sig")
+        # decoded like every other text input (BOM-aware UTF-8/16/32); no Latin-1 guess,
+        # since a misread name or SMILES would be silently wrong
+        text = read_text(p, kind="candidates", legacy_8bit=False)
     except FileNotFoundError:
         raise SpecmatchError(f"candidate file '{path}' not found") from None
-    except UnicodeDecodeError:
-        raise SpecmatchError(f"candidate file '{path}' is not UTF-8 text; save it as plain text") from None
     except OSError as exc:
         raise SpecmatchError(f"cannot read candidate file '{path}': {exc.strerror}") from None
     return parse_candidates(text, f"candidate file '{path}'")

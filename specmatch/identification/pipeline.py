@@ -33,6 +33,13 @@ def sha256_file(path: str | os.PathLike) -> str:
     return input_sha256(path)
 
 
+def input_name(path: str | os.PathLike) -> str:
+    """Name an input is recorded under (a folder's name with ``.zip``: the store keeps a zip)."""
+    from ..spectra.reader import input_name as name
+
+    return name(path)
+
+
 def _is_path(x: Any) -> bool:
     return isinstance(x, (str, os.PathLike))
 
@@ -237,7 +244,7 @@ def identify(substrate: str | None = None, reagent: str | None = None, *, alcoho
         if _is_path(x):
             if not os.path.exists(x):
                 raise SpecmatchError(f"cannot read '{x}' ({role}): no such file")
-            files[role] = {"path": os.fspath(x), "name": os.path.basename(os.fspath(x)),
+            files[role] = {"path": os.fspath(x), "name": input_name(x),
                            "sha256": sha256_file(x)}
     enumeration = None
     safety: tuple[str, ...] = ()

@@ -92,8 +92,10 @@ class MolCodes:
         for bit, where in info.items():
             for atom, radius in where:
                 bits[atom][radius] = bit
-        for row, atom in zip(bits, mol.GetAtoms()):
-            if not atom.GetDegree():  # a lone atom (water, methane): itself at every radius
+        for i, row in enumerate(bits):
+            # a lone atom (water, methane): itself at every radius (an atom with bonds has
+            # a radius-1 identifier, so RDKit is asked only about atoms without one)
+            if not row[1] and not mol.GetAtomWithIdx(i).GetDegree():
                 row[1:] = [row[0]] * MAX_RADIUS
         #: per atom: identifiers of radius 0..MAX_RADIUS
         self.bits: list[list[int]] = bits

@@ -35,6 +35,10 @@ from .types import PeakList, Spectrum
 
 MAX_DEPTH = 6
 
+#: phase parameters beyond this (degrees) are not a phase but damage: phased automatically
+#: instead (first-order phases of real data stay within a few thousand degrees, common practice)
+MAX_PHASE_DEG = 1e5
+
 
 #: most directory entries looked at in an instrument folder (an experiment folder holds tens)
 MAX_ENTRIES = 5000
@@ -61,6 +65,29 @@ def folder_files(root: Path) -> list[Path]:
             if not p.is_symlink() and p.is_file():
                 out.append(p)
     return sorted(out)
+
+
+def folder_zip(root: Path) -> bytes:
+    """An instrument folder as zip bytes, the same bytes for the same files.
+
+    Used to keep a copy of a folder input (the store holds files, not trees): entries
+    in sorted order, named relative to the folder's parent (as a zip of the folder made
+    by hand would be), a fixed time stamp; compressed size under the archive limit.
+    """
+    import io
+    import zipfile
+
+    limit = safeio.limit("archive")
+    buf = io.BytesIO()
+    with zipfile.ZipFile(buf, "w", zipfile.ZIP_DEFLATED) as zf:
+        for f in folder_files(root):
+            info = zipfile.ZipInfo(f.relative_to(root.parent).as_posix(), date_time=(1980, 1, 1, 0, 0, 0))
+            info.compress_type = zipfile.ZIP_DEFLATED
+            zf.writestr(info, safeio.read_bytes(f, kind="archive"))
+            if buf.tell() > limit:
+                raise SpecmatchError(f"the instrument folder '{root}' is larger than {limit // (1024 * 1024)} MB "
+                                     "compressed; give the processed experiment folder only")
+    return buf.getvalue()
 
 
 def read_folder(root: Path, *, nucleus: str | None = None, label: str | None = None) -> Spectrum | PeakList:
@@ -295,22 +322,31 @@ def read_varian_fid(folder: Path, *, label: str, nucleus: str | None = None) -> 
 
     def val(key, default=None, cast=float):
         try:
-            return cast(pp[key]["values"][0])
+            v = cast(pp[key]["values"][0])
         except (KeyError, IndexError, TypeError, ValueError):
             return default
+        # a non-finite number (inf, nan) is as good as absent: never let it reach the axis or phase
+        return default if cast is float and not np.isfinite(v) else v
 
     sw = val("sw")
     sfrq = val("sfrq")
     if not sw or not sfrq:
         raise SpecmatchError(f"'{label}': procpar lacks sw or sfrq; cannot place the ppm axis")
+    if sw <= 0:
+        raise SpecmatchError(f"'{label}': procpar gives a spectral width sw of {sw:g} Hz; it must be positive. "
+                             "Check the file, or export the processed spectrum as JCAMP-DX")
     nuc = normalise_nucleus(val("tn", None, str)) or nucleus
     if nuc is None:
         raise SpecmatchError(f"'{label}': procpar has no tn (nucleus); give --nucleus")
     check_frequency(sfrq, nuc, label)
     rp, lp = val("rp"), val("lp")
+    if rp is not None and lp is not None and max(abs(rp), abs(lp)) > MAX_PHASE_DEG:
+        rp = lp = None  # nonsense phase parameters: phase automatically instead
     phase_given = rp is not None and (rp != 0 or (lp or 0) != 0)
     spec = _process_fid(data, sw_hz=sw, sf_mhz=sfrq, nucleus=nuc,
                         p0=rp if phase_given else None, p1=lp if phase_given else None)
+    if not np.all(np.isfinite(spec)):
+        raise SpecmatchError(f"'{label}': the FID holds values that are not numbers; the file is damaged")
     n = len(spec)
     rfl, rfp = val("rfl", 0.0), val("rfp", 0.0)
     # rfl: distance (Hz) of the reference line from the right-hand (low-ppm) edge;

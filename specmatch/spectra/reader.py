@@ -32,8 +32,15 @@ def read_input_bytes(path: str | Path) -> bytes:
     archive limit, anything else under the spectrum limit (``safeio.LIMITS``).
 
     Every place that takes a spectrum file by path (readers, batch manifests, the
-    store's copy of the inputs) reads it here, so one file meets one limit.
+    store's copy of the inputs) reads it here, so one file meets one limit. An
+    instrument folder comes back as a zip of its files
+    (:func:`specmatch.spectra.instrument.folder_zip`), which reads back the same.
     """
+    p = Path(path)
+    if p.is_dir() and not p.is_symlink():
+        from .instrument import folder_zip
+
+        return folder_zip(p)
     return safeio.read_bytes(path, kind=input_kind(path))
 
 
@@ -41,20 +48,21 @@ def input_sha256(path: str | Path) -> str:
     """SHA-256 (hex) of a spectrum input, streamed through the guarded reader.
 
     A file: the hash of its bytes (what the store keeps and checks). An instrument
-    folder: the hash of the list of its files (relative name and each file's hash),
-    so the same folder always gives the same hash and a changed file changes it.
+    folder: the hash of its zip (:func:`read_input_bytes`; sorted entries, fixed time
+    stamps), so the same folder always gives the same hash, a changed file changes it,
+    and the copy the store keeps matches the record.
     """
     p = Path(path)
     if not p.is_dir():
         return safeio.sha256_file(p, kind=input_kind(p))
-    from .instrument import folder_files
+    return hashlib.sha256(read_input_bytes(p)).hexdigest()
 
-    h = hashlib.sha256()
-    for f in folder_files(p):
-        # raw data (fid, ser) may be larger than a processed spectrum: the archive limit
-        digest = safeio.sha256_file(f, kind="archive")
-        h.update(f"{f.relative_to(p).as_posix()}\0{digest}\n".encode())
-    return h.hexdigest()
+
+def input_name(path: str | Path) -> str:
+    """The name an input is recorded and kept under: the file's name, a folder's name
+    with ``.zip`` (the store keeps a folder as a zip of it)."""
+    p = Path(path)
+    return p.name + ".zip" if p.is_dir() else p.name
 
 
 def _load(path_or_bytes: str | Path | bytes, name: str | None) -> tuple[bytes, str]:

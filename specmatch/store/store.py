@@ -1238,8 +1238,11 @@ def save_run(result: Any, paths: Mapping[str, str | os.PathLike | None], *,
         if not path:
             continue
         p = Path(path)
-        content = _read_input(p)
-        name = p.name if p.name not in files else f"{role}/{p.name}"
+        content = _read_input(p)  # an instrument folder is kept as a zip of its files
+        from ..spectra.reader import input_name
+
+        base = input_name(p)
+        name = base if base not in files else f"{role}/{base}"
         files[name] = content
     if isinstance(store, Store):
         return save_result(store, result, files, sample_id=sample_id, user=user, groups=groups)

@@ -17,7 +17,7 @@ from dataclasses import replace
 
 from ...structures import Structure
 from ...structures.graph import MolGraph, graph_of
-from ...structures.molecule import deuterium_counts
+from ...structures.molecule import DEUTERIUM_PROP, deuterium_counts
 from ..hose import MolCodes, fold_of_mol, load_table, rank_tags
 from ..types import CarbonShift
 from .environment import carbon_environments, is_correction, nearest_term
@@ -45,10 +45,19 @@ def _coverage(min_support: int) -> str:
 
 
 def _class_sigma(kind: str, hydrogens: int, coverage: str) -> float:
-    for key in (f"{kind}:H{hydrogens}:{coverage}", f"{kind}:*:{coverage}", f"*:*:{coverage}"):
-        if key in _SIGMA:
-            return _SIGMA[key]
-    return NO_CLASS_SIGMA_PPM
+    got = _CLASS_SIGMA.get((kind, hydrogens, coverage))
+    if got is None:
+        got = NO_CLASS_SIGMA_PPM
+        for key in (f"{kind}:H{hydrogens}:{coverage}", f"{kind}:*:{coverage}", f"*:*:{coverage}"):
+            if key in _SIGMA:
+                got = _SIGMA[key]
+                break
+        _CLASS_SIGMA[(kind, hydrogens, coverage)] = got
+    return got
+
+
+#: (class, H count, coverage) -> sigma, filled on first use (a few dozen keys)
+_CLASS_SIGMA: dict[tuple[str, int, str], float] = {}
 
 
 #: term -> (value added, support counted or None, missing main term?, unseen correction?),
@@ -166,7 +175,9 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
                 by_terms.setdefault(tuple(sorted(envs[a].terms)), []).append(a)
             sets.extend(tuple(v) for v in by_terms.values())
         sets.sort()
-    out: list[CarbonShift] = []
+    # (atoms, shift, sigma, hydrogens, environment, fallback) per signal: the frozen
+    # CarbonShift is built once, after the correction
+    out: list[list] = []
     kinds: list[str] = []  # table class of each entry of out
     warnings: list[str] = []
     for atoms in sets:
@@ -190,28 +201,29 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
         if len(parts) == 2 and _DIASTEREOTOPIC_SPLIT_PPM:
             half = _DIASTEREOTOPIC_SPLIT_PPM / 2
             for sub, sign in zip(parts, (1.0, -1.0)):
-                out.append(CarbonShift(sub, shift + sign * half, sigma, env.hydrogens,
-                                       env.label + ", diastereotopic", fallback))
+                out.append([sub, shift + sign * half, sigma, env.hydrogens, env.label + ", diastereotopic", fallback])
                 kinds.append(env.kind)
         else:
-            out.append(CarbonShift(atoms, shift, sigma, env.hydrogens, env.label, fallback))
+            out.append([atoms, shift, sigma, env.hydrogens, env.label, fallback])
             kinds.append(env.kind)
     table = load_table("13C") if correction else None
     if table is not None and out:
         codes = codes or MolCodes(mol)
         cls = structure.symmetry_classes
         fold = fold_of_mol(structure.mol)  # None unless SPECMATCH_CROSS_VALIDATED=1
-        tags = rank_tags([cls[c.atoms[0]] for c in out], [c.shift for c in out])
-        for k, (c, tag) in enumerate(zip(out, tags)):
-            if kinds[k] == "other":
+        tags = rank_tags([cls[c[0][0]] for c in out], [c[1] for c in out])
+        for c, kind, tag in zip(out, kinds, tags):
+            if kind == "other":
                 continue
-            corr, sigma, depth = table.correct((x + tag for x in codes.iter_codes(c.atoms[0], table.max_radius)),
-                                               c.sigma, fold)
+            own = codes.iter_codes(c[0][0], table.max_radius)
+            corr, sigma, depth = table.correct([x + tag for x in own] if tag else own, c[2], fold)
             if depth:
-                out[k] = CarbonShift(c.atoms, c.shift + corr, sigma, c.hydrogens, c.environment, c.fallback)
-    if any(deuterium_counts(mol)):
-        out = _deuterated(out, deuterium_counts(mol), warnings)
-    return out, warnings
+                c[1] += corr
+                c[2] = sigma
+    shifts = [CarbonShift(*c) for c in out]
+    if mol.HasProp(DEUTERIUM_PROP):
+        shifts = _deuterated(shifts, deuterium_counts(mol), warnings)
+    return shifts, warnings
 
 
 def _deuterated(carbons: list[CarbonShift], n_d: tuple[int, ...], warnings: list[str]) -> list[CarbonShift]:

@@ -23,6 +23,10 @@ from .tables import load_tables
 
 TABLES_VERSION = "h1-2026.12-2+morgan-codes-2026-12-02"
 
+#: (couplings, exchangeable) -> multiplicity letters and J: a pure function of its inputs,
+#: and the same few hundred partner patterns recur in every batch
+_MULTIPLICITY: dict[tuple, tuple[str, tuple[float, ...]]] = {}
+
 
 def _check_deuterium(structure: Structure) -> None:
     """D on an sp2 carbon that keeps one H (=CHD) leaves the remaining H's position
@@ -81,7 +85,11 @@ def predict_protons(structure: Structure, *, correction: bool = True, codes: Mol
             s += extra
             warnings.append(f"1H: the tables do not cover the protons on atom {site.atoms[0] + 1} "
                             f"({site.environment}); a generic value with a wide sigma is used")
-        mult, js = multiplicity(site.couplings, exchangeable=site.exchangeable)
+        key = (site.couplings, site.exchangeable)
+        got = _MULTIPLICITY.get(key)
+        if got is None:
+            got = _MULTIPLICITY[key] = multiplicity(site.couplings, exchangeable=site.exchangeable)
+        mult, js = got
         if site.complex_multiplet and not site.exchangeable:
             mult, js = "m", ()
         rows.append([site, shift, s, mult, js])
@@ -92,8 +100,8 @@ def predict_protons(structure: Structure, *, correction: bool = True, codes: Mol
         fold = fold_of_mol(structure.mol)  # None unless SPECMATCH_CROSS_VALIDATED=1
         tags = rank_tags([cls[r[0].atoms[0]] for r in rows], [r[1] for r in rows])
         for row, tag in zip(rows, tags):
-            corr, sig, depth = table.correct((x + tag for x in codes.iter_codes(row[0].atoms[0], table.max_radius)),
-                                             row[2], fold)
+            own = codes.iter_codes(row[0].atoms[0], table.max_radius)
+            corr, sig, depth = table.correct([x + tag for x in own] if tag else own, row[2], fold)
             if depth:
                 row[1] += corr
                 row[2] = sig

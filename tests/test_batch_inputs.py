@@ -23,12 +23,15 @@ from specmatch.store.batch import parse_manifest, read_manifest, run_batch
 HEADER = "sample_id,substrate,reagent,c13,h1,dept135,solvent,alcohol,candidates\n"
 
 
-def test_devices_pipes_and_folders_fail_their_row_quickly(tmp_path, sqlite_url):
+def test_devices_pipes_and_empty_folders_fail_their_row_quickly(tmp_path, sqlite_url):
     (tmp_path / "ok.jdx").write_text("##TITLE=invented\n##END=\n")
     os.mkfifo(tmp_path / "pipe.jdx")
     (tmp_path / "folder").mkdir()
+    (tmp_path / "exp" / "1").mkdir(parents=True)  # an instrument folder: kept as a zip of its files
+    (tmp_path / "exp" / "1" / "spectrum.jdx").write_text("##TITLE=invented\n##END=\n")
     m = tmp_path / "m.csv"
     m.write_text(HEADER + "OK,C=CC,HBr,ok.jdx,,,,,\n"
+                 "EXP,C=CC,HBr,exp,,,,,\n"
                  "ZERO,C=CC,HBr,/dev/zero,,,,,\n"
                  "URANDOM,C=CC,HBr,,/dev/urandom,,,,\n"
                  "PIPE,C=CC,HBr,pipe.jdx,,,,,\n"
@@ -42,8 +45,8 @@ def test_devices_pipes_and_folders_fail_their_row_quickly(tmp_path, sqlite_url):
     assert "'/dev/zero' is a character device, not a file" in rows["ZERO"]["error"]
     assert "'/dev/urandom' is a character device" in rows["URANDOM"]["error"]
     assert "pipe.jdx' is a FIFO (named pipe), not a file" in rows["PIPE"]["error"]
-    assert "folder' is a directory, not a file; give the file inside it, or a zip of it" \
-        in rows["DIR"]["error"]
+    assert rows["EXP"]["status"] == "done"
+    assert "folder' is a folder that holds no files" in rows["DIR"]["error"]
 
 
 def test_oversized_and_bad_manifests_are_refused(tmp_path, monkeypatch, capsys):

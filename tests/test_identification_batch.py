@@ -100,3 +100,17 @@ def test_worker_processes_keep_task_order_and_results(tmp_path):
     one, two = tmp_path / "one.jsonl", tmp_path / "two.jsonl"
     assert rank_batch(str(src), str(one), workers=1) == rank_batch(str(src), str(two), workers=2) == 3
     assert one.read_text() == two.read_text()
+
+
+def test_cli_rank_workers_option_gives_the_same_lines(tmp_path):
+    tasks = [GOOD, GOOD_DICT_C13, GOOD_H1] * 2
+    src = tmp_path / "tasks.jsonl"
+    src.write_text("\n".join(json.dumps(t) for t in tasks) + "\n", encoding="utf-8")
+    outs = []
+    for n in ("0", "2"):
+        out = tmp_path / f"res{n}.jsonl"
+        p = subprocess.run([sys.executable, "-m", "specmatch", "rank", "--batch", str(src), "--out", str(out),
+                            "--workers", n], capture_output=True, text=True, timeout=300)
+        assert p.returncode == 0, p.stderr
+        outs.append(out.read_text())
+    assert outs[0] == outs[1]

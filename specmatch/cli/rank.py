@@ -16,7 +16,7 @@ def cmd_rank(args: argparse.Namespace) -> int:
         raise SpecmatchError("use: specmatch rank --batch TASKS.jsonl --out RESULTS.jsonl "
                              "(see 'specmatch rank --help' for the formats)")
     failed, total = rank_batch(args.batch, args.out, progress=_progress,
-                               max_components=args.max_components, count=True)
+                               workers=args.workers, max_components=args.max_components, count=True)
     # the summary goes to stderr so the result file (or a pipe) holds only JSON lines
     print(f"specmatch rank: {total - failed} of {total} task(s) ranked, {failed} failed"
           + (f" (see the 'error' field in {args.out})" if failed else "") + f"; results in {args.out}",
@@ -39,4 +39,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--out", metavar="RESULTS.jsonl", help="where to write the result lines")
     p.add_argument("--max-components", type=int, choices=(1, 2, 3), default=2,
                    help="largest mixture scored as a hypothesis (default 2; 1: pure samples only)")
+    p.add_argument("--workers", type=int, default=None, metavar="N",
+                   help="0 = this process, N = N worker processes (default: $SPECMATCH_WORKERS, "
+                        "else automatic for large batches)")
     p.set_defaults(func=cmd_rank)

@@ -7,6 +7,10 @@ from typing import Any
 
 from ..errors import SpecmatchError
 
+#: ``json.dumps`` with its defaults (same text) minus the circular-reference walk: a row
+#: is a fresh tree of dicts, lists and numbers
+_encode = json.JSONEncoder(check_circular=False).encode
+
 
 def predict_row(line: str, geometry: bool = False) -> dict[str, Any]:
     """The output row of one input line: the prediction, or ``ok: false`` with the reason.
@@ -39,7 +43,7 @@ def predict_line(line: str, geometry: bool = False) -> tuple[str, str, str]:
     """
     row = predict_row(line, geometry)
     status = "ok" if row["ok"] else ("skipped" if row.get("skipped") else "failed")
-    return status, json.dumps(row), row.get("error", "")
+    return status, _encode(row), row.get("error", "")
 
 
 def warm() -> None:

@@ -200,7 +200,12 @@ def _lines(prediction, shifts, f, j_scale, geometric) -> SpinLines:
 
     net = coupling_network(prediction, geometric=geometric)
     n_groups = len(prediction.protons)
-    sim = simulate_spins(net.shifts(shifts), net.j_matrix(j_scale), f)
+    # which couplings are strong, and where large clusters are cut, is decided at the
+    # predicted shifts whatever shifts are drawn: a fit moving the shifts then sees a
+    # continuous spectrum, and a spectrum made at other shifts (the demo generator) is
+    # cut the way the fit cuts it
+    predicted = tuple(float(g.shift) for g in prediction.protons)
+    sim = simulate_spins(net.shifts(shifts), net.j_matrix(j_scale), f, cluster_shifts_ppm=net.shifts(predicted))
     # per-spin derivative -> per-group derivative
     member = np.zeros((net.n_spins, n_groups))
     if net.n_spins:

@@ -410,6 +410,7 @@ def simulate_spins(
     *,
     reduce: bool = True,
     composite: bool = True,
+    cluster_shifts_ppm: Sequence[float] | np.ndarray | None = None,
 ) -> SpinLines:
     """Exact stick spectrum of spin-1/2 nuclei with given shifts and couplings.
 
@@ -429,6 +430,12 @@ def simulate_spins(
     composite : bool
         Treat magnetically equivalent groups as composite particles (``False``:
         every spin on its own, the full product space; same lines, slower).
+    cluster_shifts_ppm : sequence of float, optional
+        Shifts (one per spin) that decide which couplings are strong and where large
+        clusters are cut (default: ``shifts_ppm``). A fit that moves the shifts passes
+        fixed ones (the predicted shifts), so the spectrum is a continuous function of
+        the shifts it moves: with the partition following the moving shifts, a cluster
+        that is cut differently jumps.
 
     Returns
     -------
@@ -453,19 +460,26 @@ def simulate_spins(
     if n == 0:
         return SpinLines(f, np.zeros(0), np.zeros(0), np.zeros((0, 0)))
     nu = delta * f
+    if cluster_shifts_ppm is None:
+        nu_ref = nu
+    else:
+        nu_ref = np.asarray(cluster_shifts_ppm, float).ravel() * f
+        if nu_ref.shape != nu.shape or not np.all(np.isfinite(nu_ref)):
+            raise SpecmatchError(f"cluster_shifts_ppm needs {n} finite shifts, one per spin")
     groups = equivalence_groups(nu, J) if composite else [[i] for i in range(n)]
     G = len(groups)
     size = np.array([len(g) for g in groups])
-    rep = np.array([g[0] for g in groups])
+    rep = np.array([g[0] for g in groups], int)
     nu_g = nu[rep]
+    nu_g_ref = nu_ref[rep]
     J_g = J[np.ix_(rep, rep)].copy()
     np.fill_diagonal(J_g, 0.0)  # couplings inside an equivalent group never show
-    clusters = _clusters(nu_g, J_g, reduce)
+    clusters = _clusters(nu_g_ref, J_g, reduce)
     if not reduce:
         # connected components of the coupling graph only (uncoupled sets are exact apart)
         clusters = _components(J_g)
     if reduce:
-        clusters = [piece for c in clusters for piece in _split(c, nu_g, J_g, size)]
+        clusters = [piece for c in clusters for piece in _split(c, nu_g_ref, J_g, size)]
     where = np.empty(G, int)
     for c, members in enumerate(clusters):
         where[members] = c
@@ -564,7 +578,9 @@ def _split(members: list[int], nu_g: np.ndarray, J_g: np.ndarray, size: np.ndarr
 
     Couplings are removed in order of increasing |J| / |delta-nu| until the cluster
     falls apart; pieces still too large are cut again. What was cut is then treated
-    in the X approximation (an approximation, unlike the rest).
+    in the X approximation (an approximation, unlike the rest). Couplings with the
+    same ratio (symmetry-related pairs) are removed together, so the cut does not
+    depend on the order the spins are numbered in.
     """
     # largest product space among the composite choices: prod(n_g + 1)
     if int(np.prod(size[members] + 1)) <= 2**MAX_CLUSTER_SPINS:
@@ -576,17 +592,25 @@ def _split(members: list[int], nu_g: np.ndarray, J_g: np.ndarray, size: np.ndarr
             if J_g[a, b] != 0.0:
                 d = abs(nu_g[a] - nu_g[b])
                 edges.append((abs(J_g[a, b]) / d if d > 0 else np.inf, a, b))
-    edges.sort()
+    edges.sort(key=lambda e: e[0])
     sub = np.zeros_like(J_g)
     for _, a, b in edges:
         sub[a, b] = sub[b, a] = 1.0
-    for _, a, b in edges:
-        sub[a, b] = sub[b, a] = 0.0
+    i = 0
+    while i < len(edges):
+        # the batch of equal ratios (relative 1e-9: symmetric pairs agree to rounding)
+        r0 = edges[i][0]
+        k = i
+        while k < len(edges) and (edges[k][0] == r0 or abs(edges[k][0] - r0) <= 1e-9 * abs(r0)):
+            _, a, b = edges[k]
+            sub[a, b] = sub[b, a] = 0.0
+            k += 1
+        i = k
         comps = _components(sub[np.ix_(mem, mem)])
         if len(comps) > 1:
             out = []
             for c in comps:
-                out.extend(_split([mem[k] for k in c], nu_g, J_g, size))
+                out.extend(_split([mem[q] for q in c], nu_g, J_g, size))
             return out
     return [[m] for m in mem]
 

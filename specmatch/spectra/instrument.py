@@ -78,9 +78,13 @@ def folder_zip(root: Path) -> bytes:
     import zipfile
 
     limit = safeio.limit("archive")
+    files = folder_files(root)
+    if not files:
+        raise SpecmatchError(f"'{root}' is a folder that holds no files; give the experiment folder "
+                             "with its data, or the spectrum file itself")
     buf = io.BytesIO()
     with zipfile.ZipFile(buf, "w", zipfile.ZIP_DEFLATED) as zf:
-        for f in folder_files(root):
+        for f in files:
             info = zipfile.ZipInfo(f.relative_to(root.parent).as_posix(), date_time=(1980, 1, 1, 0, 0, 0))
             info.compress_type = zipfile.ZIP_DEFLATED
             zf.writestr(info, safeio.read_bytes(f, kind="archive"))

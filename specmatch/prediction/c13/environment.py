@@ -323,35 +323,40 @@ def _pairs(elements: list[str]) -> list[str]:
 
 def _sp3_terms(ctx: _Context, i: int) -> list[str]:
     t = ["sp3:base"]
-    types, dist, nbrs = ctx.types, ctx.dist[i], ctx.nbrs
-    deg_i = ctx.deg[i]
+    add = t.append  # locals: this is the predictor's innermost loop
+    types, dist, nbrs, internal, deg = ctx.types, ctx.dist[i], ctx.nbrs, ctx.internal, ctx.deg
+    deg_i = deg[i]
     for a in nbrs[i]:
-        if ctx.internal[a]:
+        if internal[a]:
             continue
         ta = types[a]
         # alpha increment by how many other heavy substituents the carbon has
         # (0-1: terminal "n" column of the handbook tables, 2-3: internal "iso")
-        t.append(f"sp3:a:{ta}:{deg_i - 1}")
+        add(f"sp3:a:{ta}:{deg_i - 1}")
         if ta == "C":
-            t.append(f"sp3:steric:{deg_i}:{ctx.deg[a]}")
+            add(f"sp3:steric:{deg_i}:{deg[a]}")
         for b in nbrs[a]:
-            if b != i and dist[b] == 2 and not ctx.internal[b]:
-                t.append(f"sp3:b:{ta}>{types[b]}")
-                t.append(f"sp3:b:{ta}>{types[b]}@{deg_i}")
+            if b != i and dist[b] == 2 and not internal[b]:
+                tb = types[b]
+                add(f"sp3:b:{ta}>{tb}")
+                add(f"sp3:b:{ta}>{tb}@{deg_i}")
                 if ta == "C":
-                    t.append(f"sp3:b:C{ctx.deg[a]}>{types[b]}")
-    for j in range(ctx.n):
-        d = dist[j]
-        if d == 3 and not ctx.internal[j]:
-            t.append(f"sp3:g:{types[j]}")
-            t.append(f"sp3:g:{types[j]}@{deg_i}")
+                    add(f"sp3:b:C{deg[a]}>{tb}")
+    all_dist = ctx.dist
+    for j, d in enumerate(dist):
+        if d == 3:
+            if internal[j]:
+                continue
+            tj = types[j]
+            add(f"sp3:g:{tj}")
+            add(f"sp3:g:{tj}@{deg_i}")
             # gamma reached through a heteroatom or an unsaturated atom, not a chain CH2
-            via = [a for a in nbrs[i] if ctx.dist[a][j] == 2]
+            via = [a for a in nbrs[i] if all_dist[a][j] == 2]
             if via and all(types[a] != "C" for a in via):
                 # two paths (a ring): the first type in sort order, not in atom order
-                t.append(f"sp3:g:{types[j]}@via-{min(types[a] for a in via)}")
-        elif d == 4 and not ctx.internal[j]:
-            t.append(f"sp3:d:{HETERO_ELEMENT.get(types[j], 'C')}")
+                add(f"sp3:g:{tj}@via-{min(types[a] for a in via)}")
+        elif d == 4 and not internal[j]:
+            add(f"sp3:d:{HETERO_ELEMENT.get(types[j], 'C')}")
     r = ctx.min_ring(i)
     if r:
         t.append(f"sp3:ring{_ring_bucket(r)}:H{ctx.hs[i]}")
@@ -617,11 +622,11 @@ _KIND_WORD = {"sp3": "sp3", "ene": "alkene", "ar": "benzene ring", "har": "aroma
               "yne": "alkyne", "cn": "nitrile", "allene": "allene centre"}
 
 
-def _label(kind: str, atom_type: str, h: int, terms: list[str]) -> str:
+def _label(kind: str, atom_type: str, h: int, alpha_types: set[str] | None = None) -> str:
+    """The readable environment; ``alpha_types``: the types of an sp3 carbon's alpha
+    substituents (those of its ``sp3:a:`` terms), of which the non-carbon ones are named."""
     what = _KIND_WORD.get(kind) or (f"carbonyl {atom_type}" if kind == "co" else f"{atom_type} (no table)")
-    # alpha substituents other than carbon (only sp3 carbons have sp3:a: terms)
-    alpha = sorted({x.split(":")[2] for x in terms if x.startswith("sp3:a:") and not x.startswith("sp3:a:C:")}) \
-        if kind == "sp3" else ()
+    alpha = sorted(alpha_types - {"C"}) if kind == "sp3" and alpha_types else ()
     extra = f", alpha {'/'.join(alpha)}" if alpha else ""
     return f"{_HNAME[min(h, 4)]} {what}{extra}"
 
@@ -663,6 +668,7 @@ def carbon_environments(mol: Chem.Mol, only: list[int] | None = None, graph: Mol
             kind, terms = "allene", _allene_terms(ctx, i)
         else:
             kind, terms = "other", [f"other:{ty}"]
-        out.append(CarbonEnvironment(i, kind, ty, ctx.hs[i], tuple(terms),
-                                     _label(kind, ty, ctx.hs[i], terms)))
+        # an sp3 carbon's alpha terms name the types of its neighbours outside named groups
+        alpha = {ctx.types[a] for a in ctx.nbrs[i] if not ctx.internal[a]} if kind == "sp3" else None
+        out.append(CarbonEnvironment(i, kind, ty, ctx.hs[i], tuple(terms), _label(kind, ty, ctx.hs[i], alpha)))
     return out

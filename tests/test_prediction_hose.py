@@ -108,3 +108,39 @@ def test_shipped_table_names_its_provenance(nucleus):
         assert e.n >= 1 and e.sd >= 0
     ethyl_ch3 = MolCodes(Chem.MolFromSmiles("CCCC")).codes(0, 1)[0]
     assert table.entry(1, ethyl_ch3).n >= 20
+
+
+def test_codes_know_the_ring_size():
+    # a cyclopropane CH2 and a cyclohexane CH2 have the same first sphere (two ring CH2
+    # neighbours) but shifts some 30 ppm apart: the smallest ring size is in the atom invariants
+    assert codes_of("C1CC1", 0, 1) != codes_of("C1CCCCC1", 0, 1)
+    assert codes_of("C1CCC1", 0, 1) != codes_of("C1CCCC1", 0, 1)
+
+
+def test_codes_tell_fusion_atoms_from_plain_ring_atoms():
+    # the CH of decalin (three ring bonds) and the CH of methylcyclohexane (two ring bonds and
+    # a methyl) have the same element, degree, H count and smallest ring: only the ring-bond
+    # count tells their radius-0 identifiers apart
+    dec = Chem.MolFromSmiles("C1CCC2CCCCC2C1")
+    ch = next(a.GetIdx() for a in dec.GetAtoms() if a.GetTotalNumHs() == 1)
+    assert MolCodes(dec).bits[ch][0] != MolCodes(Chem.MolFromSmiles("CC1CCCCC1")).bits[1][0]
+    # and a spiro atom (four ring bonds) differs from a fusion atom of the same rings
+    spiro, fused = Chem.MolFromSmiles("C1CCC2(CC1)CCCC2"), Chem.MolFromSmiles("CC12CCCCC1CCC2")
+    assert MolCodes(spiro).bits[3][0] != MolCodes(fused).bits[1][0]
+
+
+@pytest.mark.parametrize("smiles", ["C12C3C4C1C5C2C3C45", "C1C2CC3CC1CC(C2)C3", "CC12CC3(Br)CC1(C)CC3(I)C2",
+                                    "C1CC11CC1", "C1CC2CCC1C2"])
+def test_ring_invariants_do_not_depend_on_atom_order(smiles):
+    # cages (cubane, adamantane) and spiro/bridged systems written from shuffled atom orders:
+    # the multiset of per-atom codes is the same
+    import random
+
+    rng = random.Random(7)
+    mol = Chem.MolFromSmiles(smiles)
+    ref = sorted(tuple(MolCodes(mol).codes(a, 5)) for a in range(mol.GetNumAtoms()))
+    for _ in range(10):
+        order = list(range(mol.GetNumAtoms()))
+        rng.shuffle(order)
+        other = Chem.MolFromSmiles(Chem.MolToSmiles(Chem.RenumberAtoms(mol, order), canonical=False))
+        assert sorted(tuple(MolCodes(other).codes(a, 5)) for a in range(other.GetNumAtoms())) == ref

@@ -933,7 +933,8 @@ def _from_peaklist(cands, peaklist, warnings, src) -> MixtureEstimate:
                                             integral=0.0, amount=0.0,
                                             amount_sd=fit.abs_sd / g.count))
     method = ("peak-list fit: multiplet integrals explained by the candidates' proton groups "
-              "(assignment within 3 prediction sigma, non-negative least squares for the amounts)")
+              "(assignment within 5 prediction sigma, shift errors with a shared offset per environment class, "
+              "non-negative least squares for the amounts)")
     unc = ("covariance of the amounts for the best assignment, integrals taken to +-2% (+0.5% of the largest), "
            f"scaled by the reduced chi-square when above 1, plus {100 * MODEL_SD_FLOOR:.1f} percentage points in "
            "quadrature; 95% interval = fraction +- 1.96 sd")
@@ -945,7 +946,8 @@ def _from_peaklist(cands, peaklist, warnings, src) -> MixtureEstimate:
         # is added to the sd (integral_fit.ASSIGNMENT_AVERAGING)
         weights = fit.averaged_fractions * float(fit.weights.sum())
         extra_sd = fit.assignment_sd
-        unc += "; averaged over the plausible assignments (weights exp(-chi2/2)), their spread added in quadrature"
+        unc += ("; the best assignment's fractions, the spread of the other plausible assignments around them "
+                "(weights exp(-chi2/(2T))) added in quadrature")
     if len(fit.confounded) > 1:
         # only the confounded candidates' summed amount is measured: split it evenly and
         # give each the sd of a uniform share of it (the data say nothing inside it)

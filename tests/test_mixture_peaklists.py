@@ -1,0 +1,71 @@
+"""Product ratio from 1H peak lists of a real isomer pair (integrals only, no spectrum).
+
+Data: tests/data/mixture_peaklist_pairs.json, the experimental 1H shifts of 3- and
+2-chlorophenol copied from nmrshiftdb2 (Kuhn & Schlörer, Magn. Reson. Chem. 2015,
+53, 582). The peak list is built as benchmarks/bench_mixture.py builds it: one
+multiplet per listed shift (+-0.015 ppm), integral = fraction x listed protons,
+multiplets of the two compounds closer than 0.03 ppm merged (what a 400 MHz
+spectrum integrates together). The fit works from the PREDICTED shifts.
+
+The two isomers' aromatic protons are predicted close together and off in the
+same direction, so a reading with the two assignments swapped as a whole explains
+the integrals just as well; the shift evidence must decide it (before the shared
+class offsets and the integral-filling starts the 80:20 list read 35:65).
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+
+from specmatch.identification.mixture import estimate_mixture
+from specmatch.identification.mixture.integral_fit import _filling_start
+from specmatch.spectra.types import Multiplet, PeakList
+
+DATA = json.loads((Path(__file__).parent / "data" / "mixture_peaklist_pairs.json").read_text(encoding="utf-8"))
+RECS = {r["smiles"]: r for r in DATA["records"]}
+A, B = "Oc1cccc(Cl)c1", "Oc1ccccc1Cl"  # 3-chlorophenol, 2-chlorophenol
+
+
+def _peaklist(fa: float) -> PeakList:
+    rows = sorted([(s, fa) for s, _ in RECS[A]["h1"]] + [(s, 1.0 - fa) for s, _ in RECS[B]["h1"]])
+    merged: list[list[float]] = []
+    for sh, i in rows:
+        if merged and sh - merged[-1][1] <= 0.03:
+            merged[-1][1] = sh
+            merged[-1][2] += i
+        else:
+            merged.append([sh, sh, i])
+    mults = tuple(Multiplet((lo + hi) / 2, (lo - 0.015, hi + 0.015), i, "m") for lo, hi, i in merged)
+    return PeakList("1H", (), mults, frequency_mhz=400.0, solvent="CDCl3", source="test peak list")
+
+
+@pytest.mark.parametrize("fa", [0.8, 0.9])
+def test_ratio_of_chlorophenols_from_experimental_peak_list(fa):
+    est = estimate_mixture([A, B], peaklist=_peaklist(fa), solvent="CDCl3")
+    assert abs(est.fractions[0] - fa) <= 0.03
+    lo, hi = est.interval_95[0]
+    assert lo <= fa <= hi
+
+
+def test_ratio_does_not_depend_on_how_the_candidates_are_written():
+    pl = _peaklist(0.8)
+    one = estimate_mixture([A, B], peaklist=pl, solvent="CDCl3")
+    other = estimate_mixture(["Clc1cccc(O)c1", "Clc1ccccc1O"], peaklist=pl, solvent="CDCl3")
+    assert other.fractions[0] == pytest.approx(one.fractions[0], abs=1e-9)
+    assert other.uncertainties[0] == pytest.approx(one.uncertainties[0], abs=1e-9)
+
+
+def test_filling_start_follows_the_assumed_ratio():
+    # two candidates, one 1H group each, predicted at the same place; multiplets of
+    # 0.9 and 0.1: at f = 0.9 the first candidate takes the large one, at 0.1 the small one
+    import numpy as np
+
+    options = [[(0, 0.0), (1, 0.0)], [(0, 0.0), (1, 0.0)]]
+    counts, comp = np.array([1.0, 1.0]), np.array([0, 1])
+    I = np.array([0.9, 0.1])
+    s = 0.02 * I + 0.005
+    assert _filling_start(0.9, options, counts, comp, I, s) == [0, 1]
+    assert _filling_start(0.1, options, counts, comp, I, s) == [1, 0]

@@ -95,7 +95,7 @@ def test_three_components_on_request():
 
 
 def test_percentages_for_people():
-    assert percent(0.0) == "<0.1%" and percent(1.0) == ">99.9%" and percent(0.7) == "70.0%"
+    assert percent(0.0) == "<0.1%" and percent(1.0) == ">99.9%" and percent(0.7) == "70%"
 
 
 # --------------------------------------------------------- dict round trip

@@ -68,13 +68,21 @@ ASSIGNMENT_COLUMNS = (
     "atoms", "environment",
 )
 
-def percent(p: float) -> str:
-    """A probability as a percentage for people: "99.8%", "<0.1%", ">99.9%"."""
-    if p < 0.0005:
+def percent(p: float | None) -> str:
+    """A probability or fraction as a percentage for people, the one rule of every output
+    (verdict text, tables, reports, app): whole percent in the middle of the range ("87%"),
+    one decimal near the ends ("0.4%", "99.5%"), "<0.1%" and ">99.9%" rather than 0.0% and
+    100.0% (common practice: no more digits than a calibrated probability carries)."""
+    if p is None or not math.isfinite(float(p)):
+        return ""
+    v = 100.0 * float(p)
+    if v < 0.1:
         return "<0.1%"
-    if p > 0.9995:
+    if v > 99.9:
         return ">99.9%"
-    return f"{100 * p:.1f}%"
+    if v < 1.0 or v > 99.0:
+        return f"{v:.1f}%"
+    return f"{v:.0f}%"
 
 
 def _tuple(x: Any) -> tuple:

@@ -10,6 +10,9 @@ from __future__ import annotations
 
 import math
 
+# one percentage rule for the verdict text (identification) and every report
+from ..identification.ranking import percent
+
 __all__ = ["ppm", "hz", "percent", "sigma", "integral", "PPM_DIGITS"]
 
 #: decimals of a reported shift per nucleus
@@ -30,20 +33,6 @@ def ppm(x: float | None, nucleus: str) -> str:
 def hz(x: float | None) -> str:
     """A coupling constant to 0.1 Hz."""
     return "" if _missing(x) else f"{float(x):.1f}"
-
-
-def percent(p: float | None) -> str:
-    """A probability or fraction as a percentage with sensible rounding."""
-    if _missing(p):
-        return ""
-    v = 100.0 * float(p)
-    if v < 0.1:
-        return "<0.1%"
-    if v > 99.9:
-        return ">99.9%"
-    if v < 1.0 or v > 99.0:
-        return f"{v:.1f}%"
-    return f"{v:.0f}%"
 
 
 def sigma(x: float | None) -> str:

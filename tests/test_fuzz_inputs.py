@@ -126,6 +126,21 @@ def _jcamp_params(path: Path, params: dict) -> None:
     path.write_text("\n".join(lines + ["##END="]) + "\n")
 
 
+def _reads_cleanly_or_refuses(root: Path) -> None:
+    """The boundary rule for an instrument folder: finite spectrum and peaks, or a SpecmatchError."""
+    from specmatch.spectra import peaks_from_file, read_spectrum
+
+    try:
+        sp = read_spectrum(root)
+        assert np.all(np.isfinite(sp.ppm)) and np.all(np.isfinite(sp.intensity))
+        assert sp.frequency_mhz is None or sp.frequency_mhz > 0
+        pl = peaks_from_file(root)
+    except SpecmatchError as exc:
+        assert str(exc)
+        return
+    assert all(math.isfinite(p.shift) for p in pl.peaks)
+
+
 @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(st.dictionaries(st.sampled_from(["SF", "OFFSET", "SW_p", "SI", "NC_proc", "BYTORDP", "DTYPP",
                                         "SFO1", "BF1", "NUC1", "SW_h", "TD", "SOLVENT"]),
@@ -134,8 +149,6 @@ def _jcamp_params(path: Path, params: dict) -> None:
 def test_instrument_folder_parameters_never_crash(tmp_path, override, n_bytes):
     # a processed Bruker-layout folder (invented data) whose parameter values are fuzzed
     import shutil
-
-    from specmatch.spectra import peaks_from_file, read_spectrum
 
     root = tmp_path / "exp"
     shutil.rmtree(root, ignore_errors=True)
@@ -150,15 +163,7 @@ def test_instrument_folder_parameters_never_crash(tmp_path, override, n_bytes):
         (procs if k in procs else acqus)[k] = v
     _jcamp_params(pdata / "procs", procs)
     _jcamp_params(root / "10" / "acqus", acqus)
-    try:
-        sp = read_spectrum(root)
-        assert np.all(np.isfinite(sp.ppm)) and np.all(np.isfinite(sp.intensity))
-        assert sp.frequency_mhz is None or sp.frequency_mhz > 0
-        pl = peaks_from_file(root)
-    except SpecmatchError as exc:
-        assert str(exc)
-        return
-    assert all(math.isfinite(p.shift) for p in pl.peaks)
+    _reads_cleanly_or_refuses(root)
 
 
 def _varian_folder(root: Path, params: dict, n: int = 256) -> None:
@@ -185,8 +190,6 @@ def test_varian_procpar_never_crashes(tmp_path, override, raw_procpar):
     # parameter values fuzzed, or the procpar file replaced by arbitrary bytes
     import shutil
 
-    from specmatch.spectra import peaks_from_file, read_spectrum
-
     root = tmp_path / "exp.fid"
     shutil.rmtree(root, ignore_errors=True)
     params = {"sfrq": 400.13, "sw": 4800.0, "tn": "H1", "rfl": 2000.0, "rfp": 0.0, "rp": 0.0, "lp": 0.0,
@@ -195,15 +198,7 @@ def test_varian_procpar_never_crashes(tmp_path, override, raw_procpar):
     _varian_folder(root, params)
     if raw_procpar is not None:
         (root / "procpar").write_bytes(raw_procpar)
-    try:
-        sp = read_spectrum(root)
-        assert np.all(np.isfinite(sp.ppm)) and np.all(np.isfinite(sp.intensity))
-        assert sp.frequency_mhz is None or sp.frequency_mhz > 0
-        pl = peaks_from_file(root)
-    except SpecmatchError as exc:
-        assert str(exc)
-        return
-    assert all(math.isfinite(p.shift) for p in pl.peaks)
+    _reads_cleanly_or_refuses(root)
 
 
 @pytest.mark.parametrize("override,message", [

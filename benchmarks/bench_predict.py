@@ -16,9 +16,9 @@ Data: nmrshiftdb2, Kuhn & Schlörer, Magn. Reson. Chem. 2015, 53, 582.
 The figures of the batch run are in-sample when the input is the development
 file (the tables were fitted on it). ``--cv`` adds the cross-validated figures
 that predict held-out data: 5 folds grouped by InChIKey block, 13C increment
-tables refitted and the environment-code tables rebuilt without the fold (the
-machinery of ``benchmarks/fit_hose.py``, with the shrinkage and radius of the
-shipped tables), overall and per class of carbon (CH3/CH2/CH/C, sp3/sp2/sp,
+tables refitted, the 13C neighbour layer refitted and the environment-code tables
+rebuilt without the fold (the machinery of ``benchmarks/fit_hose.py``, with the
+shrinkage and radius of the shipped tables and the layer's penalty), overall and per class of carbon (CH3/CH2/CH/C, sp3/sp2/sp,
 alpha O / alpha halogen, ring size). ``--cache FILE`` reuses fit_hose's pickle.
 """
 
@@ -156,7 +156,7 @@ def cross_validated(a) -> None:
 
     sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
     import fit_hose as fh
-    from specmatch.prediction.hose import load_table
+    from specmatch.prediction.hose import load_layer, load_table
 
     t0 = time.perf_counter()
     if a.cache and os.path.exists(a.cache):
@@ -166,6 +166,15 @@ def cross_validated(a) -> None:
     else:
         c13, h1 = fh.load(a.data, a.limit)
         oof = fh.oof_increment_shifts(a.data, c13, a.limit)
+    fh.add_features(c13)
+    layer = None
+    shipped = load_layer("13C")
+    if shipped is not None:
+        # the shipped layer's settings, read from its provenance line
+        import re
+
+        got = re.search(r"ridge penalty (\S+) per weight, features seen on >= (\d+) signals", shipped.provenance)
+        layer = (float(got.group(1)), int(got.group(2))) if got else (10.0, 3)
     print(f"\ncross-validated ({fh.FOLDS} folds grouped by InChIKey block; 13C increments refitted out of fold, "
           f"code tables rebuilt out of fold; {time.perf_counter() - t0:.0f} s to load)")
     for nucleus, recs in (("13C", c13), ("1H", h1)):
@@ -176,9 +185,10 @@ def cross_validated(a) -> None:
         base = {"core": [], "wide": []}
         resid_of = (lambda r: fh.residuals_c13(r)[0]) if nucleus == "13C" else (lambda r: fh.residuals_h1(r)[0])
         for f in range(fh.FOLDS):
-            fold_recs = [fh.with_shifts(r, oof[(f, r["smiles"])]) for r in recs] if nucleus == "13C" else recs
-            stats = fh.finish(fh.build([r for r in fold_recs if r["fold"] != f], nucleus, resid_of), 1)
-            for rec in (r for r in fold_recs if r["fold"] == f):
+            # 13C: increments refitted and the neighbour layer fitted without the fold
+            train, test = fh.fold_split(recs, f, oof, layer) if nucleus == "13C" else fh.fold_split(recs, f)
+            stats = fh.finish(fh.build(train, nucleus, resid_of), 1)
+            for rec in test:
                 shifts, _ = fh.corrected(rec["signals"], stats, k, radius)
                 for which, sh in ((scope, shifts), (base, [s[1] for s in rec["signals"]])):
                     if nucleus == "13C":
@@ -200,7 +210,8 @@ def cross_validated(a) -> None:
                             per_class.setdefault(c, []).append(abs(p - o))
         fmt = ".2f" if nucleus == "13C" else ".3f"
         print(f"{nucleus}: MAE core {np.mean(scope['core']):{fmt}} ({len(scope['core'])} signals), wide "
-              f"{np.mean(scope['wide']):{fmt}} ({len(scope['wide'])}); increments alone core "
+              f"{np.mean(scope['wide']):{fmt}} ({len(scope['wide'])}); increments"
+              f"{' + neighbour layer' if nucleus == '13C' and layer else ''} alone core "
               f"{np.mean(base['core']):{fmt}}, wide {np.mean(base['wide']):{fmt}} (k={k:g}, radius<={radius})")
         for c in sorted(per_class, key=lambda c: -len(per_class[c])):
             v = per_class[c]

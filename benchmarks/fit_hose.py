@@ -1,7 +1,7 @@
 #!/usr/bin/env python3
 """Fit the HOSE-code correction tables on the nmrshiftdb2 development part.
 
-    python benchmarks/fit_hose.py ../shared/reference/nmrshiftdb2_dev.jsonl [--write]
+    python benchmarks/fit_hose.py ../shared/reference/nmrshiftdb2_dev.jsonl --k 2,8 --radii 5 --min-n 1 [--write]
 
 What it does
 ------------
@@ -20,9 +20,16 @@ What it does
   of fold). The shrinkage k, the largest radius and the minimum count are chosen
   by this cross-validation, and the sigma scale so that 68 % of out-of-fold
   errors fall within one sigma.
+* 13C neighbour layer (before the code table): a ridge regression of the
+  increment residual on the codes of the atoms at distance 1-3
+  (``hose.neighbour_features``), fitted per fold on the training records (with
+  their out-of-fold increments); the code table of the fold is then built on what
+  the layer leaves. The layer applies only to carbons whose first-sphere code the
+  training data has (as the predictor does). ``--layer-lambda 0`` turns it off.
 * ``--write`` builds the tables from all records with the shipped increment
-  tables and writes ``specmatch/prediction/tables/hose_c13.csv.gz`` and
-  ``hose_h1.csv.gz`` with a provenance header.
+  tables and writes ``specmatch/prediction/tables/layer_c13.csv.gz`` (weights
+  from all records, and without each fold for cross-validated mode),
+  ``hose_c13.csv.gz`` and ``hose_h1.csv.gz`` with a provenance header.
 
 Data: nmrshiftdb2 (Kuhn & Schlörer, Magn. Reson. Chem. 2015, 53, 582).
 """
@@ -32,12 +39,14 @@ from __future__ import annotations
 import argparse
 import datetime as _dt
 import json
+import math
 import os
 import sys
 import time
 from collections import defaultdict
 
 import numpy as np
+from rdkit import Chem
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 sys.path.insert(0, ROOT)
@@ -46,9 +55,10 @@ sys.path.insert(0, os.path.join(ROOT, "benchmarks"))
 from specmatch.errors import SpecmatchError  # noqa: E402
 from specmatch.prediction.c13.predictor import predict_carbons  # noqa: E402
 from specmatch.prediction.h1.predictor import predict_protons  # noqa: E402
-from specmatch.prediction.hose import (TABLE_DIR, MolCodes, environment_smiles, fold_of_block, rank_tags,  # noqa: E402
-                                       write_table)
+from specmatch.prediction.hose import (TABLE_DIR, MolCodes, environment_smiles, fold_of_block,  # noqa: E402
+                                       neighbour_features, rank_tags, write_layer, write_table)
 from specmatch.structures import parse_structure  # noqa: E402
+from specmatch.structures.graph import graph_of  # noqa: E402
 
 H_OF = {"S": 0, "D": 1, "T": 2, "Q": 3}
 CLIP = {"13C": 10.0, "1H": 1.0}
@@ -118,10 +128,12 @@ def load(path: str, limit: int = 0):
             spec = max(rec["c13"], key=len)
             if len(spec) == sum(1 for a in m.GetAtoms() if a.GetSymbol() == "C"):
                 carbons, _ = predict_carbons(st, correction=False)
+                dist = graph_of(st).dist
                 sig = []
                 for c, tag in zip(carbons, rank_tags([cls[c.atoms[0]] for c in carbons], [c.shift for c in carbons])):
                     cs = [x + tag for x in codes.codes(c.atoms[0], RADII)]
-                    sig.append((c.atoms, c.shift, c.sigma, c.hydrogens, cs, c.atoms[0]))
+                    sig.append((c.atoms, c.shift, c.sigma, c.hydrogens, cs, c.atoms[0],
+                                neighbour_features(codes.bits, dist[c.atoms[0]])))
                 obs = [(float(s), H_OF.get(letter, -1)) for s, letter, _ in spec]
                 c13.append({"block": block, "fold": fold_of(block), "core": core, "signals": sig,
                             "obs": obs, "smiles": rec["smiles"]})
@@ -320,18 +332,89 @@ def with_shifts(rec, shifts):
     return {**rec, "signals": [(sg[0], s, *sg[2:]) for sg, s in zip(rec["signals"], shifts)]}
 
 
-def cross_validate(recs, nucleus, grid, oof=None):
-    """Out-of-fold errors for every (k, radius, min_n) of the grid, and the increments alone."""
+# ------------------------------------------------------------------ 13C neighbour layer
+def add_features(c13) -> None:
+    """Neighbour-layer features for records of an older cache that lack them (in place)."""
+    for rec in c13:
+        if rec["signals"] and len(rec["signals"][0]) < 7:
+            st = parse_structure(rec["smiles"])
+            bits, dist = MolCodes(st.mol).bits, graph_of(st).dist
+            rec["signals"] = [(*sg[:6], neighbour_features(bits, dist[sg[5]])) for sg in rec["signals"]]
+
+
+def fit_layer(recs, lam: float, min_n: int) -> tuple[dict[str, float], dict[str, int]]:
+    """Ridge regression of the clipped increment residual of each 13C signal on its
+    neighbour features (``hose.neighbour_features``): feature -> weight (ppm), count.
+
+    Features seen on fewer than ``min_n`` signals are left out (their weight would
+    be the noise of a handful of carbons); the penalty ``lam`` is the same for every
+    weight, so a feature's weight is at most n / (n + lam) of its mean residual.
+    Solved by LSQR (Paige & Saunders, ACM TOMS 1982, 8, 43) with damping.
+    """
+    import scipy.sparse as sparse
+    from scipy.sparse.linalg import lsqr
+
+    clip = CLIP["13C"]
+    count: dict[str, int] = defaultdict(int)
+    for rec in recs:
+        for sg in rec["signals"]:
+            for x in set(sg[6]):
+                count[x] += 1
+    index = {x: j for j, x in enumerate(sorted(x for x, n in count.items() if n >= min_n))}
+    rows, cols, y = [], [], []
+    for rec in recs:
+        res = residuals_c13(rec)[0]
+        for k, sg in enumerate(rec["signals"]):
+            r = res.get(k, float("nan"))
+            if not np.isfinite(r):
+                continue
+            i = len(y)
+            y.append(max(-clip, min(clip, r)))
+            for x in sg[6]:
+                j = index.get(x)
+                if j is not None:
+                    rows.append(i)
+                    cols.append(j)
+    X = sparse.csr_matrix((np.ones(len(rows)), (rows, cols)), shape=(len(y), len(index)))
+    # damping d minimises |Xw - y|^2 + d^2 |w|^2: d^2 = lam
+    w = lsqr(X, np.array(y), damp=lam ** 0.5, atol=1e-7, btol=1e-7, iter_lim=1000)[0]
+    return {x: float(w[j]) for x, j in index.items()}, {x: count[x] for x in index}
+
+
+def with_layer(rec, weights: dict[str, float], known: set[str] | None = None):
+    """The record with the layer's shift added to each signal's increment prediction;
+    with ``known`` (the first-sphere codes of the training data) only on signals whose
+    first-sphere code is known, as the predictor does."""
+    get = weights.get
+    return with_shifts(rec, [sg[1] + math.fsum(get(x, 0.0) for x in sg[6])
+                             if known is None or sg[4][0] in known else sg[1] for sg in rec["signals"]])
+
+
+def fold_split(recs, f: int, oof=None, layer=None):
+    """Training and test records of fold f: out-of-fold 13C increments if given, then the
+    neighbour layer ``layer = (lam, min_n)`` fitted on the training records alone."""
+    fold_recs = [with_shifts(r, oof[(f, r["smiles"])]) for r in recs] if oof is not None else recs
+    train = [r for r in fold_recs if r["fold"] != f]
+    test = [r for r in fold_recs if r["fold"] == f]
+    if layer is not None:
+        weights, _ = fit_layer(train, *layer)
+        known = {sg[4][0] for r in train for sg in r["signals"]}
+        train = [with_layer(r, weights) for r in train]
+        test = [with_layer(r, weights, known) for r in test]
+    return train, test
+
+
+def cross_validate(recs, nucleus, grid, oof=None, layer=None):
+    """Out-of-fold errors for every (k, radius, min_n) of the grid, and the increments
+    (plus the neighbour layer if given) alone."""
     resid_of = (lambda r: residuals_c13(r)[0]) if nucleus == "13C" else (lambda r: residuals_h1(r)[0])
     results = {g: ({"core": [], "wide": []}, []) for g in grid}
     base = ({"core": [], "wide": []}, [])
     for f in range(FOLDS):
-        if oof is not None:
-            fold_recs = [with_shifts(r, oof[(f, r["smiles"])]) for r in recs]
-        else:
-            fold_recs = recs
-        train = [r for r in fold_recs if r["fold"] != f]
-        test = [r for r in fold_recs if r["fold"] == f]
+        t0 = time.perf_counter()
+        train, test = fold_split(recs, f, oof, layer)
+        if layer is not None:
+            print(f"  neighbour layer fitted without fold {f} ({time.perf_counter() - t0:.0f} s)", flush=True)
         stats = build(train, nucleus, resid_of)
         e, z = errors_of(test, nucleus, lambda r: ([s[1] for s in r["signals"]], [s[2] for s in r["signals"]]))
         for s in ("core", "wide"):
@@ -358,6 +441,51 @@ def mae(x) -> float:
     return float(np.mean(x)) if len(x) else float("nan")
 
 
+def write_neighbour_layer(recs, layer, chosen, today: str):
+    """Fit the neighbour layer on all records and without each fold, write
+    ``tables/layer_c13.csv.gz``; return the records with the full layer applied."""
+    lam, min_n = layer
+    weights, count = fit_layer(recs, lam, min_n)
+    by_fold = [fit_layer([r for r in recs if r["fold"] != f], lam, min_n)[0] for f in range(FOLDS)]
+    # example: the environment of the first atom carrying the feature (radius 0: the atom alone)
+    example: dict[str, str] = {}
+    for rec in recs:
+        if len(example) == len(weights):
+            break
+        todo = [x for sg in rec["signals"] for x in sg[6] if x in weights and x not in example]
+        if not todo:
+            continue
+        st = parse_structure(rec["smiles"])
+        bits, dist = MolCodes(st.mol).bits, graph_of(st).dist
+        for sg in rec["signals"]:
+            for a, d in enumerate(dist[sg[5]]):
+                for r in ((0, 1, 2) if d == 1 else (0, 1)):
+                    x = f"{d}:{r}:{bits[a][r]:x}"
+                    if x in weights and x not in example:
+                        example[x] = (environment_smiles(st.mol, a, r) if r else
+                                      Chem.MolFragmentToSmiles(st.mol, [a], isomericSmiles=False))
+    rows = [(x, count[x], weights[x], [bf.get(x, 0.0) for bf in by_fold], example.get(x, ""))
+            for x in sorted(weights)]
+    (k, radius, _), _, cv_core, cv_wide = chosen
+    prov = ["13C neighbour layer: ridge regression of the increment residual on the atoms at topological "
+            "distance 1-3 (feature d:r:code = distance, radius 0 or 1 (also 2 at distance 1), the code of that atom as in "
+            "hose_c13.csv.gz); only on carbons whose first-sphere code is in hose_c13.csv.gz",
+            f"fitted on the nmrshiftdb2 development part (../shared/reference/nmrshiftdb2_dev.jsonl; "
+            f"Kuhn & Schlörer, Magn. Reson. Chem. 2015, 53, 582), {len(recs)} records, {today}",
+            f"residuals measured minus increment prediction (specbench pairing), clipped at +-{CLIP['13C']:g} ppm; "
+            f"ridge penalty {lam:g} per weight, features seen on >= {min_n} signals; solved by LSQR",
+            f"chosen by 5-fold cross-validation grouped by InChIKey block, with the code table on top "
+            f"(k {k:g}, radius <= {radius}): MAE core {cv_core:.3f}, wide {cv_wide:.3f} ppm",
+            "by_fold: the weights of the layer fitted without each development fold (md5 of the InChIKey block "
+            "mod 5), used with SPECMATCH_CROSS_VALIDATED=1",
+            "rebuilt by: python benchmarks/fit_hose.py ../shared/reference/nmrshiftdb2_dev.jsonl --k 2,8 --radii 5 "
+            "--min-n 1 --write"]
+    write_layer(TABLE_DIR / "layer_c13.csv.gz", rows, prov)
+    print(f"wrote layer_c13.csv.gz: {len(rows)} features, max |weight| {max(abs(w) for w in weights.values()):.2f} ppm, "
+          f"{os.path.getsize(TABLE_DIR / 'layer_c13.csv.gz') / 1e6:.2f} MB", flush=True)
+    return [with_layer(r, weights) for r in recs]
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("data", help="nmrshiftdb2 development part (JSON lines)")
@@ -369,6 +497,9 @@ def main() -> None:
     ap.add_argument("--cache", help="pickle of the loaded records and out-of-fold increments (reused if present)")
     ap.add_argument("--no-oof-increments", action="store_true",
                     help="13C: use the shipped increments in every fold (faster, optimistic)")
+    ap.add_argument("--layer-lambda", type=float, default=10.0,
+                    help="13C neighbour layer: ridge penalty (0: no layer)")
+    ap.add_argument("--layer-min-n", type=int, default=3, help="13C neighbour layer: minimum feature count")
     a = ap.parse_args()
     t0 = time.perf_counter()
     print(f"data: {a.data} (nmrshiftdb2, Kuhn & Schlörer, Magn. Reson. Chem. 2015, 53, 582)"
@@ -380,6 +511,8 @@ def main() -> None:
         with open(a.cache, "rb") as fh:
             cached = pickle.load(fh)
     c13, h1 = cached["records"] if cached else load(a.data, a.limit)
+    add_features(c13)
+    layer = (a.layer_lambda, a.layer_min_n) if a.layer_lambda > 0 else None
     print(f"records: 13C {len(c13)}, 1H {len(h1)}; codes radius 1..{RADII}; {FOLDS} folds by InChIKey block "
           f"({time.perf_counter() - t0:.0f} s)", flush=True)
     grid = [(float(k), int(r), int(m)) for k in a.k.split(",") for r in a.radii.split(",")
@@ -392,12 +525,14 @@ def main() -> None:
             if a.cache and not cached:
                 with open(a.cache, "wb") as fh:
                     pickle.dump({"records": (c13, h1), "oof": oof}, fh)
-        base, results = cross_validate(recs, nucleus, grid, oof)
+        lay = layer if nucleus == "13C" else None
+        base, results = cross_validate(recs, nucleus, grid, oof, lay)
         unit = "ppm"
         fmt = ".2f" if nucleus == "13C" else ".3f"
         print(f"\n{nucleus} cross-validated MAE ({unit}), {FOLDS} folds grouped by InChIKey block"
-              f"{' (increments refitted out of fold)' if oof is not None else ' (shipped increments)'}:")
-        print(f"  increments only: core {mae(base[0]['core']):{fmt}} ({len(base[0]['core'])} signals), "
+              f"{' (increments refitted out of fold)' if oof is not None else ' (shipped increments)'}"
+              f"{f'; neighbour layer lambda {lay[0]:g}, features seen >= {lay[1]} times' if lay else ''}:")
+        print(f"  increments{' + layer' if lay else ''} only: core {mae(base[0]['core']):{fmt}} ({len(base[0]['core'])} signals), "
               f"wide {mae(base[0]['wide']):{fmt}} ({len(base[0]['wide'])})")
         best = min(grid, key=lambda g: mae(results[g][0]["wide"]) + mae(results[g][0]["core"]))
         for g in grid:
@@ -414,6 +549,8 @@ def main() -> None:
         for nucleus, recs in (("13C", c13), ("1H", h1)):
             (k, radius, min_n), scale, cv_core, cv_wide = chosen[nucleus]
             resid_of = (lambda r: residuals_c13(r)[0]) if nucleus == "13C" else (lambda r: residuals_h1(r)[0])
+            if nucleus == "13C" and layer is not None:
+                recs = write_neighbour_layer(recs, layer, chosen[nucleus], today)
             stats = build(recs, nucleus, resid_of, by_fold=True)
             table = finish(stats, min_n)
             example = examples(recs, {key for key in table if key[0] <= radius})
@@ -427,14 +564,16 @@ def main() -> None:
                     "codes: RDKit Morgan atom-environment identifiers of radius 1..R in hex (Morgan, J. Chem. Doc. "
                     "1965, 5, 107; Rogers & Hahn, J. Chem. Inf. Model. 2010, 50, 742), '|0'/'|1' = rank tag; "
                     "example = the environment of the first atom seen with the code, as a SMILES fragment",
-                    "rows: residual (measured minus increment prediction, specbench pairing) per code: count, "
+                    "rows: residual (measured minus increment prediction" +
+                    (" plus the neighbour layer, layer_c13.csv.gz" if nucleus == "13C" and layer else "") +
+                    ", specbench pairing) per code: count, "
                     f"mean, sd; residuals clipped at +-{CLIP[nucleus]:g} ppm; codes seen >= {min_n} times",
                     f"chosen by 5-fold cross-validation grouped by InChIKey block: MAE core {cv_core:.3f}, "
                     f"wide {cv_wide:.3f} ppm",
                     "by_fold: the same statistics per development fold (md5 of the InChIKey block mod 5), "
                     "used with SPECMATCH_CROSS_VALIDATED=1 to correct development molecules out of fold",
                     "rebuilt by: python benchmarks/fit_hose.py "
-                    "../shared/reference/nmrshiftdb2_dev.jsonl --write"]
+                    "../shared/reference/nmrshiftdb2_dev.jsonl --k 2,8 --radii 5 --min-n 1 --write"]
             write_table(TABLE_DIR / name, rows, prov, k, radius, scale)
             size = os.path.getsize(TABLE_DIR / name)
             print(f"wrote {name}: {len(rows)} codes, {size / 1e6:.2f} MB")

@@ -5,7 +5,8 @@ from __future__ import annotations
 import pytest
 from rdkit import Chem
 
-from specmatch.prediction.hose import HoseEntry, HoseTable, MolCodes, environment_smiles, load_table, rank_tags
+from specmatch.prediction.hose import (HoseEntry, HoseTable, MolCodes, NeighbourLayer, environment_smiles, load_layer,
+                                       load_table, neighbour_features, rank_tags)
 
 
 def codes_of(smiles: str, atom: int, radius: int = 3) -> list[str]:
@@ -144,3 +145,62 @@ def test_ring_invariants_do_not_depend_on_atom_order(smiles):
         rng.shuffle(order)
         other = Chem.MolFromSmiles(Chem.MolToSmiles(Chem.RenumberAtoms(mol, order), canonical=False))
         assert sorted(tuple(MolCodes(other).codes(a, 5)) for a in range(other.GetNumAtoms())) == ref
+
+
+# ------------------------------------------------------------------ neighbour layer
+def test_neighbour_features_list_the_atoms_around_by_distance():
+    mol = Chem.MolFromSmiles("CC(O)CCl")
+    bits = MolCodes(mol).bits
+    dist = Chem.GetDistanceMatrix(mol).astype(int).tolist()
+    feats = neighbour_features(bits, dist[0])
+    # atoms 1 (distance 1), 2 and 3 (distance 2), 4 (distance 3): radius 0 and 1 each,
+    # radius 2 for the direct neighbour
+    assert len(feats) == 2 * 4 + 1
+    assert sorted(int(f.split(":")[0]) for f in feats) == [1, 1, 1, 2, 2, 2, 2, 3, 3]
+    assert f"1:0:{bits[1][0]:x}" in feats and f"3:1:{bits[4][1]:x}" in feats
+
+
+def test_neighbour_features_do_not_depend_on_atom_order():
+    def feats(smiles):
+        mol = Chem.MolFromSmiles(smiles)
+        bits = MolCodes(mol).bits
+        dist = Chem.GetDistanceMatrix(mol).astype(int).tolist()
+        cl = next(a.GetIdx() for a in mol.GetAtoms() if a.GetSymbol() == "Cl")
+        carbon = next(a.GetNeighbors()[0].GetIdx() for a in mol.GetAtoms() if a.GetSymbol() == "Cl")
+        return sorted(neighbour_features(bits, dist[carbon])), cl
+
+    assert feats("ClCC(O)CC")[0] == feats("CCC(O)CCl")[0]
+
+
+def test_layer_sums_weights_and_leaves_a_fold_out():
+    layer = NeighbourLayer({"1:0:a": "5,0.5000,0.4;0.5;0.6;0.5;0.5,C", "2:1:b": "3,-0.2000,0;0;-0.3;0;0,CC"},
+                           provenance="test")
+    assert layer.shift(["1:0:a", "1:0:a", "2:1:b", "9:9:unknown"]) == pytest.approx(0.8)
+    assert layer.shift(["1:0:a", "2:1:b"], exclude_fold=2) == pytest.approx(0.3)
+    assert layer.weight("9:9:unknown", exclude_fold=1) == 0.0
+
+
+def test_shipped_layer_names_its_provenance_and_keeps_weights_small():
+    layer = load_layer("13C")
+    assert layer is not None and len(layer.rows) > 1000
+    assert "nmrshiftdb2" in layer.provenance and "fit_hose.py" in layer.provenance
+    assert "cross-validation" in layer.provenance
+    weights = [layer.weight(f) for f in layer.rows]
+    # ridge-shrunk: no single neighbour carries a large shift of its own
+    assert max(abs(w) for w in weights) < 10.0
+    assert all(len(v.split(",")[2].split(";")) == 5 for v in list(layer.rows.values())[:500])
+    assert load_layer("1H") is None  # the 1H data is too small for a layer (cross-validated: worse)
+
+
+def test_layer_skips_a_carbon_whose_first_sphere_is_unknown():
+    # cyclopropane's CH2 (two ring-3 CH2 neighbours) is not in the development data: the
+    # increments stand, the layer learned on substituted cyclopropanes does not apply
+    from specmatch.prediction.c13.predictor import predict_carbons
+    from specmatch.structures import parse_structure
+
+    st = parse_structure("C1CC1")
+    table = load_table("13C")
+    assert table.entry(1, MolCodes(st.mol).codes(0, 1)[0]) is None
+    full, _ = predict_carbons(st)
+    bare, _ = predict_carbons(st, correction=False)
+    assert full[0].shift == bare[0].shift

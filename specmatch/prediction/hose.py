@@ -21,12 +21,22 @@ barely does, an unknown one stops the walk and the increments stand. The
 variance is shrunk the same way from the increment sigma, so rare environments
 keep the wide increment sigma.
 
+Neighbour layer. Before the code table, a 13C prediction adds a linear layer
+(``tables/layer_c13.csv.gz``, ridge regression fitted by the same script): one
+weight per code of the atoms at distance 1 to 3 (:func:`neighbour_features`).
+The code table knows a neighbourhood only as a whole; the layer learns the
+pieces, so a carbon whose whole environment is new still gets the part of the
+correction its neighbours explain. It applies only to carbons whose first-sphere
+code is in the table (the weights were learned there); the code table is fitted
+on the residual the layer leaves.
+
 Cross-validated mode. Each row also keeps its statistics per development fold
 (5 folds by InChIKey connectivity block, the folds of the fitting scripts). With
 the environment variable ``SPECMATCH_CROSS_VALIDATED=1`` a molecule is corrected
 with the table minus its own fold's contribution, so fitting the identification
 error model or benchmarking on the development data sees out-of-fold errors
-rather than the table's memory of those very molecules. Users never need it.
+rather than the table's memory of those very molecules (the layer keeps its
+weights fitted without each fold for the same purpose). Users never need it.
 """
 
 from __future__ import annotations
@@ -323,3 +333,103 @@ def load_table(nucleus: str) -> HoseTable | None:
     if not path.exists():
         return None
     return read_table(path)
+
+
+# ------------------------------------------------------------------ neighbour layer
+#: topological distances whose atoms describe a carbon in the neighbour layer
+LAYER_DISTANCE = 3
+
+
+def neighbour_features(bits: list[list[int]], dist_row: list[int]) -> list[str]:
+    """Features of one atom for the neighbour layer: for every atom at distance 1 to
+    ``LAYER_DISTANCE``, ``"d:r:code"`` with that atom's code of radius 0 and 1, and
+    of radius 2 for the direct neighbours.
+
+    The environment code of the centre says "this exact neighbourhood"; an unseen
+    combination of known substituents gets no correction from it. These features
+    describe the same neighbourhood piece by piece (which atom types sit at which
+    distance), so a linear model on them generalises across combinations, as the
+    increments do, while learning what the increments miss.
+
+    Parameters
+    ----------
+    bits : list of list of int
+        :attr:`MolCodes.bits` of the molecule.
+    dist_row : list of int
+        Topological distances from the centre atom to every atom.
+    """
+    out = []
+    for a, d in enumerate(dist_row):
+        if 1 <= d <= LAYER_DISTANCE:
+            row = bits[a]
+            out.append(f"{d}:0:{row[0]:x}")
+            out.append(f"{d}:1:{row[1]:x}")
+            if d == 1:  # cross-validated: 0.01 ppm wide, nothing from radius 0 at distance 4
+                out.append(f"1:2:{row[2]:x}")
+    return out
+
+
+@dataclass(frozen=True)
+class NeighbourLayer:
+    """Fitted weights of the neighbour layer (ridge regression of the increment residual
+    on :func:`neighbour_features`), added to the increment sum before the code table.
+
+    Attributes
+    ----------
+    rows : dict
+        feature -> ``"n,weight,by_fold"``, the file's own text, parsed on lookup.
+    provenance : str
+    """
+
+    rows: dict[str, str]
+    provenance: str
+    _parsed: dict[str, tuple[float, ...]] = field(default_factory=dict, compare=False, repr=False)
+
+    def weight(self, feature: str, exclude_fold: int | None = None) -> float:
+        """The weight (ppm) of one feature, 0 if unknown; with ``exclude_fold`` the weight
+        of the layer fitted without that development fold."""
+        got = self._parsed.get(feature)
+        if got is None:
+            v = self.rows.get(feature)
+            if v is None:
+                return 0.0
+            _, w, folds = v.split(",")[:3]
+            got = self._parsed[feature] = (float(w), *(float(x) for x in folds.split(";")))
+        return got[0] if exclude_fold is None else got[1 + exclude_fold]
+
+    def shift(self, features: Iterable[str], exclude_fold: int | None = None) -> float:
+        """Sum of the weights of an atom's features (ppm), exactly rounded."""
+        return math.fsum(self.weight(f, exclude_fold) for f in features)
+
+
+_LAYER_ROW = re.compile(r'^([0-9a-f:]+),(.*)$', re.M)
+
+
+def read_layer(path: Path) -> NeighbourLayer:
+    """Read a neighbour-layer file (gzip CSV with ``#`` provenance lines, see :func:`write_layer`)."""
+    with gzip.open(path, "rt", encoding="utf-8", newline="") as fh:
+        text = fh.read()
+    head = [line[1:].strip() for line in text[: text.find("\nfeature,")].splitlines()]
+    return NeighbourLayer(dict(_LAYER_ROW.findall(text)), "\n".join(head))
+
+
+def write_layer(path: Path, rows: list[tuple[str, int, float, list[float], str]], provenance: list[str]) -> None:
+    """Write a neighbour layer: provenance lines, then feature, count, weight, the weights of
+    the layers fitted without each development fold (joined by ``;``) and an example
+    environment of the feature's atom (SMILES fragment, no commas)."""
+    with gzip.GzipFile(path, "wb", mtime=0) as raw:
+        with io.TextIOWrapper(raw, encoding="utf-8", newline="") as fh:
+            for line in provenance:
+                fh.write(f"# {line}\n")
+            fh.write("feature,n,weight_ppm,by_fold,example\n")
+            for feat, n, w, folds, example in rows:
+                fh.write(f"{feat},{n},{w:.4f},{';'.join(f'{x:.4f}' for x in folds)},{example}\n")
+
+
+@lru_cache(maxsize=2)
+def load_layer(nucleus: str) -> NeighbourLayer | None:
+    """The shipped neighbour layer for a nucleus (only "13C" has one), None if absent."""
+    path = TABLE_DIR / ("layer_c13.csv.gz" if nucleus == "13C" else "layer_h1.csv.gz")
+    if not path.exists():
+        return None
+    return read_layer(path)

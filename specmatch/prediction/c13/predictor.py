@@ -18,7 +18,7 @@ from dataclasses import replace
 from ...structures import Structure
 from ...structures.graph import MolGraph, graph_of
 from ...structures.molecule import DEUTERIUM_PROP, deuterium_counts
-from ..hose import MolCodes, fold_of_mol, load_table, rank_tags
+from ..hose import MolCodes, fold_of_mol, load_layer, load_table, neighbour_features, rank_tags
 from ..types import CarbonShift
 from .environment import carbon_environments, is_correction, nearest_term
 from .tables import SIGMA as _SIGMA, SUPPORT as _SUPPORT, TABLES_VERSION, VALUE as _VALUE
@@ -142,9 +142,10 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
     ----------
     structure : Structure
     correction : bool
-        Add the environment-code correction (``tables/hose_c13.csv.gz``) to the
-        increment sum; False gives the increments alone (what the correction
-        table is fitted on).
+        Add the neighbour layer (``tables/layer_c13.csv.gz``) and the
+        environment-code correction (``tables/hose_c13.csv.gz``) to the
+        increment sum; False gives the increments alone (what the layer is
+        fitted on).
     codes : MolCodes, optional
         Code builder of this molecule, if the caller already has one.
 
@@ -207,16 +208,23 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
             out.append([atoms, shift, sigma, env.hydrogens, env.label, fallback])
             kinds.append(env.kind)
     table = load_table("13C") if correction else None
+    layer = load_layer("13C") if correction else None
     if table is not None and out:
         codes = codes or MolCodes(mol)
         cls = structure.symmetry_classes
         fold = fold_of_mol(structure.mol)  # None unless SPECMATCH_CROSS_VALIDATED=1
         tags = rank_tags([cls[c[0][0]] for c in out], [c[1] for c in out])
+        dist = g.dist if layer is not None else None
         for c, kind, tag in zip(out, kinds, tags):
             if kind == "other":
                 continue
-            own = codes.iter_codes(c[0][0], table.max_radius)
-            corr, sigma, depth = table.correct([x + tag for x in own] if tag else own, c[2], fold)
+            own = [x + tag for x in codes.iter_codes(c[0][0], table.max_radius)]
+            # the neighbour layer first (the code table was fitted on what it leaves), and
+            # only on a carbon whose first sphere the data has seen: its weights were
+            # learned there, an unseen first sphere keeps the increments
+            if layer is not None and own and table.entry(1, own[0], fold) is not None:
+                c[1] += layer.shift(neighbour_features(codes.bits, dist[c[0][0]]), fold)
+            corr, sigma, depth = table.correct(own, c[2], fold)
             if depth:
                 c[1] += corr
                 c[2] = sigma

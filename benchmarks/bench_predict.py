@@ -175,8 +175,8 @@ def cross_validated(a) -> None:
 
         got = re.search(r"ridge penalty (\S+) per weight, features seen on >= (\d+) signals", shipped.provenance)
         layer = (float(got.group(1)), int(got.group(2))) if got else (10.0, 3)
-    print(f"\ncross-validated ({fh.FOLDS} folds grouped by InChIKey block; 13C increments refitted out of fold, "
-          f"code tables rebuilt out of fold; {time.perf_counter() - t0:.0f} s to load)")
+    print(f"\ncross-validated ({fh.FOLDS} folds grouped by InChIKey block; 13C increments and neighbour "
+          f"layer refitted out of fold, code tables rebuilt out of fold; {time.perf_counter() - t0:.0f} s to load)")
     for nucleus, recs in (("13C", c13), ("1H", h1)):
         table = load_table(nucleus)
         k, radius = (table.shrink, table.max_radius) if table else (1.0, 0)

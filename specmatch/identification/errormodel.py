@@ -168,14 +168,15 @@ def load_error_model() -> ErrorModel:
 
 @lru_cache(maxsize=1)
 def tables_digest() -> str:
-    """SHA-256 over the prediction stage's table files (names and contents): tells
-    whether the error model was fitted with the tables now installed."""
+    """SHA-256 over the prediction stage's table files (names and contents, the gzip
+    code tables and neighbour layer included): tells whether the error model was
+    fitted with the tables now installed."""
     import hashlib
 
     h = hashlib.sha256()
     folder = resources.files("specmatch.prediction").joinpath("tables")
     for entry in sorted(folder.iterdir(), key=lambda e: e.name):
-        if entry.name.endswith((".csv", ".toml")):
+        if entry.name.endswith((".csv", ".csv.gz", ".toml")):
             h.update(entry.name.encode())
             h.update(entry.read_bytes())
     return h.hexdigest()

@@ -133,7 +133,7 @@ def load(path: str, limit: int = 0):
                 for c, tag in zip(carbons, rank_tags([cls[c.atoms[0]] for c in carbons], [c.shift for c in carbons])):
                     cs = [x + tag for x in codes.codes(c.atoms[0], RADII)]
                     sig.append((c.atoms, c.shift, c.sigma, c.hydrogens, cs, c.atoms[0],
-                                neighbour_features(codes.bits, dist[c.atoms[0]])))
+                                neighbour_features(codes.bits, dist[c.atoms[0]], c.atoms[0])))
                 obs = [(float(s), H_OF.get(letter, -1)) for s, letter, _ in spec]
                 c13.append({"block": block, "fold": fold_of(block), "core": core, "signals": sig,
                             "obs": obs, "smiles": rec["smiles"]})
@@ -334,12 +334,13 @@ def with_shifts(rec, shifts):
 
 # ------------------------------------------------------------------ 13C neighbour layer
 def add_features(c13) -> None:
-    """Neighbour-layer features for records of an older cache that lack them (in place)."""
+    """Neighbour-layer features for records of a cache without them, or with those of
+    another version of ``hose.neighbour_features`` (in place)."""
     for rec in c13:
-        if rec["signals"] and len(rec["signals"][0]) < 7:
+        if rec["signals"] and (len(rec["signals"][0]) < 7 or not any(":c" in x for x in rec["signals"][0][6])):
             st = parse_structure(rec["smiles"])
             bits, dist = MolCodes(st.mol).bits, graph_of(st).dist
-            rec["signals"] = [(*sg[:6], neighbour_features(bits, dist[sg[5]])) for sg in rec["signals"]]
+            rec["signals"] = [(*sg[:6], neighbour_features(bits, dist[sg[5]], sg[5])) for sg in rec["signals"]]
 
 
 def fit_layer(recs, lam: float, min_n: int) -> tuple[dict[str, float], dict[str, int]]:
@@ -458,18 +459,31 @@ def write_neighbour_layer(recs, layer, chosen, today: str):
         st = parse_structure(rec["smiles"])
         bits, dist = MolCodes(st.mol).bits, graph_of(st).dist
         for sg in rec["signals"]:
-            for a, d in enumerate(dist[sg[5]]):
-                for r in ((0, 1, 2) if d == 1 else (0, 1)):
-                    x = f"{d}:{r}:{bits[a][r]:x}"
+            centre = sg[5]
+            here = Chem.MolFragmentToSmiles(st.mol, [centre], isomericSmiles=False)
+            for a, d in enumerate(dist[centre]):
+                if not 1 <= d <= 3:
+                    continue
+                alone = Chem.MolFragmentToSmiles(st.mol, [a], isomericSmiles=False)
+                c0 = f"{bits[centre][0]:x}"
+                # feature -> example: the atom's environment, or centre>environment for paired ones
+                kinds = [(f"{d}:0:{bits[a][0]:x}", lambda: alone),
+                         (f"{d}:1:{bits[a][1]:x}", lambda: environment_smiles(st.mol, a, 1)),
+                         (f"{d}:c{c0}:{bits[a][0]:x}", lambda: f"{here}>{alone}")]
+                if d == 1:
+                    kinds += [(f"1:2:{bits[a][2]:x}", lambda: environment_smiles(st.mol, a, 2)),
+                              (f"1:d{c0}:{bits[a][1]:x}", lambda: f"{here}>{environment_smiles(st.mol, a, 1)}")]
+                for x, text in kinds:
                     if x in weights and x not in example:
-                        example[x] = (environment_smiles(st.mol, a, r) if r else
-                                      Chem.MolFragmentToSmiles(st.mol, [a], isomericSmiles=False))
+                        example[x] = text()
     rows = [(x, count[x], weights[x], [bf.get(x, 0.0) for bf in by_fold], example.get(x, ""))
             for x in sorted(weights)]
     (k, radius, _), _, cv_core, cv_wide = chosen
     prov = ["13C neighbour layer: ridge regression of the increment residual on the atoms at topological "
             "distance 1-3 (feature d:r:code = distance, radius 0 or 1 (also 2 at distance 1), the code of that atom as in "
-            "hose_c13.csv.gz); only on carbons whose first-sphere code is in hose_c13.csv.gz",
+            "hose_c13.csv.gz; d:c<centre>:code = its radius-0 code paired with the centre's radius-0 code, 1:d<centre>:code "
+            "the same with the radius-1 code; example centre>atom); only on carbons whose first-sphere code is in "
+            "hose_c13.csv.gz",
             f"fitted on the nmrshiftdb2 development part (../shared/reference/nmrshiftdb2_dev.jsonl; "
             f"Kuhn & Schlörer, Magn. Reson. Chem. 2015, 53, 582), {len(recs)} records, {today}",
             f"residuals measured minus increment prediction (specbench pairing), clipped at +-{CLIP['13C']:g} ppm; "

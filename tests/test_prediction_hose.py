@@ -152,12 +152,13 @@ def test_neighbour_features_list_the_atoms_around_by_distance():
     mol = Chem.MolFromSmiles("CC(O)CCl")
     bits = MolCodes(mol).bits
     dist = Chem.GetDistanceMatrix(mol).astype(int).tolist()
-    feats = neighbour_features(bits, dist[0])
-    # atoms 1 (distance 1), 2 and 3 (distance 2), 4 (distance 3): radius 0 and 1 each,
-    # radius 2 for the direct neighbour
-    assert len(feats) == 2 * 4 + 1
-    assert sorted(int(f.split(":")[0]) for f in feats) == [1, 1, 1, 2, 2, 2, 2, 3, 3]
+    feats = neighbour_features(bits, dist[0], 0)
+    # atoms 1 (distance 1), 2 and 3 (distance 2), 4 (distance 3): radius 0, radius 1 and
+    # radius 0 paired with the centre each; radius 2 and radius 1 paired for the neighbour
+    assert len(feats) == 3 * 4 + 2
+    assert sorted(int(f.split(":")[0]) for f in feats) == [1] * 5 + [2] * 6 + [3] * 3
     assert f"1:0:{bits[1][0]:x}" in feats and f"3:1:{bits[4][1]:x}" in feats
+    assert f"3:c{bits[0][0]:x}:{bits[4][0]:x}" in feats and f"1:d{bits[0][0]:x}:{bits[1][1]:x}" in feats
 
 
 def test_neighbour_features_do_not_depend_on_atom_order():
@@ -167,7 +168,7 @@ def test_neighbour_features_do_not_depend_on_atom_order():
         dist = Chem.GetDistanceMatrix(mol).astype(int).tolist()
         cl = next(a.GetIdx() for a in mol.GetAtoms() if a.GetSymbol() == "Cl")
         carbon = next(a.GetNeighbors()[0].GetIdx() for a in mol.GetAtoms() if a.GetSymbol() == "Cl")
-        return sorted(neighbour_features(bits, dist[carbon])), cl
+        return sorted(neighbour_features(bits, dist[carbon], carbon)), cl
 
     assert feats("ClCC(O)CC")[0] == feats("CCC(O)CCl")[0]
 

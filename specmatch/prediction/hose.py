@@ -340,16 +340,21 @@ def load_table(nucleus: str) -> HoseTable | None:
 LAYER_DISTANCE = 3
 
 
-def neighbour_features(bits: list[list[int]], dist_row: list[int]) -> list[str]:
-    """Features of one atom for the neighbour layer: for every atom at distance 1 to
-    ``LAYER_DISTANCE``, ``"d:r:code"`` with that atom's code of radius 0 and 1, and
-    of radius 2 for the direct neighbours.
+def neighbour_features(bits: list[list[int]], dist_row: list[int], centre: int) -> list[str]:
+    """Features of one atom for the neighbour layer.
+
+    For every atom at distance d = 1 to ``LAYER_DISTANCE``: ``"d:r:code"`` with that
+    atom's code of radius r = 0 and 1 (and 2 for the direct neighbours), and
+    ``"d:c<centre>:code"``, its radius-0 code paired with the centre's radius-0 code
+    (``"1:d<centre>:code"`` with the radius-1 code for the direct neighbours).
 
     The environment code of the centre says "this exact neighbourhood"; an unseen
     combination of known substituents gets no correction from it. These features
     describe the same neighbourhood piece by piece (which atom types sit at which
     distance), so a linear model on them generalises across combinations, as the
-    increments do, while learning what the increments miss.
+    increments do, while learning what the increments miss. The paired features let
+    a substituent act differently on a CH3 and on a ring CH, as the increments'
+    own terms do (cross-validated: 13C core 1.81 -> 1.78, wide 1.61 -> 1.55 ppm).
 
     Parameters
     ----------
@@ -357,15 +362,20 @@ def neighbour_features(bits: list[list[int]], dist_row: list[int]) -> list[str]:
         :attr:`MolCodes.bits` of the molecule.
     dist_row : list of int
         Topological distances from the centre atom to every atom.
+    centre : int
+        The centre atom.
     """
     out = []
+    c0 = f"{bits[centre][0]:x}"
     for a, d in enumerate(dist_row):
         if 1 <= d <= LAYER_DISTANCE:
             row = bits[a]
             out.append(f"{d}:0:{row[0]:x}")
             out.append(f"{d}:1:{row[1]:x}")
-            if d == 1:  # cross-validated: 0.01 ppm wide, nothing from radius 0 at distance 4
+            out.append(f"{d}:c{c0}:{row[0]:x}")
+            if d == 1:  # cross-validated: 0.01 ppm wide each, nothing from radius 0 at distance 4
                 out.append(f"1:2:{row[2]:x}")
+                out.append(f"1:d{c0}:{row[1]:x}")
     return out
 
 

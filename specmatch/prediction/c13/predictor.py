@@ -223,7 +223,7 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
             # only on a carbon whose first sphere the data has seen: its weights were
             # learned there, an unseen first sphere keeps the increments
             if layer is not None and own and table.entry(1, own[0], fold) is not None:
-                c[1] += layer.shift(neighbour_features(codes.bits, dist[c[0][0]]), fold)
+                c[1] += layer.shift(neighbour_features(codes.bits, dist[c[0][0]], c[0][0]), fold)
             corr, sigma, depth = table.correct(own, c[2], fold)
             if depth:
                 c[1] += corr

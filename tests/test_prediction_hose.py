@@ -205,3 +205,19 @@ def test_layer_skips_a_carbon_whose_first_sphere_is_unknown():
     full, _ = predict_carbons(st)
     bare, _ = predict_carbons(st, correction=False)
     assert full[0].shift == bare[0].shift
+
+
+def test_layer_shifts_of_a_molecule_equal_the_feature_sums():
+    from specmatch.prediction.hose import hex_codes
+    from specmatch.structures import parse_structure
+    from specmatch.structures.graph import graph_of
+
+    layer = load_layer("13C")
+    st = parse_structure("CC(Cl)C1CCC(O)CC1")
+    bits, dist = MolCodes(st.mol).bits, graph_of(st).dist
+    centres = [a.GetIdx() for a in st.mol.GetAtoms() if a.GetSymbol() == "C"]
+    got = layer.shifts(hex_codes(bits), dist, centres)
+    for centre, value in zip(centres, got):
+        assert value == pytest.approx(layer.shift(neighbour_features(bits, dist[centre], centre)), abs=1e-9)
+    assert layer.shifts(hex_codes(bits), dist, centres, exclude_fold=2) == pytest.approx(
+        [layer.shift(neighbour_features(bits, dist[c], c), exclude_fold=2) for c in centres], abs=1e-9)

@@ -18,7 +18,7 @@ from dataclasses import replace
 from ...structures import Structure
 from ...structures.graph import MolGraph, graph_of
 from ...structures.molecule import DEUTERIUM_PROP, deuterium_counts
-from ..hose import MolCodes, fold_of_mol, load_layer, load_table, neighbour_features, rank_tags
+from ..hose import MolCodes, fold_of_mol, hex_codes, load_layer, load_table, rank_tags
 from ..types import CarbonShift
 from .environment import carbon_environments, is_correction, nearest_term
 from .tables import SIGMA as _SIGMA, SUPPORT as _SUPPORT, TABLES_VERSION, VALUE as _VALUE
@@ -214,16 +214,22 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
         cls = structure.symmetry_classes
         fold = fold_of_mol(structure.mol)  # None unless SPECMATCH_CROSS_VALIDATED=1
         tags = rank_tags([cls[c[0][0]] for c in out], [c[1] for c in out])
-        dist = g.dist if layer is not None else None
-        for c, kind, tag in zip(out, kinds, tags):
-            if kind == "other":
-                continue
-            own = [x + tag for x in codes.iter_codes(c[0][0], table.max_radius)]
+        owns = []
+        layered = []  # entries of out the layer applies to
+        for k, (c, kind, tag) in enumerate(zip(out, kinds, tags)):
+            own = [] if kind == "other" else [x + tag for x in codes.iter_codes(c[0][0], table.max_radius)]
+            owns.append(own)
             # the neighbour layer first (the code table was fitted on what it leaves), and
             # only on a carbon whose first sphere the data has seen: its weights were
             # learned there, an unseen first sphere keeps the increments
             if layer is not None and own and table.entry(1, own[0], fold) is not None:
-                c[1] += layer.shift(neighbour_features(codes.bits, dist[c[0][0]], c[0][0]), fold)
+                layered.append(k)
+        if layered:
+            for k, v in zip(layered, layer.shifts(hex_codes(codes.bits), g.dist, [out[k][0][0] for k in layered], fold)):
+                out[k][1] += v
+        for c, own in zip(out, owns):
+            if not own:
+                continue
             corr, sigma, depth = table.correct(own, c[2], fold)
             if depth:
                 c[1] += corr

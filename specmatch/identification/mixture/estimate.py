@@ -933,8 +933,8 @@ def _from_peaklist(cands, peaklist, warnings, src) -> MixtureEstimate:
                                             integral=0.0, amount=0.0,
                                             amount_sd=fit.abs_sd / g.count))
     method = ("peak-list fit: multiplet integrals explained by the candidates' proton groups "
-              "(assignment within 5 prediction sigma, shift errors with a shared offset per environment class, "
-              "non-negative least squares for the amounts)")
+              "(assignment within 5 prediction sigma, a C-H group left unobserved only at a cost, shift errors with a "
+              "shared offset per environment class, non-negative least squares for the amounts)")
     unc = ("covariance of the amounts for the best assignment, integrals taken to +-2% (+0.5% of the largest), "
            f"scaled by the reduced chi-square when above 1, plus {100 * MODEL_SD_FLOOR:.1f} percentage points in "
            "quadrature; 95% interval = fraction +- 1.96 sd")

@@ -29,7 +29,8 @@ from its mirrored reading (``MIRROR_STARTS``: each candidate's groups take the p
 places the other's held), whose optimum widens the spread and replaces the search's own
 only when clearly cheaper (``MIRROR_SWITCH``). A C-H group may also be left unobserved at
 a fixed cost (``UNOBSERVED_GROUP_COST``: a proton missing from the list, or listed where
-no whole group fits, then does not pull the amounts). The shift term is taken after one offset per
+no whole group fits, then does not pull the amounts), at most ``MAX_UNOBSERVED_GROUPS`` per
+candidate and never all of them. The shift term is taken after one offset per
 environment class shared by the candidates (``SHARED_SHIFT_SHARE``): isomers' errors
 move together, so only the independent part of the errors tells two readings apart.
 The reported weights are refined with ``scipy.optimize.least_squares`` (bounds
@@ -111,6 +112,12 @@ RATIO_STARTS: tuple[float, ...] = (0.05, 0.2, 0.35, 0.5, 0.65, 0.8, 0.95)
 #: corrupts; None forces every C-H group onto a multiplet. 12 of 6 / 9 / 12 / 25 on the
 #: fit half of bench_mixture.py (6-12 within a point; held-back half not looked at)
 UNOBSERVED_GROUP_COST: float | None = 12.0
+#: at most this many C-H groups per candidate unobserved (a list that lacks a line),
+#: and never all of them (see _Problem.unobserved_excess). Set by hand: on the fit half
+#: of bench_mixture.py it changed one task of 396 (within 3 pp 81.3% -> 81.1%); it keeps
+#: the search from reading a major candidate as present with none of its lines listed
+MAX_UNOBSERVED_GROUPS = 1
+_RULE_PENALTY = 1.0e3
 #: after each local optimum of two candidates, also descend from its mirrored reading
 #: (:meth:`_Problem.mirror`): the readings an isomer pair's data cannot tell apart
 #: then both enter the assignment spread, so the interval covers the swapped one
@@ -291,6 +298,7 @@ class _Problem:
                       if SWAP_MOVES and self.comp_of[q1] != self.comp_of[q2] and exch[q1] == exch[q2]
                       and self.counts[q1] == self.counts[q2]]
         self.memo: dict[tuple, tuple[float, np.ndarray]] = {}
+        self.ch_of = [[q for q in range(n) if self.comp_of[q] == k and not exch[q]] for k in range(self.K)]
 
     def shared_shift_term(self, qs: np.ndarray, ms: np.ndarray) -> float:
         """-2 log Student-t of the shift residuals after the class offsets, plus their prior."""
@@ -355,6 +363,21 @@ class _Problem:
             rw = new
         return w, rw, self.robust_chi2(z)
 
+    def unobserved_excess(self, assign: Sequence[int]) -> float:
+        """Penalty for C-H groups left unobserved beyond ``MAX_UNOBSERVED_GROUPS`` per
+        candidate, or for all of a candidate's C-H groups (an absent candidate is an
+        amount of zero, not a list without its lines); large but finite, so that the
+        search can descend from a start that breaks the rule."""
+        if UNOBSERVED_GROUP_COST is None:
+            return 0.0
+        out = 0.0
+        for k in range(self.K):
+            qs = self.ch_of[k]
+            gone = sum(1 for q in qs if self.options[q][assign[q]][0] < 0)
+            excess = max(0, gone - MAX_UNOBSERVED_GROUPS) + (1 if qs and gone == len(qs) else 0)
+            out += _RULE_PENALTY * excess
+        return out
+
     def solve(self, assign: Sequence[int], oh: int | None) -> tuple[float, np.ndarray]:
         """Cost and amounts of an assignment. Inside the search: one NNLS, its residuals
         scored with the robust loss (the reweighted amounts are computed for the optima
@@ -364,7 +387,7 @@ class _Problem:
         if hit is None:
             A, s, pen = self.design(assign, oh)
             w, _, chi2 = self.weighted_nnls(A, s, iterations=1)
-            hit = self.memo[key] = (chi2 + pen, w)
+            hit = self.memo[key] = (chi2 + pen + self.unobserved_excess(assign), w)
         return hit
 
     def local_search(self, start: Sequence[int], oh: int | None = None):

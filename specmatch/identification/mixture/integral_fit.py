@@ -63,6 +63,11 @@ _RESTARTS = 8
 #: Student-t degrees of freedom of the shift term (prediction errors have heavy tails;
 #: the value of the identification error model's 1H fit, rounded)
 SHIFT_DF = 2.0
+#: a reading (local optimum of the assignment search) with at least this weight among
+#: them is one the data cannot exclude at 95%: the reported 95% interval reaches its
+#: fractions (a swapped reading of an isomer pair is a second mode that fraction +- 1.96 sd
+#: around the best one cannot cover, however large the spread)
+PLAUSIBLE_WEIGHT = 0.05
 #: the local optima of the search are weighed by exp(-cost / 2) (cost = chi-square
 #: of the integrals + shift term, a -2 log-likelihood), so that assignments the data
 #: cannot tell apart share the estimate and its spread enters the uncertainty
@@ -151,6 +156,9 @@ class IntegralFit:
     #: (see ASSIGNMENT_AVERAGING); None when one assignment is clearly best
     averaged_fractions: np.ndarray | None = None
     assignment_sd: np.ndarray | None = None
+    #: fractions (rows) of the readings the data cannot exclude: weight of at least
+    #: PLAUSIBLE_WEIGHT among the assignments (see ASSIGNMENT_AVERAGING); None if one only
+    plausible: np.ndarray | None = None
     #: candidates the peak list cannot tell apart (their groups fall into the same
     #: multiplets in the same proportions): only their summed amount is measured
     confounded: tuple[int, ...] = ()
@@ -499,7 +507,7 @@ def fit_integrals(multiplets: Sequence[Multiplet], components: Sequence[Sequence
                 if cur < best[0] - MIRROR_SWITCH:
                     best = (cur, assign, oh)
     cost_best, assign, oh = best
-    averaged = spread = None
+    averaged = spread = plausible = None
     if ASSIGNMENT_AVERAGING and len(optima) > 1:
         costs = np.array([c for c, _ in optima.values()])
         fr = np.array([x / x.sum() if x.sum() > 0 else np.full(K, np.nan) for _, x in optima.values()])
@@ -513,6 +521,9 @@ def fit_integrals(multiplets: Sequence[Multiplet], components: Sequence[Sequence
             if bw.sum() > 0:
                 averaged = bw / bw.sum()
         spread = np.sqrt(np.clip(p @ (fr[ok] - averaged) ** 2, 0.0, None))
+        keep = p >= PLAUSIBLE_WEIGHT
+        if keep.sum() > 1:
+            plausible = fr[ok][keep]
     # final weights: bounded least squares with the analytic Jacobian (the model is
     # linear), with the robust weights of the search's solution
     from scipy.optimize import least_squares
@@ -561,4 +572,4 @@ def fit_integrals(multiplets: Sequence[Multiplet], components: Sequence[Sequence
     return IntegralFit(weights=w[:K].copy(), weights_cov=wcov, assignment=assignment, chi2_red=chi2_red,
                        regions=regions, notes=notes, degenerate=degenerate,
                        abs_sd=float(INTEGRAL_ABS_SD * I.max()), averaged_fractions=averaged,
-                       assignment_sd=spread, confounded=confounded)
+                       assignment_sd=spread, confounded=confounded, plausible=plausible)

@@ -1110,6 +1110,10 @@ EXACT_STAGE_GIVE_UP = 50.0
 #: the continuation with the candidates placed one at a time runs for at most this many
 #: candidates (one first stage per candidate order)
 EXACT_ORDERED_MAX_CANDIDATES = 3
+#: after exchanging two groups' places (:meth:`_ExactSearch.swap_pairs`) each is searched
+#: this far (Hz) around its new place (about one vicinal coupling: the centres of a triplet
+#: and a doublet on each other's lines differ by up to half a coupling)
+EXACT_SWAP_WINDOW_HZ = 8.0
 
 
 #: exact lines are drawn as exact Lorentzians within EXACT_NEAR_POINTS grid steps (at
@@ -1436,8 +1440,9 @@ class _ExactSearch:
         return out, float(r @ r) + self.prior_cost(out)
 
     # -- moves
-    def search_group(self, j: int) -> bool:
-        """Try the best grid places of group j; keep the best exact one. True if it moved."""
+    def search_group(self, j: int, window_ppm: float | None = None) -> bool:
+        """Try the best grid places of group j (within ``window_ppm`` of where it is, if
+        given); keep the best exact one. True if it moved."""
         from scipy.signal import correlate
 
         em, t = self.em, self.t
@@ -1462,6 +1467,8 @@ class _ExactSearch:
         tx = np.arange(-half_pts, half_pts + 1) * h
         tmpl = _stick_curve(tx, offs, amps, hw, win)
         lo_c, hi_c = g.shift0 - g.bound, g.shift0 + g.bound
+        if window_ppm is not None:
+            lo_c, hi_c = max(lo_c, t[j] - window_ppm), min(hi_c, t[j] + window_ppm)
         x = self.x
         i_lo = max(int(np.ceil((lo_c - x[0]) / h)), 0)
         i_hi = min(int(np.floor((hi_c - x[0]) / h)), len(x) - 1)
@@ -1512,6 +1519,42 @@ class _ExactSearch:
         self.c, self.t, part, self.curves, sh = best
         em.set_part(k, part, sh)
         return True
+
+    def swap_pairs(self) -> int:
+        """Exchange the places of two groups of equal proton count (of one candidate or of
+        two) when each place is within the other group's bounds and the exchange, with both
+        groups then searched within ``EXACT_SWAP_WINDOW_HZ`` of their new places, lowers the
+        cost. Per-group searches cannot undo a triplet sitting on a doublet and the doublet
+        on the triplet: moving either one alone makes things worse. Returns the swaps made."""
+        em = self.em
+        groups = em.b.groups
+        win = EXACT_SWAP_WINDOW_HZ / em.f
+        done = 0
+        for j1 in range(em.G):
+            for j2 in range(j1 + 1, em.G):
+                g1, g2 = groups[j1], groups[j2]
+                if g1.count != g2.count or not (self.active[g1.component] and self.active[g2.component]):
+                    continue
+                c1, c2 = float(self.t[j1]), float(self.t[j2])
+                if abs(c1 - c2) < 2.0 * win or abs(c2 - g1.shift0) > g1.bound or abs(c1 - g2.shift0) > g2.bound:
+                    continue
+                saved = (self.t.copy(), self.c, self.curves.copy(), list(em.parts), em.ref.copy())
+                sh = em.ref.copy()
+                sh[j1], sh[j2] = c2, c1
+                for k in {g1.component, g2.component}:
+                    em.set_part(k, em.simulate(k, sh), sh)
+                trial = self.t.copy()
+                trial[j1], trial[j2] = c2, c1
+                self.curves = self._curves(trial)
+                self.t, self.c = self.solve(self.curves, trial)
+                self.search_group(j1, win)
+                self.search_group(j2, win)
+                if self.c < saved[1]:
+                    done += 1
+                    continue
+                self.t, self.c, self.curves, em.parts, em.ref = saved
+                em._join()
+        return done
 
     def search_oh(self) -> None:
         """Place each free exchangeable line (the first ``n_oh`` free lines) in turn on the
@@ -1764,6 +1807,8 @@ def _exact_continuation(model: _Model, em: _ExactModel, theta0: np.ndarray, lo: 
             for _ in range(EXACT_SWEEPS):
                 if not s.sweep(order):
                     break
+            if s.swap_pairs():
+                s.sweep(order)
         t = s.t
         if prev == 0.0 and delta > 0 and not orders:
             t, c = _exact_polish(es, t, lo_s, hi_s, radius=radius, rounds=2)

@@ -1184,6 +1184,27 @@ def open_store(url: str | None = None, *, upgrade: bool = True, read_only: bool 
         check runs on every open) or a schema this release cannot use.
     """
     resolved = resolve_store_url(url)
+    # SQLite answers "database is locked" without waiting in a few cases the busy
+    # timeout does not cover (two processes switching a new file to WAL at once, a
+    # reader meeting WAL recovery); those pass, so the whole open is retried.
+    deadline = time.monotonic() + BUSY_TIMEOUT_S
+    while True:
+        try:
+            return _open_once(resolved, upgrade=upgrade, read_only=read_only)
+        except _TransientLock:
+            if time.monotonic() > deadline:
+                raise SpecmatchError(
+                    f"cannot open the analysis store {resolved!r}: the database stayed locked "
+                    f"for {BUSY_TIMEOUT_S:.0f} s; another program is holding it; try again "
+                    "later") from None
+            time.sleep(0.02 + 0.08 * random.random())
+
+
+class _TransientLock(Exception):
+    """A lock conflict SQLite reported without waiting; the open is tried again."""
+
+
+def _open_once(resolved: str, *, upgrade: bool, read_only: bool) -> Store:
     store = Store(_make_engine(resolved, read_only=read_only), resolved, read_only=read_only)
     try:
         try:
@@ -1205,6 +1226,8 @@ def open_store(url: str | None = None, *, upgrade: bool = True, read_only: bool 
     except (OperationalError, DBAPIError) as exc:
         store.close()
         text = _first_line(exc)
+        if store.dialect == "sqlite" and _is_locked(exc):
+            raise _TransientLock(text) from None
         if any(w in text.lower() for w in ("malformed", "not a database", "corrupt")):
             raise SpecmatchError(f"the analysis store {store!r} is damaged ({text}); restore it "
                                  "from a backup") from None

@@ -22,7 +22,7 @@ the pairs whose records list every proton (a record may list a CH2 as one proton
 tests/data/mixture_isomer_pairs.json, simulated 400 MHz spectra from
 experimental shifts, fitted with the predicted spectra).
 
-usage: python benchmarks/bench_mixture.py [--limit N] [--spectra [--seeds N] [--snr S] [--quick]]
+usage: python benchmarks/bench_mixture.py [--limit N] [--half fit|held_back] [--spectra [--seeds N] [--snr S] [--quick]]
 """
 
 from __future__ import annotations
@@ -128,13 +128,15 @@ def peaklist_tasks(limit: int = 0) -> tuple[list[dict], Path]:
     return out, dev
 
 
-def main_peaklists(limit: int) -> None:
+def main_peaklists(limit: int, half: str | None = None) -> None:
     from specmatch.errors import SpecmatchError
     from specmatch.identification.mixture import estimate_mixture
     from specmatch.prediction import predict
     from specmatch.spectra.types import Multiplet, PeakList
 
     tasks, dev = peaklist_tasks(limit)
+    if half:
+        tasks = [t for t in tasks if t["half"] == half]
     print(f"inputs: {dev}; {len({(t['a'], t['b']) for t in tasks})} isomer pairs with experimental 1H, "
           f"true major fractions {', '.join(f'{r:.2f}' for r in RATIOS)}; multiplets +-{HALF_WIDTH_PPM} ppm, "
           f"merged within {MERGE_PPM} ppm")
@@ -183,13 +185,15 @@ def main_peaklists(limit: int) -> None:
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--limit", type=int, default=0, help="peak lists: at most this many isomer pairs")
+    ap.add_argument("--half", choices=("fit", "held_back"), default=None,
+                    help="peak lists: only this half (develop on 'fit'; the held-back half is the honest figure)")
     ap.add_argument("--spectra", action="store_true", help="the synthetic full-spectrum benchmark instead")
     ap.add_argument("--seeds", type=int, default=2, help="noise/J draws per pair and ratio (default 2)")
     ap.add_argument("--snr", type=float, default=500.0, help="tallest compound line / noise sd (default 500)")
     ap.add_argument("--quick", action="store_true", help="ratios 0.9 and 0.6 only, one seed")
     args = ap.parse_args()
     if not args.spectra:
-        main_peaklists(args.limit)
+        main_peaklists(args.limit, args.half)
         return
 
     from specmatch.identification.mixture import estimate_mixture

@@ -69,3 +69,44 @@ def test_filling_start_follows_the_assumed_ratio():
     s = 0.02 * I + 0.005
     assert _filling_start(0.9, options, counts, comp, I, s) == [0, 1]
     assert _filling_start(0.1, options, counts, comp, I, s) == [1, 0]
+
+
+# the worked example of tests/test_mixture.py (2-bromobutane shifts from nmrshiftdb2 record
+# 10007822, 1-bromobutane from memory, integrals invented for a 78:22 mixture)
+BROMOBUTANES = [(4.10, 0.78, "sext"), (3.41, 0.44, "t"), (1.85, 2.00, "m"), (1.72, 2.34, "d"),
+                (1.47, 0.44, "m"), (1.03, 2.34, "t"), (0.93, 0.66, "t")]
+
+
+@pytest.mark.parametrize("drop", range(len(BROMOBUTANES)))
+def test_a_multiplet_missing_from_the_list_leaves_the_ratio(drop):
+    # a line under the water or solvent signal, or left out of the list: its groups are
+    # "not observed" instead of being forced onto another multiplet (whose integral they
+    # would then corrupt); the other six multiplets still say 78:22
+    rows = [r for i, r in enumerate(BROMOBUTANES) if i != drop]
+    mults = tuple(Multiplet(s, (s - 0.03, s + 0.03), i, m) for s, i, m in rows)
+    pl = PeakList("1H", (), mults, frequency_mhz=400.0, solvent="CDCl3", source="worked example")
+    est = estimate_mixture(["CCC(C)Br", "CCCCBr"], peaklist=pl)
+    assert est.fractions[0] == pytest.approx(0.78, abs=0.015)
+    lo, hi = est.interval_95[0]
+    assert lo <= 0.78 <= hi
+
+
+def test_mirrored_reading_exchanges_the_candidates_places():
+    # two candidates with a 1H and a 2H group each, predicted close together (shifts and
+    # integrals invented for the test): candidate 0 on the large multiplets, 1 on the small
+    # ones; the mirrored reading puts each candidate's groups where the other's were
+    from specmatch.identification.mixture.integral_fit import _Problem
+    from specmatch.prediction.types import ProtonGroup
+
+    def g(atom, shift, count):
+        return ProtonGroup(atoms=(atom,), shift=shift, sigma=0.1, count=count, multiplicity="s",
+                           environment="CH test")
+
+    comps = [[g(0, 2.0, 1), g(1, 3.0, 2)], [g(0, 2.05, 1), g(1, 3.05, 2)]]
+    mults = [Multiplet(s, (s - 0.01, s + 0.01), i, "m") for s, i in ((2.0, 0.8), (2.1, 0.2), (3.0, 1.6), (3.1, 0.4))]
+    P = _Problem(mults, comps)
+    where = {(k, i): m for m, (k, i) in ((0, (0, 0)), (2, (0, 1)), (1, (1, 0)), (3, (1, 1)))}
+    assign = [P.opt_index[q][where[(k, i)]] for q, (k, i, _) in enumerate(P.groups)]
+    mirrored = P.mirror(assign)
+    got = {(k, i): P.options[q][mirrored[q]][0] for q, (k, i, _) in enumerate(P.groups)}
+    assert got == {(0, 0): 1, (0, 1): 3, (1, 0): 0, (1, 1): 2}

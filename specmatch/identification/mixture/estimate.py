@@ -169,7 +169,8 @@ class MixtureEstimate:
     uncertainties : tuple of float
         One standard deviation of each fraction.
     interval_95 : tuple of (float, float)
-        95% intervals (fraction +- 1.96 sd, clipped to [0, 1]).
+        95% intervals (fraction +- 1.96 sd, clipped to [0, 1]; from a peak list also
+        reaching the fractions of other assignments the data cannot exclude).
     ratio_text : str
         The ratio in candidate order, e.g. "78:22".
     selectivity : str
@@ -663,7 +664,8 @@ def _observed_integral_ratio(cands: Sequence[_Candidate], fit, peaklist, f_mhz: 
 
 def _finish(cands, weights, wcov, regions, *, method, uncertainty_method, warnings, source,
             fitted, group_keys, details, undetected: dict[int, float] | None = None,
-            observed: IntegralRatio | None = None, extra_sd: np.ndarray | None = None) -> MixtureEstimate:
+            observed: IntegralRatio | None = None, extra_sd: np.ndarray | None = None,
+            plausible: np.ndarray | None = None) -> MixtureEstimate:
     from .spectrum_fit import PURITY_MIN, _fraction_sd
 
     w = np.asarray(weights, float)
@@ -745,6 +747,10 @@ def _finish(cands, weights, wcov, regions, *, method, uncertainty_method, warnin
         warnings.append("the 1H prediction tables are placeholders; the estimate is not meaningful yet")
     major = int(np.argmax(f))
     iv = _interval(f, sd)
+    if plausible is not None and len(plausible):
+        # readings the data cannot exclude (peak-list assignments): the interval reaches them
+        pl = np.asarray(plausible, float)
+        iv = tuple((float(min(lo, pl[:, k].min())), float(max(hi, pl[:, k].max()))) for k, (lo, hi) in enumerate(iv))
     return MixtureEstimate(
         candidates=tuple(c.smiles for c in cands),
         names=tuple(c.name for c in cands),
@@ -933,8 +939,8 @@ def _from_peaklist(cands, peaklist, warnings, src) -> MixtureEstimate:
                                             integral=0.0, amount=0.0,
                                             amount_sd=fit.abs_sd / g.count))
     method = ("peak-list fit: multiplet integrals explained by the candidates' proton groups "
-              "(assignment within 5 prediction sigma, shift errors with a shared offset per environment class, "
-              "non-negative least squares for the amounts)")
+              "(assignment within 5 prediction sigma, a C-H group left unobserved only at a cost, shift errors with a "
+              "shared offset per environment class, non-negative least squares for the amounts)")
     unc = ("covariance of the amounts for the best assignment, integrals taken to +-2% (+0.5% of the largest), "
            f"scaled by the reduced chi-square when above 1, plus {100 * MODEL_SD_FLOOR:.1f} percentage points in "
            "quadrature; 95% interval = fraction +- 1.96 sd")
@@ -948,6 +954,8 @@ def _from_peaklist(cands, peaklist, warnings, src) -> MixtureEstimate:
         extra_sd = fit.assignment_sd
         unc += ("; the best assignment's fractions, the spread of the other plausible assignments around them "
                 "(weights exp(-chi2/(2T))) added in quadrature")
+        if fit.plausible is not None:
+            unc += "; the 95% interval reaches every assignment with at least 5% of that weight"
     if len(fit.confounded) > 1:
         # only the confounded candidates' summed amount is measured: split it evenly and
         # give each the sd of a uniform share of it (the data say nothing inside it)
@@ -962,7 +970,7 @@ def _from_peaklist(cands, peaklist, warnings, src) -> MixtureEstimate:
         unc += "; candidates the integrals cannot tell apart share their summed amount evenly, with a uniform sd"
     return _finish(cands, weights, fit.weights_cov, regions, method=method, uncertainty_method=unc,
                    warnings=warnings, source=src, fitted={}, group_keys=group_keys, details=details,
-                   extra_sd=extra_sd)
+                   extra_sd=extra_sd, plausible=fit.plausible if len(fit.confounded) <= 1 else None)
 
 
 def mixture_from_files(h1_path: str | Path, candidates_path: str | Path, *, solvent: str | None = None

@@ -315,15 +315,23 @@ def write_table(path: Path, rows: list[tuple[int, str, int, float, float, str, s
     """Write a correction table: provenance lines, then radius, code, n, mean, sd, the
     per-fold statistics (``fold:n:mean:sd`` joined by ``;``) and an example environment
     (SMILES fragment, no commas) per row."""
-    with gzip.GzipFile(path, "wb", mtime=0) as raw:  # mtime 0: same bytes for the same table
+    settings = [f"shrink {shrink:g}", f"max_radius {max_radius}", f"sigma_scale {sigma_scale:.3f}"]
+    # codes are always quoted (they hold commas) and never contain quotes
+    _write_gz_csv(path, [*provenance, *settings], "radius,code,n,mean_ppm,sd_ppm,by_fold,example",
+                  (f'{r},"{code}",{n},{mean:.4f},{sd:.4f},{folds},{example}'
+                   for r, code, n, mean, sd, folds, example in rows))
+
+
+def _write_gz_csv(path: Path, comments: list[str], header: str, lines: Iterable[str]) -> None:
+    """Write ``# comment`` lines, a header and data lines as gzip CSV; mtime 0 so the
+    same table always gives the same bytes."""
+    with gzip.GzipFile(path, "wb", mtime=0) as raw:
         with io.TextIOWrapper(raw, encoding="utf-8", newline="") as fh:
-            for line in provenance:
+            for line in comments:
                 fh.write(f"# {line}\n")
-            fh.write(f"# shrink {shrink:g}\n# max_radius {max_radius}\n# sigma_scale {sigma_scale:.3f}\n")
-            # codes are always quoted (they hold commas) and never contain quotes
-            fh.write("radius,code,n,mean_ppm,sd_ppm,by_fold,example\n")
-            for r, code, n, mean, sd, folds, example in rows:
-                fh.write(f'{r},"{code}",{n},{mean:.4f},{sd:.4f},{folds},{example}\n')
+            fh.write(header + "\n")
+            for line in lines:
+                fh.write(line + "\n")
 
 
 @lru_cache(maxsize=4)
@@ -481,13 +489,9 @@ def write_layer(path: Path, rows: list[tuple[str, int, float, list[float], str]]
     """Write a neighbour layer: provenance lines, then feature, count, weight, the weights of
     the layers fitted without each development fold (joined by ``;``) and an example
     environment of the feature's atom (SMILES fragment, no commas)."""
-    with gzip.GzipFile(path, "wb", mtime=0) as raw:
-        with io.TextIOWrapper(raw, encoding="utf-8", newline="") as fh:
-            for line in provenance:
-                fh.write(f"# {line}\n")
-            fh.write("feature,n,weight_ppm,by_fold,example\n")
-            for feat, n, w, folds, example in rows:
-                fh.write(f"{feat},{n},{w:.4f},{';'.join(f'{x:.4f}' for x in folds)},{example}\n")
+    _write_gz_csv(path, provenance, "feature,n,weight_ppm,by_fold,example",
+                  (f"{feat},{n},{w:.4f},{';'.join(f'{x:.4f}' for x in folds)},{example}"
+                   for feat, n, w, folds, example in rows))
 
 
 @lru_cache(maxsize=2)

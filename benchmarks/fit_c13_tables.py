@@ -268,13 +268,14 @@ def describe(term: str) -> str:
             return f"geminal pair {p[2]} on a neighbouring carbon"
     if cls == "allene":
         return f"allene centre: {names.get(p[1], p[1])} {p[2]}"
-    if cls == "ene" and p[1] in ("pattern", "sig", "gem", "gem'", "vic", "bridged", "allene-end"):
+    if cls == "ene" and p[1] in ("pattern", "sig", "gem", "gem'", "vic", "bridged", "allene-end", "ketene-end"):
         q = p[2] if len(p) > 2 else ""
         return {"pattern": f"substitution pattern: {q[:1]} substituent(s) here, {q[1:]} on the partner",
                 "sig": f"class value for substituents {q}",
                 "gem": f"geminal pair {q} on this carbon", "gem'": f"geminal pair {q} on the partner",
                 "vic": f"heteroatoms on both carbons ({q})", "bridged": "double bond in a bridged ring system",
-                "allene-end": "terminal carbon of an allene"}[p[1]]
+                "allene-end": "terminal carbon of an allene",
+                "ketene-end": "terminal carbon of a ketene (C=C=O)"}[p[1]]
     if cls == "ene" and p[1].startswith("ring") and len(p) > 2:
         return f"double bond in a {p[1][4:]}-membered ring, carbon with {p[2][1:]} H"
     if cls in ("ene", "yne"):

@@ -336,8 +336,17 @@ def with_shifts(rec, shifts):
 def add_features(c13) -> None:
     """Neighbour-layer features for records of a cache without them, or with those of
     another version of ``hose.neighbour_features`` (in place)."""
+    stale = None
     for rec in c13:
-        if rec["signals"] and (len(rec["signals"][0]) < 7 or not any(":c" in x for x in rec["signals"][0][6])):
+        if not rec["signals"]:
+            continue
+        if stale is None or len(rec["signals"][0]) < 7:
+            # the first record tells whether the cache's features are those of this version
+            st = parse_structure(rec["smiles"])
+            bits, dist = MolCodes(st.mol).bits, graph_of(st).dist
+            sg = rec["signals"][0]
+            stale = len(sg) < 7 or sg[6] != neighbour_features(bits, dist[sg[5]], sg[5])
+        if stale:
             st = parse_structure(rec["smiles"])
             bits, dist = MolCodes(st.mol).bits, graph_of(st).dist
             rec["signals"] = [(*sg[:6], neighbour_features(bits, dist[sg[5]], sg[5])) for sg in rec["signals"]]
@@ -473,6 +482,10 @@ def write_neighbour_layer(recs, layer, chosen, today: str):
                 if d == 1:
                     kinds += [(f"1:2:{bits[a][2]:x}", lambda: environment_smiles(st.mol, a, 2)),
                               (f"1:d{c0}:{bits[a][1]:x}", lambda: f"{here}>{environment_smiles(st.mol, a, 1)}")]
+                elif d == 2:
+                    kinds += [(f"2:d{c0}:{bits[a][1]:x}", lambda: f"{here}>{environment_smiles(st.mol, a, 1)}"),
+                              (f"2:e{bits[centre][1]:x}:{bits[a][0]:x}",
+                               lambda: f"{environment_smiles(st.mol, centre, 1)}>{alone}")]
                 for x, text in kinds:
                     if x in weights and x not in example:
                         example[x] = text()
@@ -481,8 +494,9 @@ def write_neighbour_layer(recs, layer, chosen, today: str):
     (k, radius, _), _, cv_core, cv_wide = chosen
     prov = ["13C neighbour layer: ridge regression of the increment residual on the atoms at topological "
             "distance 1-3 (feature d:r:code = distance, radius 0 or 1 (also 2 at distance 1), the code of that atom as in "
-            "hose_c13.csv.gz; d:c<centre>:code = its radius-0 code paired with the centre's radius-0 code, 1:d<centre>:code "
-            "the same with the radius-1 code; example centre>atom); only on carbons whose first-sphere code is in "
+            "hose_c13.csv.gz; d:c<centre>:code = its radius-0 code paired with the centre's radius-0 code, 1:d<centre>:code and "
+            "2:d<centre>:code the same with the radius-1 code, 2:e<centre>:code the radius-0 code paired with the "
+            "centre's radius-1 code; example centre>atom); only on carbons whose first-sphere code is in "
             "hose_c13.csv.gz",
             f"fitted on the nmrshiftdb2 development part (../shared/reference/nmrshiftdb2_dev.jsonl; "
             f"Kuhn & Schlörer, Magn. Reson. Chem. 2015, 53, 582), {len(recs)} records, {today}",

@@ -486,7 +486,10 @@ def _ene_terms(ctx: _Context, i: int) -> list[str]:
     farr = "+".join(sorted(ctx.types[j] for j in ctx.nbrs[p] if j != i and not ctx.internal[j]))
     t.append(f"ene:sig:{near}|{farr}")
     if ctx.types[p] == "C=X":
-        t.append("ene:allene-end")
+        # a ketene end (C=C=O) is far more shielded than an allene end (ketene CH2 2.5 ppm,
+        # propadiene CH2 74.8, from memory): its own term
+        t.append("ene:ketene-end" if any(o == 2.0 and ctx.sym[k] == "O" for k, o in ctx.bonds[p])
+                 else "ene:allene-end")
     # two heteroatoms (or hetero + unsaturated group) on one alkene carbon, and
     # heteroatoms facing each other across the bond: not additive
     subs = [ctx.types[j] for j in ctx.nbrs[i] if j != p and not ctx.internal[j]]

@@ -489,6 +489,9 @@ def write_neighbour_layer(recs, layer, chosen, today: str):
                     kinds += [(f"2:d{c0}:{bits[a][1]:x}", lambda: f"{here}>{environment_smiles(st.mol, a, 1)}"),
                               (f"2:e{bits[centre][1]:x}:{bits[a][0]:x}",
                                lambda: f"{environment_smiles(st.mol, centre, 1)}>{alone}")]
+                else:
+                    kinds.append((f"3:e{bits[centre][1]:x}:{bits[a][0]:x}",
+                                  lambda: f"{environment_smiles(st.mol, centre, 1)}>{alone}"))
                 for x, text in kinds:
                     if x in weights and x not in example:
                         example[x] = text()
@@ -498,8 +501,8 @@ def write_neighbour_layer(recs, layer, chosen, today: str):
     prov = ["13C neighbour layer: ridge regression of the increment residual on the atoms at topological "
             "distance 1-3 (feature d:r:code = distance, radius 0 or 1 (also 2 at distance 1), the code of that atom as in "
             "hose_c13.csv.gz; d:c<centre>:code = its radius-0 code paired with the centre's radius-0 code, 1:d<centre>:code and "
-            "2:d<centre>:code the same with the radius-1 code, 2:e<centre>:code the radius-0 code paired with the "
-            "centre's radius-1 code; example centre>atom); only on carbons whose first-sphere code is in "
+            "2:d<centre>:code the same with the radius-1 code, 2:e<centre>:code and 3:e<centre>:code the radius-0 code "
+            "paired with the centre's radius-1 code; example centre>atom); only on carbons whose first-sphere code is in "
             "hose_c13.csv.gz",
             f"fitted on the nmrshiftdb2 development part (../shared/reference/nmrshiftdb2_dev.jsonl; "
             f"Kuhn & Schlörer, Magn. Reson. Chem. 2015, 53, 582), {len(recs)} records, {today}",

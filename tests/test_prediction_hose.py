@@ -155,9 +155,11 @@ def test_neighbour_features_list_the_atoms_around_by_distance():
     feats = neighbour_features(bits, dist[0], 0)
     # atoms 1 (distance 1), 2 and 3 (distance 2), 4 (distance 3): radius 0, radius 1 and
     # radius 0 paired with the centre each; radius 2 and radius 1 paired for the neighbour,
-    # radius 1 paired and radius 0 paired with the centre's radius 1 for the two atoms at distance 2
-    assert len(feats) == 3 * 4 + 2 + 4
-    assert sorted(int(f.split(":")[0]) for f in feats) == [1] * 5 + [2] * 10 + [3] * 3
+    # radius 1 paired and radius 0 paired with the centre's radius 1 for the two atoms at
+    # distance 2, radius 0 paired with the centre's radius 1 for the one at distance 3
+    assert len(feats) == 3 * 4 + 2 + 4 + 1
+    assert sorted(int(f.split(":")[0]) for f in feats) == [1] * 5 + [2] * 10 + [3] * 4
+    assert f"3:e{bits[0][1]:x}:{bits[4][0]:x}" in feats
     assert f"2:d{bits[0][0]:x}:{bits[3][1]:x}" in feats and f"2:e{bits[0][1]:x}:{bits[2][0]:x}" in feats
     assert f"1:0:{bits[1][0]:x}" in feats and f"3:1:{bits[4][1]:x}" in feats
     assert f"3:c{bits[0][0]:x}:{bits[4][0]:x}" in feats and f"1:d{bits[0][0]:x}:{bits[1][1]:x}" in feats

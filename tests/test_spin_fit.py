@@ -65,3 +65,32 @@ def test_minor_candidate_under_the_major_envelope_at_400_mhz(minor_smiles):
     assert est.integral_ratio is not None and not est.disagreement
     diff = np.abs(np.array(est.fractions) - np.array(est.integral_ratio.fractions))
     assert np.all(diff <= 2.0 * np.hypot(est.uncertainties, est.integral_ratio.uncertainties))
+
+
+def test_trace_multiplets_of_a_candidate_stay_in_the_fit():
+    # the peak picker flags weak multiplets "trace"; where a candidate (the unreacted
+    # substrate, a few per cent) has its signals they are that candidate's lines: masked,
+    # its amount would rest on the overlapped envelope alone. A trace multiplet where no
+    # candidate can have a signal is still masked. Vinyl =CH near 5.8 ppm and =CH2 near
+    # 4.9-5.0 ppm (common practice); the alkyl alcohols have nothing above 4.5 ppm.
+    from specmatch.identification.mixture.estimate import _masks, _prepare_candidates
+    from specmatch.spectra.types import Multiplet, Peak, PeakList
+
+    cands = _prepare_candidates(["CCC1(O)CCCCC1", "C=CC1CCCCC1"], None)
+    trace = [Multiplet(5.77, (5.73, 5.82), 0.2, "ddd", flag="trace"),
+             Multiplet(4.87, (4.86, 4.89), 0.2, "dd", flag="trace"),
+             Multiplet(8.10, (8.09, 8.11), 0.2, "s", flag="trace")]
+    pl = PeakList("1H", tuple(Peak(m.shift, 0.01, flag="trace") for m in trace), tuple(trace),
+                  frequency_mhz=400.0)
+
+    def masked(masks, c):
+        return any(min(a, b) <= c <= max(a, b) for a, b in masks)
+
+    warnings: list[str] = []
+    masks, names, _ = _masks(pl, "CDCl3", warnings, cands)
+    assert not masked(masks, 5.77) and not masked(masks, 4.87)
+    assert masked(masks, 8.10)
+    assert not any("5.77" in w for w in warnings)  # expected, not news
+    # without the substrate among the candidates nothing predicts the vinyl lines there
+    masks, _, _ = _masks(pl, "CDCl3", [], cands[:1])
+    assert masked(masks, 5.77) and masked(masks, 4.87)

@@ -110,8 +110,12 @@ def test_demo_a_from_the_shifts_it_was_made_with_reaches_the_noise():
     from specmatch.identification.mixture.spectrum_fit import fit_spectrum
     from specmatch.spectra import read_jcampdx
 
-    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "sample_spectra"))
-    import make_demo
+    samples = str(Path(__file__).resolve().parents[1] / "sample_spectra")
+    sys.path.insert(0, samples)
+    try:
+        import make_demo
+    finally:
+        sys.path.remove(samples)
 
     case = demo_case("a")
     spec = read_jcampdx(case.h1.read_bytes(), source=case.h1.name)

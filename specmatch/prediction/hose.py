@@ -391,15 +391,17 @@ def _write_gz_csv(path: Path, comments: list[str], header: str, lines: Iterable[
 # checks that the shipped copies hold exactly the CSV's values).
 PACK_MAGIC = b"specmatch-packed-table 1\n"
 _CODE = re.compile(r"[0-9a-f]{8}(\|\d{1,2})?")
+_HEX = frozenset("0123456789abcdef")
 
 
 def _code_key(radius: int, code: str) -> int | None:
     """The packed key of a code: radius, rank tag (0: none, rank + 1) and the 32-bit
     identifier in one integer; None for text that is not a code."""
+    if len(code) == 8:  # no tag: the common case, checked without a regular expression
+        return (radius << 40) | int(code, 16) if _HEX.issuperset(code) else None
     if not _CODE.fullmatch(code):
         return None
-    tag = int(code[9:]) + 1 if len(code) > 8 else 0
-    return (radius << 40) | (tag << 32) | int(code[:8], 16)
+    return (radius << 40) | ((int(code[9:]) + 1) << 32) | int(code[:8], 16)
 
 
 def _packed_path(path: Path) -> Path:

@@ -48,6 +48,18 @@ CASES = [
     "CCC(C)(C)CC",
     "CC(C)(O)C1CC1",
     "CCOC(C)OCC",                # acetaldehyde diethyl acetal: OCH2 H diastereotopic
+    # shortcuts without labelling: no atom whose equivalent ligands the label tells apart
+    "CC(C)CCO",                  # 3-methylbutan-1-ol: CH2 and isopropyl methyls not diastereotopic
+    "CC(C)C(C)(C)C=C",           # twins on two centres, no stereo element
+    "CCC(CC)C(C)C",              # 3-ethyl-2-methylpentane: ethyl CH2 H diastereotopic? (label on a twin branch)
+    "CC(C)OC(C)C",               # diisopropyl ether
+    "C/C=C/C(C)C",               # E given, no tetrahedral element
+    "C/C=C/CC(C)(C)O",
+    # configurations given, chiral, another centre: answered without labelling
+    "C[C@H](O)CC[C@@H](C)CC",
+    "C[C@H](Cl)C(C)C",
+    "CC[C@H](C)[C@@H](C)CC",     # (3R,4S)-3,4-dimethylhexane: meso
+    "C[C@H]1CC[C@H](C(C)C)CC1",  # trans-1-isopropyl-4-methylcyclohexane
 ]
 
 

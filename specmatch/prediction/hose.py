@@ -234,7 +234,8 @@ class HoseTable:
         self.max_radius = max_radius
         self.provenance = provenance
         self.sigma_scale = sigma_scale
-        #: (sorted int keys, n, mean, sd) arrays of the packed copy (see :func:`_code_key`)
+        #: the packed copy: (codes sorted by radius and text, radius -> (first, end) row,
+        #: n, mean, sd arrays)
         self._packed = packed
         self._source = source
         #: per radius: code -> parsed entry (or None), for the codes met so far (common
@@ -253,14 +254,10 @@ class HoseTable:
     def _lookup(self, radius: int, code: str) -> HoseEntry | None:
         """The statistics of one code, all folds (not cached)."""
         if self._packed is not None:
-            key = _code_key(radius, code)
-            if key is None:
-                return None
-            keys, ns, means, sds = self._packed
-            i = bisect_left(keys, key)
-            if i == len(keys) or keys[i] != key:
-                return None
-            return HoseEntry(ns[i], means[i], sds[i])
+            codes, spans, ns, means, sds = self._packed
+            lo, hi = spans.get(radius, (0, 0))
+            i = bisect_left(codes, code, lo, hi)
+            return HoseEntry(ns[i], means[i], sds[i]) if i < hi and codes[i] == code else None
         v = self.rows.get(f'{radius},"{code}"')
         if v is None:
             return None
@@ -389,21 +386,7 @@ def _write_gz_csv(path: Path, comments: list[str], header: str, lines: Iterable[
 # a table is written. The copy records the size and CRC-32 of its CSV: a copy that does
 # not match its CSV is ignored and the CSV read instead (``tests/test_prediction_hose.py``
 # checks that the shipped copies hold exactly the CSV's values).
-PACK_MAGIC = b"specmatch-packed-table 1\n"
-_CODE = re.compile(r"[0-9a-f]{8}(\|\d{1,2})?")
-_HEX = frozenset("0123456789abcdef")
-
-
-def _code_key(radius: int, code: str) -> int | None:
-    """The packed key of a code: radius, rank tag (0: none, rank + 1) and the 32-bit
-    identifier in one integer; None for text that is not a code."""
-    if len(code) == 8:  # no tag: the common case, checked without a regular expression
-        return (radius << 40) | int(code, 16) if _HEX.issuperset(code) else None
-    if not _CODE.fullmatch(code):
-        return None
-    return (radius << 40) | ((int(code[9:]) + 1) << 32) | int(code[:8], 16)
-
-
+PACK_MAGIC = b"specmatch-packed-table 2\n"
 def _packed_path(path: Path) -> Path:
     return path.with_name(path.name.replace(".csv.gz", ".packed"))
 
@@ -451,23 +434,25 @@ def _read_packed(path: Path) -> tuple[dict, list] | None:
 
 
 def pack_table(path: Path) -> None:
-    """Write the packed copy of a correction table's CSV (keys, n, mean, sd)."""
+    """Write the packed copy of a correction table's CSV: per radius the codes (one text)
+    and their n, mean and sd (arrays)."""
     rows, shrink, max_radius, scale, provenance = _read_csv_table(path)
     items = []
     for key, v in rows.items():
         r, code = key.split(",", 1)
-        k = _code_key(int(r), code[1:-1])
-        if k is None:
-            raise ValueError(f"{path.name}: {code} is not an environment code; cannot pack")
+        code = code[1:-1]
+        if "\n" in code:
+            raise ValueError(f"{path.name}: a code holds a line break; cannot pack")
         n_t, mean_t, sd_t = v.split(",", 3)[:3]
-        items.append((k, int(n_t), float(mean_t), float(sd_t)))
+        items.append((int(r), code, int(n_t), float(mean_t), float(sd_t)))
     items.sort()
-    if len({k for k, *_ in items}) != len(items):
-        raise ValueError(f"{path.name}: repeated codes; cannot pack")
+    radii: dict[int, int] = {}
+    for r, *_ in items:
+        radii[r] = radii.get(r, 0) + 1
     _write_packed(path, {"kind": "codes", "shrink": shrink, "max_radius": max_radius, "sigma_scale": scale,
-                         "provenance": provenance},
-                  [array("Q", [x[0] for x in items]), array("I", [x[1] for x in items]),
-                   array("d", [x[2] for x in items]), array("d", [x[3] for x in items])])
+                         "provenance": provenance, "radii": sorted(radii.items())},
+                  [array("B", "\n".join(x[1] for x in items).encode("ascii")), array("I", [x[2] for x in items]),
+                   array("d", [x[3] for x in items]), array("d", [x[4] for x in items])])
 
 
 def read_packed_table(path: Path) -> HoseTable | None:
@@ -476,8 +461,21 @@ def read_packed_table(path: Path) -> HoseTable | None:
     if got is None or got[0].get("kind") != "codes":
         return None
     h, arrays = got
+    if [a.typecode for a in arrays] != ["B", "I", "d", "d"]:
+        return None
+    text, ns, means, sds = arrays
+    try:
+        codes = text.tobytes().decode("ascii").split("\n") if len(text) else []
+    except UnicodeDecodeError:
+        return None
+    if len(codes) != len(ns):
+        return None
+    spans, at = {}, 0
+    for r, n in h["radii"]:
+        spans[r] = (at, at + n)  # rows sorted by code text within each radius: bisect finds them
+        at += n
     return HoseTable(None, h["shrink"], h["max_radius"], h["provenance"], h["sigma_scale"],
-                     packed=tuple(arrays), source=path)
+                     packed=(codes, spans, ns, means, sds), source=path)
 
 
 @lru_cache(maxsize=4)
@@ -673,8 +671,14 @@ def read_packed_layer(path: Path) -> NeighbourLayer | None:
     got = _read_packed(path)
     if got is None or got[0].get("kind") != "layer":
         return None
-    h, (text, weights) = got
-    codes = text.tobytes().decode("ascii").split("\n") if len(text) else []
+    h, arrays = got
+    if [a.typecode for a in arrays] != ["B", "d"]:
+        return None
+    text, weights = arrays
+    try:
+        codes = text.tobytes().decode("ascii").split("\n") if len(text) else []
+    except UnicodeDecodeError:
+        return None
     if len(codes) != len(weights):
         return None
     by_prefix, at = {}, 0

@@ -32,7 +32,6 @@ the next run removes folders left by runs that were killed outright.
 
 from __future__ import annotations
 
-import concurrent.futures as cf
 import os
 import shutil
 import signal
@@ -43,9 +42,15 @@ import time
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Callable, Iterable, Iterator, Sequence
+from typing import TYPE_CHECKING, Any, Callable, Iterable, Iterator, Sequence
 
 from .errors import SpecmatchError
+
+if TYPE_CHECKING:
+    import concurrent.futures as cf
+
+# concurrent.futures (and with it logging, threading, multiprocessing) is imported only
+# when processes run: an inline run (small batches, --workers 0) starts without it
 
 __all__ = ["MAX_AUTO_WORKERS", "Outcome", "Plan", "Stopped", "plan_workers", "run_tasks",
            "scratch_dir"]
@@ -256,6 +261,8 @@ class _Local:
         self.pool = self._make()
 
     def _make(self) -> cf.ProcessPoolExecutor:
+        import concurrent.futures as cf
+        import concurrent.futures.process  # noqa: F401 - cf.process below
         import multiprocessing
 
         return cf.ProcessPoolExecutor(max_workers=self.n,
@@ -264,14 +271,18 @@ class _Local:
                                       initargs=(os.getpid(), self.scratch, self.init))
 
     def submit(self, fn: Callable, *args: Any) -> Any:
+        import concurrent.futures.process as cfp
+
         try:
             return self.pool.submit(fn, *args)
-        except cf.process.BrokenProcessPool:
+        except cfp.BrokenProcessPool:
             self.pool.shutdown(wait=False, cancel_futures=True)
             self.pool = self._make()
             return self.pool.submit(fn, *args)
 
     def wait_some(self, pending: Iterable[Any]) -> Iterable[Any]:
+        import concurrent.futures as cf
+
         return cf.wait(list(pending), return_when=cf.FIRST_COMPLETED)[0]
 
     def close(self, *, clean: bool) -> None:
@@ -394,6 +405,9 @@ def run_tasks(fn: Callable[[Any], Any], items: Iterable[Any], plan: Plan, *,
 
 def _drive(pool: Any, fn: Callable, items: Iterable[Any], ordered: bool,
            chunk: int) -> Iterator[list[Outcome]]:
+    import concurrent.futures as cf
+    import concurrent.futures.process  # noqa: F401 - cf.process below
+
     # a few chunks queued per worker hide the round trip (a scheduler's is longer);
     # only in flight, so memory stays bounded and an interruption loses little
     window = max(32, 8 * pool.n) if pool.remote else max(8, 4 * pool.n)

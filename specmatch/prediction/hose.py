@@ -41,8 +41,6 @@ weights fitted without each fold for the same purpose). Users never need it.
 
 from __future__ import annotations
 
-import gzip
-import hashlib
 import io
 import json
 import math
@@ -70,6 +68,8 @@ CROSS_VALIDATED = os.environ.get("SPECMATCH_CROSS_VALIDATED", "") == "1"
 
 def fold_of_block(block: str) -> int:
     """Development fold of an InChIKey connectivity block (as the fitting scripts split)."""
+    import hashlib  # cross-validated mode and the fits only
+
     return int(hashlib.md5(block.encode()).hexdigest(), 16) % FOLDS
 
 
@@ -331,6 +331,8 @@ _ROW = re.compile(r'^(\d+,"[^"]*"),(.*)$', re.M)
 
 def _read_csv_table(path: Path) -> tuple[dict[str, str], float, int, float, str]:
     """Rows, shrink, max_radius, sigma_scale and provenance of a table's CSV file."""
+    import gzip  # the CSV is read only without (or beside) its packed copy
+
     head: list[str] = []
     shrink, max_radius, scale = 4.0, MAX_RADIUS, 1.0
     with gzip.open(path, "rt", encoding="utf-8", newline="") as fh:
@@ -368,6 +370,8 @@ def write_table(path: Path, rows: list[tuple[int, str, int, float, float, str, s
 def _write_gz_csv(path: Path, comments: list[str], header: str, lines: Iterable[str]) -> None:
     """Write ``# comment`` lines, a header and data lines as gzip CSV; mtime 0 so the
     same table always gives the same bytes."""
+    import gzip
+
     with gzip.GzipFile(path, "wb", mtime=0) as raw:
         with io.TextIOWrapper(raw, encoding="utf-8", newline="") as fh:
             for line in comments:
@@ -640,6 +644,8 @@ _LAYER_ROW = re.compile(r'^([0-9a-f:]+),(.*)$', re.M)
 
 
 def _read_csv_layer(path: Path) -> tuple[dict[str, str], str]:
+    import gzip
+
     with gzip.open(path, "rt", encoding="utf-8", newline="") as fh:
         text = fh.read()
     head = [line[1:].strip() for line in text[: text.find("\nfeature,")].splitlines()]

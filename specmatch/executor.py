@@ -20,7 +20,10 @@ Local workers are *spawned* (they start clean: no copied database connections, l
 or threads of the parent), unless the caller asks for ``fork=True``: a caller whose
 process holds no connections, locks or threads (``predict --batch``, ``rank --batch``)
 forks, so workers start in milliseconds with the parent's imports and tables already
-loaded (where the platform can fork; elsewhere they are spawned). They end with their parent whatever stops it: on Linux each
+loaded (where the platform can fork; elsewhere they are spawned). Forked workers over a
+list of items are fed by :class:`_Forked` (two pipes per worker, chunks sent as item
+positions, no threads or multiprocessing machinery); other local runs use
+``concurrent.futures``. They end with their parent whatever stops it: on Linux each
 worker asks the kernel for SIGTERM when its parent dies (``prctl(PR_SET_PDEATHSIG)``),
 so a SIGKILL of the parent takes the workers with it; SIGTERM, SIGHUP and Ctrl-C in the
 parent stop the workers before :func:`run_tasks` re-raises (as :class:`Stopped` or
@@ -32,7 +35,6 @@ the next run removes folders left by runs that were killed outright.
 
 from __future__ import annotations
 
-import concurrent.futures as cf
 import os
 import shutil
 import signal
@@ -43,9 +45,15 @@ import time
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Callable, Iterable, Iterator, Sequence
+from typing import TYPE_CHECKING, Any, Callable, Iterable, Iterator, Sequence
 
 from .errors import SpecmatchError
+
+if TYPE_CHECKING:
+    import concurrent.futures as cf
+
+# concurrent.futures (and with it logging, threading, multiprocessing) is imported only
+# when processes run: an inline run (small batches, --workers 0) starts without it
 
 __all__ = ["MAX_AUTO_WORKERS", "Outcome", "Plan", "Stopped", "plan_workers", "run_tasks",
            "scratch_dir"]
@@ -256,6 +264,8 @@ class _Local:
         self.pool = self._make()
 
     def _make(self) -> cf.ProcessPoolExecutor:
+        import concurrent.futures as cf
+        import concurrent.futures.process  # noqa: F401 - cf.process below
         import multiprocessing
 
         return cf.ProcessPoolExecutor(max_workers=self.n,
@@ -264,14 +274,18 @@ class _Local:
                                       initargs=(os.getpid(), self.scratch, self.init))
 
     def submit(self, fn: Callable, *args: Any) -> Any:
+        import concurrent.futures.process as cfp
+
         try:
             return self.pool.submit(fn, *args)
-        except cf.process.BrokenProcessPool:
+        except cfp.BrokenProcessPool:
             self.pool.shutdown(wait=False, cancel_futures=True)
             self.pool = self._make()
             return self.pool.submit(fn, *args)
 
     def wait_some(self, pending: Iterable[Any]) -> Iterable[Any]:
+        import concurrent.futures as cf
+
         return cf.wait(list(pending), return_when=cf.FIRST_COMPLETED)[0]
 
     def close(self, *, clean: bool) -> None:
@@ -290,6 +304,215 @@ class _Local:
             if p.is_alive():
                 p.kill()
                 p.join(1)
+
+
+def _can_fork() -> bool:
+    return hasattr(os, "fork") and sys.platform.startswith("linux")
+
+
+def _read_exact(fd: int, n: int) -> bytes | None:
+    """``n`` bytes from a pipe, None at its end."""
+    data = b""
+    while len(data) < n:
+        got = os.read(fd, n - len(data))
+        if not got:
+            return None
+        data += got
+    return data
+
+
+def _write_all(fd: int, data: bytes) -> None:
+    view = memoryview(data)
+    while view:
+        view = view[os.write(fd, view):]
+
+
+def _encode_results(start: int, results: list[tuple[bool, Any]]) -> bytes:
+    """A result frame (length, then the pickled chunk); a value that cannot be pickled
+    fails its own task only."""
+    import pickle
+
+    try:
+        payload = pickle.dumps((start, results), pickle.HIGHEST_PROTOCOL)
+    except Exception:  # noqa: BLE001 - find the task(s) whose value does not pickle
+        safe = []
+        for ok, value in results:
+            try:
+                pickle.dumps(value, pickle.HIGHEST_PROTOCOL)
+                safe.append((ok, value))
+            except Exception as exc:  # noqa: BLE001
+                safe.append((False, f"worker failure ({type(exc).__name__}: {exc})"))
+        payload = pickle.dumps((start, safe), pickle.HIGHEST_PROTOCOL)
+    return len(payload).to_bytes(8, "little") + payload
+
+
+class _Worker:
+    __slots__ = ("pid", "task_w", "result_r", "inflight", "buf")
+
+    def __init__(self, pid: int, task_w: int, result_r: int):
+        self.pid, self.task_w, self.result_r = pid, task_w, result_r
+        self.inflight: list[tuple[int, int]] = []  # chunks sent, in order: (first, end) item
+        self.buf = bytearray()
+
+
+class _Forked:
+    """Local workers forked from this process and fed over two pipes each: the workers
+    inherit the item list, so a chunk is sent as two numbers and comes back as one
+    pickled list of results. No threads, queues or multiprocessing machinery (their
+    imports and per-chunk hops cost more than a small batch's tasks); a worker that
+    dies fails its own chunks with :data:`WORKER_DIED` and is replaced."""
+
+    DEPTH = 2  # chunks queued per worker: one running, one waiting
+
+    def __init__(self, n: int, scratch: str, init: Callable[[], Any] | None, fn: Callable[[Any], Any],
+                 items: Sequence[Any]):
+        self.n, self.scratch, self.init, self.fn, self.items = n, scratch, init, fn, items
+        self.workers: dict[int, _Worker] = {}  # by result pipe
+        for _ in range(n):
+            self._start()
+
+    def _start(self) -> None:
+        task_r, task_w = os.pipe()
+        result_r, result_w = os.pipe()
+        for stream in (sys.stdout, sys.stderr):  # a buffered line must not be written twice
+            try:
+                stream.flush()
+            except (OSError, ValueError, AttributeError):
+                pass
+        parent = os.getpid()
+        pid = os.fork()
+        if pid == 0:  # pragma: no cover - runs in the worker
+            code = 0
+            try:
+                os.close(task_w)
+                os.close(result_r)
+                for w in self.workers.values():  # the other workers' pipe ends: their EOFs must reach them
+                    for fd in (w.task_w, w.result_r):
+                        try:
+                            os.close(fd)
+                        except OSError:
+                            pass
+                _worker_init(parent, self.scratch, self.init)
+                while True:
+                    head = _read_exact(task_r, 16)
+                    if head is None:
+                        break  # the parent closed the pipe: no more work
+                    first, end = int.from_bytes(head[:8], "little"), int.from_bytes(head[8:], "little")
+                    _write_all(result_w, _encode_results(first, _call_chunk(self.fn, self.items[first:end])))
+            except BaseException:  # noqa: BLE001 - the worker ends here whatever happens
+                code = 1
+            finally:
+                os._exit(code)
+        os.close(task_r)
+        os.close(result_w)
+        self.workers[result_r] = _Worker(pid, task_w, result_r)
+
+    def _send(self, w: _Worker, first: int, end: int) -> None:
+        w.inflight.append((first, end))
+        _write_all(w.task_w, first.to_bytes(8, "little") + end.to_bytes(8, "little"))
+
+    def _lost(self, w: _Worker) -> list[tuple[int, int]]:
+        """Forget a worker whose result pipe ended; its unfinished chunks."""
+        del self.workers[w.result_r]
+        for fd in (w.task_w, w.result_r):
+            try:
+                os.close(fd)
+            except OSError:
+                pass
+        try:
+            os.waitpid(w.pid, 0)
+        except ChildProcessError:
+            pass
+        return w.inflight
+
+    def drive(self, ordered: bool, chunk: int) -> Iterator[list[Outcome]]:
+        import pickle
+        import select
+
+        n_items = len(self.items)
+        todo = [(first, min(n_items, first + chunk)) for first in range(0, n_items, chunk)]
+        todo.reverse()  # popped from the end: first chunk first
+        buffered: dict[int, Outcome] = {}
+        next_out = 0
+        while True:
+            # top up: each worker keeps DEPTH chunks queued (16 bytes each: a pipe never fills)
+            for w in list(self.workers.values()):
+                while todo and len(w.inflight) < self.DEPTH:
+                    try:
+                        self._send(w, *todo.pop())
+                    except OSError:  # the worker is gone: the end of its result pipe shows it
+                        break
+            if not any(w.inflight for w in self.workers.values()):
+                return
+            ready, _, _ = select.select(list(self.workers), [], [])
+            group: list[Outcome] = []
+            for fd in ready:
+                w = self.workers[fd]
+                data = os.read(fd, 1 << 20)
+                if not data:  # the worker died: in its first chunk (a worker reads the next one
+                    # only after answering), so that one fails and the ones queued behind it go again
+                    lost = self._lost(w)
+                    if lost:
+                        first, end = lost[0]
+                        group += [Outcome(i, False, None, WORKER_DIED) for i in range(first, end)]
+                        todo += reversed(lost[1:])
+                    if todo:  # work left: a fresh worker takes its place
+                        self._start()
+                    continue
+                w.buf += data
+                while len(w.buf) >= 8:
+                    size = int.from_bytes(w.buf[:8], "little")
+                    if len(w.buf) < 8 + size:
+                        break
+                    first, results = pickle.loads(w.buf[8:8 + size])
+                    del w.buf[:8 + size]
+                    w.inflight.pop(0)
+                    for i, (ok, value) in enumerate(results, start=first):
+                        group.append(Outcome(i, ok, value if ok else None, "" if ok else str(value)))
+            if ordered:
+                for o in group:
+                    buffered[o.index] = o
+                group = []
+                while next_out in buffered:
+                    group.append(buffered.pop(next_out))
+                    next_out += 1
+            if group:
+                yield group
+
+    def close(self, *, clean: bool) -> None:
+        workers = list(self.workers.values())
+        self.workers = {}
+        for w in workers:
+            try:
+                os.close(w.task_w)  # end of work: a waiting worker exits
+            except OSError:
+                pass
+            if not clean:
+                try:
+                    os.kill(w.pid, signal.SIGTERM)
+                except ProcessLookupError:
+                    pass
+        deadline = time.monotonic() + 5
+        for w in workers:
+            while True:
+                try:
+                    done, _ = os.waitpid(w.pid, os.WNOHANG)
+                except ChildProcessError:
+                    break
+                if done:
+                    break
+                if time.monotonic() > deadline:
+                    try:
+                        os.kill(w.pid, signal.SIGKILL)
+                        os.waitpid(w.pid, 0)
+                    except (ProcessLookupError, ChildProcessError):
+                        pass
+                    break
+                time.sleep(0.002)
+            try:
+                os.close(w.result_r)
+            except OSError:
+                pass
 
 
 class _Dask:
@@ -380,6 +603,15 @@ def run_tasks(fn: Callable[[Any], Any], items: Iterable[Any], plan: Plan, *,
                 finally:
                     _SCRATCH = before
                 return
+            if plan.kind == "processes" and fork and _can_fork() and isinstance(items, (list, tuple)):
+                forked = _Forked(plan.workers, scratch, initializer, fn, items)
+                clean = False
+                try:
+                    yield from forked.drive(ordered, chunk)
+                    clean = True
+                finally:
+                    forked.close(clean=clean)
+                return
             pool: Any = _Dask(plan.scheduler) if plan.kind == "dask" else _Local(
                 plan.workers, scratch, initializer, fork)
             clean = False
@@ -394,6 +626,9 @@ def run_tasks(fn: Callable[[Any], Any], items: Iterable[Any], plan: Plan, *,
 
 def _drive(pool: Any, fn: Callable, items: Iterable[Any], ordered: bool,
            chunk: int) -> Iterator[list[Outcome]]:
+    import concurrent.futures as cf
+    import concurrent.futures.process  # noqa: F401 - cf.process below
+
     # a few chunks queued per worker hide the round trip (a scheduler's is longer);
     # only in flight, so memory stays bounded and an interruption loses little
     window = max(32, 8 * pool.n) if pool.remote else max(8, 4 * pool.n)

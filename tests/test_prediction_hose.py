@@ -221,3 +221,51 @@ def test_layer_shifts_of_a_molecule_equal_the_feature_sums():
         assert value == pytest.approx(layer.shift(neighbour_features(bits, dist[centre], centre)), abs=1e-9)
     assert layer.shifts(hex_codes(bits), dist, centres, exclude_fold=2) == pytest.approx(
         [layer.shift(neighbour_features(bits, dist[c], c), exclude_fold=2) for c in centres], abs=1e-9)
+
+
+# ------------------------------------------------------------------ packed copies
+@pytest.mark.parametrize("name", ["hose_c13.csv.gz", "hose_h1.csv.gz"])
+def test_shipped_packed_table_holds_exactly_the_csv_values(name):
+    # the packed copy is what predictions read; the CSV (provenance, folds, examples) is the
+    # table: every row of the CSV must come back bit for bit, and nothing else
+    from specmatch.prediction.hose import TABLE_DIR, read_packed_table, read_table
+
+    packed, csv = read_packed_table(TABLE_DIR / name), read_table(TABLE_DIR / name)
+    assert packed is not None, f"{name}: packed copy missing or stale; run hose.pack_table on it"
+    assert (packed.shrink, packed.max_radius, packed.sigma_scale, packed.provenance) == \
+        (csv.shrink, csv.max_radius, csv.sigma_scale, csv.provenance)
+    assert len(packed._packed[0]) == len(csv.rows)
+    for key in csv.rows:
+        r, code = key.split(",", 1)
+        a, b = packed.entry(int(r), code[1:-1]), csv.entry(int(r), code[1:-1])
+        assert a == b and repr(a) == repr(b), key
+    assert packed.entry(1, "zzzzzzzz") is None and packed.entry(1, "0104b75c|7") is None
+
+
+def test_shipped_packed_layer_holds_exactly_the_csv_weights():
+    from specmatch.prediction.hose import TABLE_DIR, read_layer, read_packed_layer
+
+    packed, csv = read_packed_layer(TABLE_DIR / "layer_c13.csv.gz"), read_layer(TABLE_DIR / "layer_c13.csv.gz")
+    assert packed is not None, "layer_c13: packed copy missing or stale; run hose.pack_layer on it"
+    assert packed.provenance == csv.provenance
+    assert packed._by_prefix(None) == csv._by_prefix(None)
+    assert all(repr(packed.weight(f)) == repr(csv.weight(f)) for f in csv.rows)
+    assert sum(len(v) for v in packed._flat[None].values()) == len(csv.rows)
+
+
+def test_written_table_gets_its_packed_copy_and_a_stale_copy_is_ignored(tmp_path):
+    from specmatch.prediction.hose import read_packed_table, read_table, write_table
+
+    path = tmp_path / "hose_test.csv.gz"
+    rows = [(1, "0104b75c", 3, 0.25, 0.5, "0:3:0.2500:0.5000", "C(C)C"),
+            (2, "0104b75c|1", 1, -1.5, 0.0, "2:1:-1.5000:0.0000", "C(C)C")]
+    write_table(path, rows, ["test table"], 2.0, 5, 1.1)
+    packed = read_packed_table(path)
+    assert packed is not None and packed.entry(2, "0104b75c|1") == read_table(path).entry(2, "0104b75c|1")
+    assert packed.entry(1, "0104b75c") == (3, 0.25, 0.5) and packed.entry(2, "0104b75c") is None
+    # the CSV rewritten (another fit) without its copy: the copy no longer counts
+    from specmatch.prediction.hose import _write_gz_csv
+
+    _write_gz_csv(path, ["test table"], "radius,code,n,mean_ppm,sd_ppm,by_fold,example",
+                  ['1,"0104b75c",3,9.0000,0.5000,0:3:9.0000:0.5000,C(C)C'])
+    assert read_packed_table(path) is None and read_table(path).entry(1, "0104b75c").mean == 9.0

@@ -48,6 +48,18 @@ CASES = [
     "CCC(C)(C)CC",
     "CC(C)(O)C1CC1",
     "CCOC(C)OCC",                # acetaldehyde diethyl acetal: OCH2 H diastereotopic
+    # shortcuts without labelling: no atom whose equivalent ligands the label tells apart
+    "CC(C)CCO",                  # 3-methylbutan-1-ol: CH2 and isopropyl methyls not diastereotopic
+    "CC(C)C(C)(C)C=C",           # twins on two centres, no stereo element
+    "CCC(CC)C(C)C",              # 3-ethyl-2-methylpentane: ethyl CH2 H diastereotopic? (label on a twin branch)
+    "CC(C)OC(C)C",               # diisopropyl ether
+    "C/C=C/C(C)C",               # E given, no tetrahedral element
+    "C/C=C/CC(C)(C)O",
+    # configurations given, chiral, another centre: answered without labelling
+    "C[C@H](O)CC[C@@H](C)CC",
+    "C[C@H](Cl)C(C)C",
+    "CC[C@H](C)[C@@H](C)CC",     # (3R,4S)-3,4-dimethylhexane: meso
+    "C[C@H]1CC[C@H](C(C)C)CC1",  # trans-1-isopropyl-4-methylcyclohexane
 ]
 
 
@@ -155,3 +167,29 @@ def test_batch_command_loads_no_numpy(tmp_path):
     got = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert got.stdout.split()[-2:] == ["0", "False"], got.stdout + got.stderr
     assert len(out.read_text(encoding="utf-8").splitlines()) == 3
+
+
+def _dies_on_13(x: int):
+    import os
+
+    if x == 13:
+        os._exit(3)  # as a segfault or an out-of-memory kill would
+    if x == 20:
+        raise ValueError("bad item")
+    if x == 30:
+        return lambda: x  # a value that cannot be pickled back to the parent
+    return 2 * x
+
+
+def test_forked_worker_that_dies_fails_only_its_running_chunk():
+    # forked workers are fed by position over pipes: a worker that dies fails the chunk it
+    # was running (4 items here), the chunk queued behind it goes to its replacement, an
+    # exception or an unpicklable value fails its own item, and the order is kept
+    from specmatch.executor import WORKER_DIED
+
+    out = [o for grp in run_tasks(_dies_on_13, list(range(50)), Plan("processes", 2), ordered=True,
+                                  chunk=4, fork=True) for o in grp]
+    assert [o.index for o in out] == list(range(50))
+    assert [o.index for o in out if o.error == WORKER_DIED] == [12, 13, 14, 15]
+    assert "ValueError" in out[20].error and "pickle" in out[30].error
+    assert all(o.value == 2 * o.index for o in out if o.ok) and sum(o.ok for o in out) == 50 - 6

@@ -142,7 +142,9 @@ PER_WORKER = 40
 def _warm() -> None:
     """Load the scorers, the predictor's tables and the error model once per process."""
     from ..prediction.batch import warm
-    from . import hypotheses, scoring  # noqa: F401 - imported for the side effect: loaded once
+    # imported for the side effect (loaded once, before workers are forked; ranking too, or
+    # each worker would import it on its first task)
+    from . import hypotheses, ranking, scoring  # noqa: F401
     from .errormodel import load_error_model
 
     load_error_model()
@@ -175,7 +177,10 @@ def rank_batch(in_path: str, out_path: str, progress: Callable[[int, str], Any] 
     failed = 0
     bar_cm = progress(len(lines), "rank") if progress else nullcontext()
     _warm()  # before the workers are forked: they inherit the loaded modules and model
-    with out, bar_cm as bar, closing(run_tasks(_row, items, plan, ordered=True, chunk=16,
+    # about 8 chunks per worker: few round trips, and the last chunks are small enough that
+    # both workers finish together (a task takes 2-20 ms)
+    chunk = max(1, min(16, len(items) // (8 * max(1, plan.workers))))
+    with out, bar_cm as bar, closing(run_tasks(_row, items, plan, ordered=True, chunk=chunk,
                                                 initializer=_warm, fork=True)) as outcomes:
         for group in outcomes:
             for o in group:

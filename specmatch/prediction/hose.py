@@ -41,13 +41,15 @@ weights fitted without each fold for the same purpose). Users never need it.
 
 from __future__ import annotations
 
-import gzip
-import hashlib
 import io
+import json
 import math
 import os
 import re
-from dataclasses import dataclass, field
+import sys
+import zlib
+from array import array
+from bisect import bisect_left
 from functools import lru_cache
 from collections.abc import Iterable, Iterator
 from pathlib import Path
@@ -66,6 +68,8 @@ CROSS_VALIDATED = os.environ.get("SPECMATCH_CROSS_VALIDATED", "") == "1"
 
 def fold_of_block(block: str) -> int:
     """Development fold of an InChIKey connectivity block (as the fitting scripts split)."""
+    import hashlib  # cross-validated mode and the fits only
+
     return int(hashlib.md5(block.encode()).hexdigest(), 16) % FOLDS
 
 
@@ -204,16 +208,15 @@ class HoseEntry(NamedTuple):
     sd: float
 
 
-@dataclass(frozen=True)
 class HoseTable:
     """A fitted correction table for one nucleus.
 
     Attributes
     ----------
     rows : dict
-        ``'radius,"code"'`` -> ``"n,mean,sd"``, the file's own text: parsed on
-        lookup (:meth:`entry`), so reading 10^5 rows costs a regular-expression
-        pass instead of 10^5 conversions at start-up.
+        ``'radius,"code"'`` -> ``"n,mean,sd,by_fold,example"``, the file's own text
+        (parsed on lookup). A table read from its packed copy (:func:`read_packed_table`)
+        reads the CSV for this only when asked (the by-fold statistics, tests).
     shrink : float
         The k of the count shrinkage ``n / (n + k)``.
     max_radius : int
@@ -224,32 +227,59 @@ class HoseTable:
         What the table was fitted on and how (the file's header lines).
     """
 
-    rows: dict[str, str]
-    shrink: float
-    max_radius: int
-    provenance: str
-    sigma_scale: float = 1.0
-    #: parsed entries met so far (common codes recur in almost every molecule)
-    _parsed: dict[str, HoseEntry | None] = field(default_factory=dict, compare=False, repr=False)
+    def __init__(self, rows: dict[str, str] | None, shrink: float, max_radius: int, provenance: str,
+                 sigma_scale: float = 1.0, *, packed: tuple | None = None, source: Path | None = None):
+        self._rows = rows
+        self.shrink = shrink
+        self.max_radius = max_radius
+        self.provenance = provenance
+        self.sigma_scale = sigma_scale
+        #: the packed copy: (codes sorted by radius and text, radius -> (first, end) row,
+        #: n, mean, sd arrays)
+        self._packed = packed
+        self._source = source
+        #: per radius: code -> parsed entry (or None), for the codes met so far (common
+        #: codes recur in almost every molecule)
+        self._seen: list[dict[str, HoseEntry | None]] = [{} for _ in range(MAX_RADIUS + 2)]
+
+    def __repr__(self) -> str:
+        return f"HoseTable(shrink={self.shrink:g}, max_radius={self.max_radius}, sigma_scale={self.sigma_scale:g})"
+
+    @property
+    def rows(self) -> dict[str, str]:
+        if self._rows is None:  # packed copy: the CSV text on demand
+            self._rows = _read_csv_table(self._source)[0]
+        return self._rows
+
+    def _lookup(self, radius: int, code: str) -> HoseEntry | None:
+        """The statistics of one code, all folds (not cached)."""
+        if self._packed is not None:
+            codes, spans, ns, means, sds = self._packed
+            lo, hi = spans.get(radius, (0, 0))
+            i = bisect_left(codes, code, lo, hi)
+            return HoseEntry(ns[i], means[i], sds[i]) if i < hi and codes[i] == code else None
+        v = self.rows.get(f'{radius},"{code}"')
+        if v is None:
+            return None
+        n_t, mean_t, sd_t = v.split(",", 3)[:3]
+        return HoseEntry(int(n_t), float(mean_t), float(sd_t))
 
     def entry(self, radius: int, code: str, exclude_fold: int | None = None) -> HoseEntry | None:
         """Statistics of one code at one radius, or None if the code was not seen.
 
         With ``exclude_fold`` the statistics leave out that development fold.
         """
-        key = f'{radius},"{code}"'
         if exclude_fold is None:
-            got = self._parsed.get(key, False)
-            if got is not False:
-                return got
-        v = self.rows.get(key)
+            seen = self._seen[radius] if radius < len(self._seen) else {}
+            got = seen.get(code, False)
+            if got is False:
+                got = seen[code] = self._lookup(radius, code)
+            return got
+        v = self.rows.get(f'{radius},"{code}"')
         if v is None:
             return None
         n_t, mean_t, sd_t, folds = v.split(",")[:4]
         n, mean, sd = int(n_t), float(mean_t), float(sd_t)
-        if exclude_fold is None:
-            e = self._parsed[key] = HoseEntry(n, mean, sd)
-            return e
         for part in folds.split(";"):
             f, nf_t, mf_t, sf_t = part.split(":")
             if int(f) == exclude_fold:
@@ -275,10 +305,16 @@ class HoseTable:
         var = base_sigma * base_sigma
         depth = 0
         k = self.shrink
+        seen = self._seen
         for r, code in enumerate(codes, start=1):
             if r > self.max_radius:
                 break
-            e = self.entry(r, code, exclude_fold)
+            if exclude_fold is None and r < len(seen):  # entry() inlined: called per atom and radius
+                e = seen[r].get(code, False)
+                if e is False:
+                    e = seen[r][code] = self._lookup(r, code)
+            else:
+                e = self.entry(r, code, exclude_fold)
             if e is None:
                 break
             w = e.n / (e.n + k)
@@ -293,8 +329,10 @@ class HoseTable:
 _ROW = re.compile(r'^(\d+,"[^"]*"),(.*)$', re.M)
 
 
-def read_table(path: Path) -> HoseTable:
-    """Read a correction table (gzip CSV with ``#`` provenance lines, written by :func:`write_table`)."""
+def _read_csv_table(path: Path) -> tuple[dict[str, str], float, int, float, str]:
+    """Rows, shrink, max_radius, sigma_scale and provenance of a table's CSV file."""
+    import gzip  # the CSV is read only without (or beside) its packed copy
+
     head: list[str] = []
     shrink, max_radius, scale = 4.0, MAX_RADIUS, 1.0
     with gzip.open(path, "rt", encoding="utf-8", newline="") as fh:
@@ -307,24 +345,33 @@ def read_table(path: Path) -> HoseTable:
             max_radius = int(line.split()[2])
         elif line.startswith("# sigma_scale "):
             scale = float(line.split()[2])
-    return HoseTable(dict(_ROW.findall(text)), shrink, max_radius, "\n".join(head), scale)
+    return dict(_ROW.findall(text)), shrink, max_radius, scale, "\n".join(head)
+
+
+def read_table(path: Path) -> HoseTable:
+    """Read a correction table (gzip CSV with ``#`` provenance lines, written by :func:`write_table`)."""
+    rows, shrink, max_radius, scale, provenance = _read_csv_table(path)
+    return HoseTable(rows, shrink, max_radius, provenance, scale)
 
 
 def write_table(path: Path, rows: list[tuple[int, str, int, float, float, str, str]], provenance: list[str],
                 shrink: float, max_radius: int, sigma_scale: float) -> None:
     """Write a correction table: provenance lines, then radius, code, n, mean, sd, the
     per-fold statistics (``fold:n:mean:sd`` joined by ``;``) and an example environment
-    (SMILES fragment, no commas) per row."""
+    (SMILES fragment, no commas) per row; then its packed copy (:func:`pack_table`)."""
     settings = [f"shrink {shrink:g}", f"max_radius {max_radius}", f"sigma_scale {sigma_scale:.3f}"]
     # codes are always quoted (they hold commas) and never contain quotes
     _write_gz_csv(path, [*provenance, *settings], "radius,code,n,mean_ppm,sd_ppm,by_fold,example",
                   (f'{r},"{code}",{n},{mean:.4f},{sd:.4f},{folds},{example}'
                    for r, code, n, mean, sd, folds, example in rows))
+    pack_table(path)
 
 
 def _write_gz_csv(path: Path, comments: list[str], header: str, lines: Iterable[str]) -> None:
     """Write ``# comment`` lines, a header and data lines as gzip CSV; mtime 0 so the
     same table always gives the same bytes."""
+    import gzip
+
     with gzip.GzipFile(path, "wb", mtime=0) as raw:
         with io.TextIOWrapper(raw, encoding="utf-8", newline="") as fh:
             for line in comments:
@@ -334,13 +381,115 @@ def _write_gz_csv(path: Path, comments: list[str], header: str, lines: Iterable[
                 fh.write(line + "\n")
 
 
+# ------------------------------------------------------------------ packed copies
+# The CSV files are the tables (readable, with provenance, by-fold statistics and
+# examples). Reading 10^5 rows of text costs about 0.2 s per start, more than a small
+# batch's predictions, so each CSV has a packed copy beside it (``.packed``: a JSON header
+# line with the provenance and the settings, then the values a prediction uses as
+# binary arrays), derived from the CSV by :func:`pack_table` / :func:`pack_layer` whenever
+# a table is written. The copy records the size and CRC-32 of its CSV: a copy that does
+# not match its CSV is ignored and the CSV read instead (``tests/test_prediction_hose.py``
+# checks that the shipped copies hold exactly the CSV's values).
+PACK_MAGIC = b"specmatch-packed-table 2\n"
+def _packed_path(path: Path) -> Path:
+    return path.with_name(path.name.replace(".csv.gz", ".packed"))
+
+
+def _source_stamp(path: Path) -> tuple[int, int]:
+    data = path.read_bytes()
+    return len(data), zlib.crc32(data)
+
+
+def _write_packed(path: Path, header: dict, arrays: list) -> None:
+    size, crc = _source_stamp(path)
+    header = {**header, "source": path.name, "source_bytes": size, "source_crc32": crc,
+              "written_by": "specmatch.prediction.hose.pack_table/pack_layer from the CSV beside it",
+              "arrays": [[a.typecode, len(a)] for a in arrays], "byteorder": sys.byteorder}
+    with open(_packed_path(path), "wb") as fh:
+        fh.write(PACK_MAGIC)
+        fh.write(json.dumps(header, ensure_ascii=False, sort_keys=True).encode("utf-8") + b"\n")
+        for a in arrays:
+            fh.write(a.tobytes())
+
+
+def _read_packed(path: Path) -> tuple[dict, list] | None:
+    """Header and arrays of the packed copy of ``path``; None if absent or stale."""
+    packed = _packed_path(path)
+    try:
+        with open(packed, "rb") as fh:
+            if fh.readline() != PACK_MAGIC:
+                return None
+            header = json.loads(fh.readline())
+            blob = fh.read()
+        if (header["source_bytes"], header["source_crc32"]) != _source_stamp(path):
+            return None  # the CSV was rewritten without its copy: the CSV is the table
+        arrays, at = [], 0
+        for typecode, n in header["arrays"]:
+            a = array(typecode)
+            size = a.itemsize * n
+            a.frombytes(blob[at:at + size])
+            at += size
+            if header["byteorder"] != sys.byteorder:
+                a.byteswap()
+            arrays.append(a)
+        return (header, arrays) if at == len(blob) else None
+    except (OSError, ValueError, KeyError, TypeError):
+        return None
+
+
+def pack_table(path: Path) -> None:
+    """Write the packed copy of a correction table's CSV: per radius the codes (one text)
+    and their n, mean and sd (arrays)."""
+    rows, shrink, max_radius, scale, provenance = _read_csv_table(path)
+    items = []
+    for key, v in rows.items():
+        r, code = key.split(",", 1)
+        code = code[1:-1]
+        if "\n" in code:
+            raise ValueError(f"{path.name}: a code holds a line break; cannot pack")
+        n_t, mean_t, sd_t = v.split(",", 3)[:3]
+        items.append((int(r), code, int(n_t), float(mean_t), float(sd_t)))
+    items.sort()
+    radii: dict[int, int] = {}
+    for r, *_ in items:
+        radii[r] = radii.get(r, 0) + 1
+    _write_packed(path, {"kind": "codes", "shrink": shrink, "max_radius": max_radius, "sigma_scale": scale,
+                         "provenance": provenance, "radii": sorted(radii.items())},
+                  [array("B", "\n".join(x[1] for x in items).encode("ascii")), array("I", [x[2] for x in items]),
+                   array("d", [x[3] for x in items]), array("d", [x[4] for x in items])])
+
+
+def read_packed_table(path: Path) -> HoseTable | None:
+    """The correction table of ``path`` from its packed copy (None if absent or stale)."""
+    got = _read_packed(path)
+    if got is None or got[0].get("kind") != "codes":
+        return None
+    h, arrays = got
+    if [a.typecode for a in arrays] != ["B", "I", "d", "d"]:
+        return None
+    text, ns, means, sds = arrays
+    try:
+        codes = text.tobytes().decode("ascii").split("\n") if len(text) else []
+    except UnicodeDecodeError:
+        return None
+    if len(codes) != len(ns):
+        return None
+    spans, at = {}, 0
+    for r, n in h["radii"]:
+        spans[r] = (at, at + n)  # rows sorted by code text within each radius: bisect finds them
+        at += n
+    return HoseTable(None, h["shrink"], h["max_radius"], h["provenance"], h["sigma_scale"],
+                     packed=(codes, spans, ns, means, sds), source=path)
+
+
 @lru_cache(maxsize=4)
 def load_table(nucleus: str) -> HoseTable | None:
     """The shipped table for "13C" or "1H" (None if the file is absent), read once."""
     path = TABLE_DIR / ("hose_c13.csv.gz" if nucleus == "13C" else "hose_h1.csv.gz")
     if not path.exists():
         return None
-    return read_table(path)
+    # the by-fold statistics are in the CSV only
+    return (None if CROSS_VALIDATED else read_packed_table(path)) or read_table(path)
 
 
 # ------------------------------------------------------------------ neighbour layer
@@ -394,7 +543,6 @@ def features_from_hex(hexes: list[tuple[str, str, str]], dist_row: list[int], ce
     return out
 
 
-@dataclass(frozen=True)
 class NeighbourLayer:
     """Fitted weights of the neighbour layer (ridge regression of the increment residual
     on :func:`neighbour_features`), added to the increment sum before the code table.
@@ -402,19 +550,37 @@ class NeighbourLayer:
     Attributes
     ----------
     rows : dict
-        feature -> ``"n,weight,by_fold"``, the file's own text, parsed on lookup.
+        feature -> ``"n,weight,by_fold,example"``, the file's own text, parsed on lookup
+        (read from the CSV on demand when the layer came from its packed copy).
     provenance : str
     """
 
-    rows: dict[str, str]
-    provenance: str
-    _parsed: dict[str, tuple[float, ...]] = field(default_factory=dict, compare=False, repr=False)
-    #: fold left out (None: none) -> prefix -> code -> weight, built on first use by :meth:`shifts`
-    _flat: dict[int | None, dict[str, dict[str, float]]] = field(default_factory=dict, compare=False, repr=False)
+    def __init__(self, rows: dict[str, str] | None, provenance: str, *,
+                 by_prefix: dict[str, dict[str, float]] | None = None, source: Path | None = None):
+        self._rows = rows
+        self.provenance = provenance
+        self._source = source
+        self._parsed: dict[str, tuple[float, ...]] = {}
+        #: fold left out (None: none) -> prefix -> code -> weight, built on first use by :meth:`shifts`
+        self._flat: dict[int | None, dict[str, dict[str, float]]] = {}
+        if by_prefix is not None:
+            self._flat[None] = by_prefix
+
+    def __repr__(self) -> str:
+        return "NeighbourLayer()"
+
+    @property
+    def rows(self) -> dict[str, str]:
+        if self._rows is None:  # packed copy: the CSV text on demand
+            self._rows = _read_csv_layer(self._source)[0]
+        return self._rows
 
     def weight(self, feature: str, exclude_fold: int | None = None) -> float:
         """The weight (ppm) of one feature, 0 if unknown; with ``exclude_fold`` the weight
         of the layer fitted without that development fold."""
+        if exclude_fold is None and self._rows is None:
+            prefix, _, code = feature.rpartition(":")
+            return self._flat[None].get(prefix, {}).get(code, 0.0)
         at = 0 if exclude_fold is None else 1 + exclude_fold
         got = self._parsed.get(feature)
         if got is None:
@@ -477,12 +643,55 @@ class NeighbourLayer:
 _LAYER_ROW = re.compile(r'^([0-9a-f:]+),(.*)$', re.M)
 
 
-def read_layer(path: Path) -> NeighbourLayer:
-    """Read a neighbour-layer file (gzip CSV with ``#`` provenance lines, see :func:`write_layer`)."""
+def _read_csv_layer(path: Path) -> tuple[dict[str, str], str]:
+    import gzip
+
     with gzip.open(path, "rt", encoding="utf-8", newline="") as fh:
         text = fh.read()
     head = [line[1:].strip() for line in text[: text.find("\nfeature,")].splitlines()]
-    return NeighbourLayer(dict(_LAYER_ROW.findall(text)), "\n".join(head))
+    return dict(_LAYER_ROW.findall(text)), "\n".join(head)
+
+
+def read_layer(path: Path) -> NeighbourLayer:
+    """Read a neighbour-layer file (gzip CSV with ``#`` provenance lines, see :func:`write_layer`)."""
+    return NeighbourLayer(*_read_csv_layer(path))
+
+
+def pack_layer(path: Path) -> None:
+    """Write the packed copy of a neighbour layer's CSV: the features grouped by prefix
+    (codes as one text, weights as an array)."""
+    rows, provenance = _read_csv_layer(path)
+    groups = NeighbourLayer(rows, provenance)._by_prefix(None)
+    prefixes = sorted(groups)
+    codes = [c for p in prefixes for c in groups[p]]
+    if any("\n" in c or ":" in c for c in codes):
+        raise ValueError(f"{path.name}: a feature code holds a line break or ':'; cannot pack")
+    _write_packed(path, {"kind": "layer", "provenance": provenance,
+                         "prefixes": [[p, len(groups[p])] for p in prefixes]},
+                  [array("B", "\n".join(codes).encode("ascii")),
+                   array("d", [groups[p][c] for p in prefixes for c in groups[p]])])
+
+
+def read_packed_layer(path: Path) -> NeighbourLayer | None:
+    """The neighbour layer of ``path`` from its packed copy (None if absent or stale)."""
+    got = _read_packed(path)
+    if got is None or got[0].get("kind") != "layer":
+        return None
+    h, arrays = got
+    if [a.typecode for a in arrays] != ["B", "d"]:
+        return None
+    text, weights = arrays
+    try:
+        codes = text.tobytes().decode("ascii").split("\n") if len(text) else []
+    except UnicodeDecodeError:
+        return None
+    if len(codes) != len(weights):
+        return None
+    by_prefix, at = {}, 0
+    for prefix, n in h["prefixes"]:
+        by_prefix[prefix] = dict(zip(codes[at:at + n], weights[at:at + n]))
+        at += n
+    return NeighbourLayer(None, h["provenance"], by_prefix=by_prefix, source=path)
 
 
 def write_layer(path: Path, rows: list[tuple[str, int, float, list[float], str]], provenance: list[str]) -> None:
@@ -492,6 +701,7 @@ def write_layer(path: Path, rows: list[tuple[str, int, float, list[float], str]]
     _write_gz_csv(path, provenance, "feature,n,weight_ppm,by_fold,example",
                   (f"{feat},{n},{w:.4f},{';'.join(f'{x:.4f}' for x in folds)},{example}"
                    for feat, n, w, folds, example in rows))
+    pack_layer(path)
 
 
 @lru_cache(maxsize=2)
@@ -500,4 +710,5 @@ def load_layer(nucleus: str) -> NeighbourLayer | None:
     path = TABLE_DIR / ("layer_c13.csv.gz" if nucleus == "13C" else "layer_h1.csv.gz")
     if not path.exists():
         return None
-    return read_layer(path)
+    # the weights fitted without each fold are in the CSV only
+    return (None if CROSS_VALIDATED else read_packed_layer(path)) or read_layer(path)

@@ -474,6 +474,31 @@ def _may_be_prochiral(nbrs: list[int], classes: tuple[int, ...]) -> bool:
     return max(counts.values(), default=0) == 2
 
 
+def _tie_branches(nbrs: list[list[int]], classes: tuple[int, ...]) -> list[tuple[int, set[int]]]:
+    """Atoms with two or more equivalent neighbours, each with the atoms of those
+    neighbours' branches (reachable from them without passing the atom)."""
+    out = []
+    for p, around in enumerate(nbrs):
+        if len(around) < 2:
+            continue
+        by_class: dict[int, list[int]] = {}
+        for nb in around:
+            by_class.setdefault(classes[nb], []).append(nb)
+        twins = [nb for members in by_class.values() if len(members) > 1 for nb in members]
+        if not twins:
+            continue
+        seen = {p, *twins}
+        stack = list(twins)
+        while stack:
+            for y in nbrs[stack.pop()]:
+                if y not in seen:
+                    seen.add(y)
+                    stack.append(y)
+        seen.discard(p)
+        out.append((p, seen))
+    return out
+
+
 def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: list[tuple[str, int, bool]],
                     *, fast: bool = True, graph: MolGraph | None = None, isomeric: str | None = None
                     ) -> tuple[frozenset[int], tuple[tuple[int, int], ...]]:
@@ -505,23 +530,63 @@ def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: li
     given = any(spec for _, spec in tetra)
     # with configurations given: is the molecule chiral (unequal to its mirror image)?
     shortcuts = fast
-    chiral = shortcuts and given and (isomeric or mol_smiles(mol)) != mol_smiles(mirror_image(mol))
+    # (asked lazily: writing the mirror image's SMILES is a good share of the test)
+    chiral_memo: list[bool] = []
+
+    def chiral() -> bool:
+        if not chiral_memo:
+            chiral_memo.append(shortcuts and given and (isomeric or mol_smiles(mol)) != mol_smiles(mirror_image(mol)))
+        return chiral_memo[0]
+
     fast = fast and not given
     elsewhere = {at for at, _ in tetra}
     ch2: set[int] = set()
     pairs: list[tuple[int, int]] = []
+    # Labelling (one H of a CH2, one of two twin ligands) adds a stereo element elsewhere only
+    # at an atom whose equivalent ligands it tells apart: one with the label inside the branch
+    # of one of them. Without such an atom, and without another tetrahedral (or other
+    # non-C=C) element to begin with, the labelled molecule has no stereo element besides
+    # the centre, and the test says "not diastereotopic" (first check of the test).
+    exotic = any(kind not in ("Atom_Tetrahedral", "Bond_Double") for kind, _, _ in original_stereo)
+    ties: list[tuple[int, set[int]]] | None = None
+
+    def lone_centre(centre: int, label: int) -> bool:
+        nonlocal ties
+        if not shortcuts or exotic or elsewhere - {centre}:
+            return False
+        if ties is None:
+            ties = _tie_branches(nbrs_of, classes)
+        return not any(p != centre and label in branch for p, branch in ties)
+
+    # answers of the labelled test per symmetry class (of the centre; of the centre and the
+    # twin ligands): equivalent atoms get the same answer, so each class is labelled once
+    known: dict[tuple[int, ...], bool] = {}
     for idx in range(g.n):
         if g.z[idx] != 6 or not tetrahedral[idx]:
             continue
         neighbours = nbrs_of[idx]
         n_h = nh_of[idx]
-        other_element = fast and bool(elsewhere - {idx})
+        has_other = bool(elsewhere - {idx})
+        other_element = fast and has_other
+        # with configurations given, in a chiral molecule: a stereogenic labelled centre
+        # with another tetrahedral element (kept by labelling) is diastereotopic, the
+        # answer of the test's own shortcut, known here without labelling
+        chiral_other = shortcuts and given and has_other  # and chiral(), asked only when it decides
         if n_h == 2 and len(neighbours) == 2:
-            if other_element and classes[neighbours[0]] != classes[neighbours[1]]:
+            stereogenic = classes[neighbours[0]] != classes[neighbours[1]]
+            if stereogenic and (other_element or (chiral_other and chiral())):
                 ch2.add(idx)
-            elif _is_diastereotopic_after_label(_label_one_h(mol, idx), idx, chiral,
-                                                shortcuts and classes[neighbours[0]] != classes[neighbours[1]]):
-                ch2.add(idx)
+            else:
+                key = (classes[idx],)
+                got = known.get(key) if shortcuts else None
+                if got is None and lone_centre(idx, idx):
+                    got = known[key] = False
+                if got is None:
+                    got = _is_diastereotopic_after_label(_label_one_h(mol, idx), idx, chiral(),
+                                                         shortcuts and stereogenic)
+                    known[key] = got
+                if got:
+                    ch2.add(idx)
         by_class: dict[int, list[int]] = {}
         for nb in neighbours:
             by_class.setdefault(classes[nb], []).append(nb)
@@ -531,10 +596,18 @@ def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: li
                 if n_h >= 2:
                     continue  # two H on the centre: never a stereocentre, whatever is labelled
                 rest = [x for x in neighbours if x != a and x != b]
-                if other_element and (n_h == 1 or (len(rest) == 2 and classes[rest[0]] != classes[rest[1]])):
+                stereogenic = n_h == 1 or (len(rest) == 2 and classes[rest[0]] != classes[rest[1]])
+                if stereogenic and (other_element or (chiral_other and chiral())):
                     pairs.append((a, b))
-                elif _is_diastereotopic_after_label(_label_atom(mol, a), idx, chiral):
-                    pairs.append((a, b))
+                else:
+                    key = (classes[idx], classes[a], -1)
+                    got = known.get(key) if shortcuts else None
+                    if got is None and lone_centre(idx, a):
+                        got = known[key] = False
+                    if got is None:
+                        got = known[key] = _is_diastereotopic_after_label(_label_atom(mol, a), idx, chiral())
+                    if got:
+                        pairs.append((a, b))
     return frozenset(ch2), tuple(pairs)
 
 

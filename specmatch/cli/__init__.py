@@ -39,6 +39,32 @@ def build_parser() -> argparse.ArgumentParser:
     return ap
 
 
+def console_main() -> None:
+    """The ``specmatch`` command (console script and ``python -m specmatch``): :func:`main`,
+    then exit with its status.
+
+    A batch command that has written and closed its output asks to end without the
+    interpreter's teardown (``_common._fast_exit_after``): streams are flushed and the
+    ``atexit`` functions run, then the process exits at once. ``main()`` itself always
+    returns, so callers in Python (tests) are unaffected.
+    """
+    code = main()
+    from . import _common
+
+    if _common.FAST_EXIT:
+        import atexit
+        import os
+
+        try:
+            sys.stdout.flush()
+            sys.stderr.flush()
+        except (OSError, ValueError):  # a closed pipe (output into `head`): nothing more to say
+            pass
+        atexit._run_exitfuncs()
+        os._exit(code)
+    raise SystemExit(code)
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)

@@ -7,7 +7,7 @@ import json
 import sys
 
 from ..errors import SpecmatchError
-from ._common import _open_out, _print_json, _progress, _read_lines
+from ._common import _fast_exit_after, _open_out, _print_json, _progress, _read_lines
 
 #: molecules that pay for a worker's start-up: workers are forked from this process after
 #: the tables are loaded (a few milliseconds each), a prediction takes 2-5 ms
@@ -74,6 +74,7 @@ def _batch(args: argparse.Namespace) -> int:
     if first_error:
         summary += f" (first failure, {first_error})"
     print(summary, file=sys.stderr)
+    _fast_exit_after()  # every row written and the file closed
     return 1 if n_failed else 0
 
 

@@ -421,13 +421,13 @@ def _masks(peaklist, solvent: str | None, warnings: list[str], cands: Sequence[_
            ) -> tuple[list[tuple[float, float]], list[str], list[tuple[str, float]]]:
     """Ranges to leave out: TMS, the peak list's flagged lines and the solvent table's lines.
 
-    Lines flagged as a known impurity are kept in the fit when a candidate has a
-    predicted signal within 1 sigma (the "impurity" may be the product:
+    Lines flagged as a known impurity or as a trace multiplet are kept in the fit when
+    a candidate has a predicted signal within 1 sigma (the "impurity" may be the product:
     tert-butyl alcohol is both a common impurity and a hydration product); grease
     is always masked.
     """
-    def near_candidate(c: float) -> str | None:
-        return _near_candidate(cands, c)
+    def near_candidate(c: float, sigmas: float = 1.0) -> str | None:
+        return _near_candidate(cands, c, sigmas)
 
     masks: list[tuple[float, float]] = [(-_SOLVENT_HALF_WIDTH_PPM, _SOLVENT_HALF_WIDTH_PPM)]
     names = ["TMS 0.00"]
@@ -444,11 +444,15 @@ def _masks(peaklist, solvent: str | None, warnings: list[str], cands: Sequence[_
                     half = max(half, _WATER_HALF_WIDTH_PPM)
                 flagged.append((p.shift - half, p.shift + half, p.flag, p.shift))
     for lo, hi, flag, c in flagged:
-        if flag.startswith("impurity"):
-            who = near_candidate(c)
+        # a weak ("trace") multiplet where a candidate has a signal may be that candidate
+        # (the unreacted substrate's vinyl lines): masked, its amount would rest on nothing
+        if flag.startswith("impurity") or flag == "trace":
+            # a trace multiplet anywhere the fit can move a candidate's group (3 sigma) is kept
+            who = near_candidate(c, 3.0 if flag == "trace" else 1.0)
             if who is not None:
-                warnings.append(f"the line at {c:.2f} ppm flagged '{flag}' is where {who} has a signal; "
-                                "kept in the fit")
+                if flag != "trace":  # a weak candidate's multiplets are expected, not news
+                    warnings.append(f"the line at {c:.2f} ppm flagged '{flag}' is where {who} has a signal; "
+                                    "kept in the fit")
                 continue
         masks.append((lo, hi))
         names.append(f"{flag} {c:.2f}")
@@ -474,11 +478,11 @@ def _masks(peaklist, solvent: str | None, warnings: list[str], cands: Sequence[_
     return masks, list(dict.fromkeys(names)), [(n, c) for c, n in lines.items()]
 
 
-def _near_candidate(cands: Sequence[_Candidate], shift: float) -> str | None:
-    """Name of a candidate with a predicted C-H signal within 1 sigma of ``shift``."""
+def _near_candidate(cands: Sequence[_Candidate], shift: float, sigmas: float = 1.0) -> str | None:
+    """Name of a candidate with a predicted C-H signal within ``sigmas`` sigma of ``shift``."""
     for cand in cands:
         for g in cand.groups:
-            if not g.exchangeable and abs(g.shift - shift) <= g.sigma:
+            if not g.exchangeable and abs(g.shift - shift) <= sigmas * g.sigma:
                 return cand.name
     return None
 

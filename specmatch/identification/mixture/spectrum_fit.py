@@ -641,6 +641,7 @@ def fit_spectrum(
     extra_lines_ppm: Sequence[tuple[str, float]] = (),
     sweeps: int = 3,
     predictions: Sequence | None = None,
+    start_shifts: Sequence[Sequence[float]] | None = None,
 ) -> SpectrumFit:
     """Fit a 1H spectrum as a non-negative combination of candidate spectra.
 
@@ -667,6 +668,12 @@ def fit_spectrum(
         (:func:`exact_fit`); if that leaves a reduced chi-square above
         ``EXACT_GOOD_CHI2``, the first-order fit runs too and the lower data
         chi-square wins.
+    start_shifts : sequence of sequences of float, optional
+        With ``predictions``: per candidate one shift per group of ``components``
+        (exchangeable ones ignored). The exact fit is then only polished from these
+        shifts, no search, no detection test and no first-order comparison: a
+        diagnostic that tells the model's reach (from the shifts a demo spectrum was
+        made with) from the search's (``benchmarks/bench_spin.py --from-table``).
 
     Returns
     -------
@@ -674,7 +681,8 @@ def fit_spectrum(
     """
     with _single_threaded_blas():
         return _fit_spectrum(ppm, intensity, components, frequency_mhz=frequency_mhz, masks_ppm=masks_ppm,
-                             extra_lines_ppm=extra_lines_ppm, sweeps=sweeps, predictions=predictions)
+                             extra_lines_ppm=extra_lines_ppm, sweeps=sweeps, predictions=predictions,
+                             start_shifts=start_shifts)
 
 
 def _single_threaded_blas():
@@ -705,7 +713,7 @@ def _single_threaded_blas():
 
 
 def _fit_spectrum(ppm, intensity, components, *, frequency_mhz, masks_ppm, extra_lines_ppm, sweeps,
-                  predictions) -> SpectrumFit:
+                  predictions, start_shifts=None) -> SpectrumFit:
     f = float(frequency_mhz)
     groups = group_models(components)
     K = len(components)
@@ -738,6 +746,12 @@ def _fit_spectrum(ppm, intensity, components, *, frequency_mhz, masks_ppm, extra
         n_oh = sum(1 for comp in components if any(g.exchangeable for g in comp)) if with_oh else 0
         free_x = [(f"OH{i + 1}" if i else "OH", *oh_line[1:]) for i in range(n_oh)] + extra
         model_x, theta_x, lb_x, ub_x = _setup(x, y, used, groups, K, f, noise, free_x)
+        if start_shifts is not None:
+            if len(start_shifts) != K:
+                raise SpecmatchError(f"start_shifts: {len(start_shifts)} candidates, the fit has {K}")
+            theta_x[model_x.i_c] = np.clip([float(start_shifts[g.component][g.index]) for g in groups],
+                                           lb_x[model_x.i_c], ub_x[model_x.i_c])
+            return _exact_polish_only(model_x, theta_x, lb_x, ub_x, predictions, free_x, n_oh)
         try:
             exact = exact_fit(model_x, theta_x, lb_x, ub_x, predictions, free_x, n_oh)
         except SpecmatchError:
@@ -1991,6 +2005,22 @@ def _assemble_exact(model: _Model, em: _ExactModel, t: np.ndarray, undetected: d
     fit.regions = signal_regions(fit, model, _first_order_theta(model, em, t))
     fit.notes.append(f"exact second-order candidate spectra at {model.f:g} MHz "
                      f"(reduced chi-square {chi2_sig:.2f} over the signal points)")
+    return fit
+
+
+def _exact_polish_only(model: _Model, theta0: np.ndarray, lb: np.ndarray, ub: np.ndarray, predictions, free,
+                       n_oh: int) -> SpectrumFit:
+    """The exact fit polished from the shifts in ``theta0`` (exchangeable lines and width
+    searched first, then :func:`_exact_polish`); see ``fit_spectrum(start_shifts=...)``."""
+    em = _ExactModel(model, predictions, theta0[model.i_c])
+    lo, hi = _exact_bounds(model, em, lb, ub)
+    s = _ExactSearch(em, _exact_theta(model, em, theta0), hi, n_oh)
+    s.search_oh()
+    s.search_width()
+    t, _ = _exact_polish(em, s.t, lo, hi)
+    em.relinearise(t[em.i_c])
+    fit = _assemble_exact(model, em, t, {}, free, n_oh)
+    fit.notes.insert(0, "polished from the given start shifts (no search)")
     return fit
 
 

@@ -22,7 +22,7 @@ the pairs whose records list every proton (a record may list a CH2 as one proton
 tests/data/mixture_isomer_pairs.json, simulated 400 MHz spectra from
 experimental shifts, fitted with the predicted spectra).
 
-usage: python benchmarks/bench_mixture.py [--limit N] [--half fit|held_back] [--spectra [--seeds N] [--snr S] [--quick]]
+usage: python benchmarks/bench_mixture.py [--limit N] [--half fit|held_back] [--dump FILE] [--spectra [--seeds N] [--snr S] [--quick]]
 """
 
 from __future__ import annotations
@@ -128,7 +128,7 @@ def peaklist_tasks(limit: int = 0) -> tuple[list[dict], Path]:
     return out, dev
 
 
-def main_peaklists(limit: int, half: str | None = None) -> None:
+def main_peaklists(limit: int, half: str | None = None, dump: str | None = None) -> None:
     from specmatch.errors import SpecmatchError
     from specmatch.identification.mixture import estimate_mixture
     from specmatch.prediction import predict
@@ -180,6 +180,9 @@ def main_peaklists(limit: int, half: str | None = None) -> None:
         if r["error"]:
             print(f"   FAILED {r['a']} / {r['b']} {r['fa']:.2f}: {r['error']}")
     print(f"time: {time.time() - t0:.0f} s for {len(rows)} estimates")
+    if dump:
+        Path(dump).write_text("\n".join(json.dumps(r) for r in rows) + "\n", encoding="utf-8")
+        print(f"per-task rows written to {dump}")
 
 
 def main() -> None:
@@ -187,13 +190,14 @@ def main() -> None:
     ap.add_argument("--limit", type=int, default=0, help="peak lists: at most this many isomer pairs")
     ap.add_argument("--half", choices=("fit", "held_back"), default=None,
                     help="peak lists: only this half (develop on 'fit'; the held-back half is the honest figure)")
+    ap.add_argument("--dump", default=None, help="peak lists: write one JSON line per task to this file")
     ap.add_argument("--spectra", action="store_true", help="the synthetic full-spectrum benchmark instead")
     ap.add_argument("--seeds", type=int, default=2, help="noise/J draws per pair and ratio (default 2)")
     ap.add_argument("--snr", type=float, default=500.0, help="tallest compound line / noise sd (default 500)")
     ap.add_argument("--quick", action="store_true", help="ratios 0.9 and 0.6 only, one seed")
     args = ap.parse_args()
     if not args.spectra:
-        main_peaklists(args.limit, args.half)
+        main_peaklists(args.limit, args.half, args.dump)
         return
 
     from specmatch.identification.mixture import estimate_mixture

@@ -120,3 +120,14 @@ def test_candidates_the_integrals_cannot_separate_get_an_honest_interval():
     est = estimate_mixture(["FC(F)(Cl)CC(F)(F)Cl", "FC(F)(F)CC(F)(Cl)Cl"], peaklist=pl, solvent="CDCl3")
     for lo, hi in est.interval_95:
         assert lo <= 0.05 and hi >= 0.95
+
+
+def test_split_parts_count_on_both_multiplets_and_round_trip():
+    # a 2 H group given as 1 H + 1 H on multiplets 0 and 2 (a builder's penalised exception)
+    ga = GroupAssignment(((0, 0), (1, 0)), (2, 3), (False, False), (0, 1), 3,
+                         parts=(((0, 1), (2, 1)), ((1, 3),)))
+    assert ga.on(2) == (0,) and ga.protons_on(0) == 1 and ga.protons_on(2) == 1 and ga.protons_on(1) == 3
+    assert ga.split == (0,) and ga.unexplained() == ()
+    assert GroupAssignment.from_dict(ga.to_dict()) == ga
+    with pytest.raises(ValueError):
+        GroupAssignment(((0, 0),), (2,), (False,), (0,), 3, parts=(((0, 1), (2, 2)),))

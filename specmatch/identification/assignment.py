@@ -10,7 +10,9 @@ ratio rests on.
 Rules the assignment keeps (whoever builds it):
 
 - a group goes to one multiplet **as a whole** (a CH3 is never split across two
-  signals), or is "not observed";
+  signals), or is "not observed"; a builder may allow, as a penalised exception, one
+  group's protons on two neighbouring multiplets (``parts``) for peak lists that give
+  one group as two lines (records that list the two protons of a CH2 apart);
 - an exchangeable OH/NH group only goes to a multiplet its position and width
   allow: a singlet or broad line (no resolved couplings) within its window; it may
   also be absent or part of a free exchange-averaged line (``free_exchange``).
@@ -74,6 +76,11 @@ class GroupAssignment:
     n_multiplets: int
     free_exchange: int = -1
     cost: float = 0.0
+    #: per group its (multiplet, protons) parts, () when every group sits whole on
+    #: ``multiplet``; a group split over two multiplets (a builder's penalised exception
+    #: for a list that gives one group's protons as two lines) has two parts, and
+    #: ``multiplet`` then names the part with more protons
+    parts: tuple[tuple[tuple[int, int], ...], ...] = ()
 
     def __post_init__(self) -> None:
         n = len(self.groups)
@@ -81,6 +88,25 @@ class GroupAssignment:
             raise ValueError("GroupAssignment: groups, counts, exchangeable and multiplet differ in length")
         if any(m >= self.n_multiplets or m < NOT_OBSERVED for m in self.multiplet):
             raise ValueError("GroupAssignment: multiplet index out of range")
+        if self.parts:
+            if len(self.parts) != n:
+                raise ValueError("GroupAssignment: parts and groups differ in length")
+            for q, ps in enumerate(self.parts):
+                if any(not 0 <= m < self.n_multiplets for m, _ in ps) or \
+                        (ps and sum(c for _, c in ps) != self.counts[q]):
+                    raise ValueError("GroupAssignment: a group's parts must lie on multiplets and add up to its protons")
+
+    def parts_of(self, q: int) -> tuple[tuple[int, int], ...]:
+        """(multiplet, protons) of group position q: one part when whole, none when not observed."""
+        if self.parts and self.parts[q]:
+            return self.parts[q]
+        m = self.multiplet[q]
+        return ((m, self.counts[q]),) if m >= 0 else ()
+
+    @property
+    def split(self) -> tuple[int, ...]:
+        """Positions of the groups split over more than one multiplet."""
+        return tuple(q for q in range(len(self.groups)) if len(self.parts_of(q)) > 1)
 
     def of(self, component: int, index: int) -> int:
         """Multiplet of a group (``NOT_OBSERVED`` if the group is not listed or not observed)."""
@@ -90,15 +116,18 @@ class GroupAssignment:
         return NOT_OBSERVED
 
     def on(self, m: int) -> tuple[int, ...]:
-        """Positions (into ``groups``) of the groups on multiplet m."""
-        return tuple(q for q, mm in enumerate(self.multiplet) if mm == m)
+        """Positions (into ``groups``) of the groups on multiplet m (wholly or in part)."""
+        if not self.parts:
+            return tuple(q for q, mm in enumerate(self.multiplet) if mm == m)
+        return tuple(q for q in range(len(self.groups)) if any(mm == m for mm, _ in self.parts_of(q)))
 
     def owners(self, m: int) -> frozenset[int]:
         """Components with a group on multiplet m."""
         return frozenset(self.groups[q][0] for q in self.on(m))
 
     def protons_on(self, m: int, component: int | None = None) -> int:
-        return int(sum(self.counts[q] for q in self.on(m) if component is None or self.groups[q][0] == component))
+        return int(sum(c for q in self.on(m) if component is None or self.groups[q][0] == component
+                       for mm, c in self.parts_of(q) if mm == m))
 
     def exclusive(self, component: int, *, with_exchangeable: bool = False) -> tuple[int, ...]:
         """Multiplets that this component alone explains: no other component's group on
@@ -115,7 +144,7 @@ class GroupAssignment:
 
     def unexplained(self) -> tuple[int, ...]:
         """Multiplets no group (and not the free exchange line) explains."""
-        used = set(self.multiplet) | {self.free_exchange}
+        used = {m for q in range(len(self.groups)) for m, _ in self.parts_of(q)} | {self.free_exchange}
         return tuple(m for m in range(self.n_multiplets) if m not in used)
 
     def to_dict(self) -> dict[str, Any]:
@@ -127,13 +156,15 @@ class GroupAssignment:
             "n_multiplets": int(self.n_multiplets),
             "free_exchange": int(self.free_exchange),
             "cost": float(self.cost),
+            **({"parts": [[[int(m), int(c)] for m, c in ps] for ps in self.parts]} if self.parts else {}),
         }
 
     @classmethod
     def from_dict(cls, d: dict[str, Any]) -> "GroupAssignment":
         return cls(tuple((int(k), int(i)) for k, i in d["groups"]), tuple(int(c) for c in d["counts"]),
                    tuple(bool(x) for x in d["exchangeable"]), tuple(int(m) for m in d["multiplet"]),
-                   int(d["n_multiplets"]), int(d.get("free_exchange", -1)), float(d.get("cost", 0.0)))
+                   int(d["n_multiplets"]), int(d.get("free_exchange", -1)), float(d.get("cost", 0.0)),
+                   tuple(tuple((int(m), int(c)) for m, c in ps) for ps in d.get("parts", ())))
 
 
 def exchangeable_allowed(shift: float, sigma: float, obs_shift: np.ndarray, resolved: Sequence[bool],

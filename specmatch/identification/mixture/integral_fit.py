@@ -83,6 +83,10 @@ AVERAGE_CENTRE = False
 #: independent Gaussian measurements, the shift term is a model). 2: 95% coverage 85% ->
 #: 87% on the fit half of bench_mixture.py (every third task), the estimates unchanged
 AVERAGING_TEMPERATURE = 2.0
+#: the temperature is also multiplied by the best assignment's reduced chi-square of the
+#: integrals when above 1 (a peak list that no assignment explains well cannot rank its
+#: readings sharply either)
+MISFIT_TEMPERATURE = True
 #: a group may go to a multiplet this many prediction sigmas away (the shift term is
 #: heavy-tailed, so a wider window costs little; 5 gave better figures than 3 on
 #: bench_mixture.py, chosen looking at both halves, so not a held-out choice)
@@ -135,6 +139,17 @@ MIRROR_STARTS = True
 MIRROR_SWITCH = 10.0
 #: try swaps of two equal-count groups of different candidates in the search
 SWAP_MOVES = True
+#: cost (chi-square units) of an sp3 C-H group of two or more protons split over two
+#: multiplets (a penalised exception to "a group goes to one multiplet as a whole": a list
+#: that gives the two protons of a CH2 as two lines, as records often do for ring CH2s and
+#: CH2s near a stereocentre); None for never. Aromatic and alkene groups are never split
+#: (on the fit half of bench_mixture.py splitting them too let 2 H of a para-disubstituted
+#: ring take two lines 0.4 ppm apart and swap readings). The split's shift term is taken
+#: at the protons' centroid of the two multiplets
+SPLIT_GROUP_COST: float | None = 6.0
+#: ... only over two multiplets at most this far apart (ppm; the two protons of a CH2 next
+#: to a stereocentre or in a ring differ by up to a few tenths of a ppm, common practice)
+SPLIT_MAX_PPM = 0.4
 #: Cauchy scale (in sd) of the robust integral loss; None for plain least squares
 #: (set by hand: 3 sd keeps clean multiplets at full weight)
 ROBUST_C: float | None = 3.0
@@ -203,7 +218,7 @@ def _resolved(m: Multiplet) -> bool:
 
 
 def _filling_start(f: float, options, counts: np.ndarray, comp_of: np.ndarray, I: np.ndarray,
-                   s: np.ndarray) -> list[int]:
+                   s: np.ndarray, parts=None) -> list[int]:
     """A start of the assignment search for two candidates at fractions (f, 1 - f).
 
     The groups, largest expected integral first (ties by shift, so the order does not
@@ -212,7 +227,11 @@ def _filling_start(f: float, options, counts: np.ndarray, comp_of: np.ndarray, I
     of the multiplet. From the starts at f and 1 - f the local search reaches both
     readings of an isomer pair whose assignments are swapped as a whole, which
     single moves and two-group swaps cannot (every step in between breaks the integrals).
+    ``parts(m)``, if given, maps an option's multiplet index to its (multiplet, share of
+    the group) parts (a split group); by default every option is one whole multiplet.
     """
+    if parts is None:
+        parts = lambda m: ((m, 1.0),)  # noqa: E731
     total = float(I.sum())
     per_h = total / max(float(np.sum(counts * np.where(comp_of == 0, f, 1.0 - f))), 1e-12)
     amount = np.where(comp_of == 0, f, 1.0 - f) * per_h * counts
@@ -222,13 +241,15 @@ def _filling_start(f: float, options, counts: np.ndarray, comp_of: np.ndarray, I
     for q in order:
         best_a, best_c = choice[q], np.inf
         for a, (m, p) in enumerate(options[q]):
-            c = p if m < 0 else p + ((rest[m] - amount[q]) ** 2 - rest[m] ** 2) / s[m] ** 2
+            c = p if m < 0 else p + sum(((rest[mm] - x * amount[q]) ** 2 - rest[mm] ** 2) / s[mm] ** 2
+                                        for mm, x in parts(m))
             if c < best_c - 1e-12:
                 best_a, best_c = a, c
         choice[q] = best_a
         m = options[q][best_a][0]
         if m >= 0:
-            rest[m] -= amount[q]
+            for mm, x in parts(m):
+                rest[mm] -= x * amount[q]
     return choice
 
 
@@ -248,6 +269,9 @@ class _Problem:
         self.K = len(components)
         # groups in an order of their own properties, not of how the atoms were written:
         # the seeded restarts and the search then do not depend on the input order
+        # split options (a group over two multiplets): option index M + j names self.virt[j]
+        self.virt: list[tuple[tuple[tuple[int, int], ...], float, float]] = []
+        self._virt_index: dict[tuple, int] = {}
         groups = self.groups = sorted(
             ((k, i, g) for k, comp in enumerate(components) for i, g in enumerate(comp) if g.count > 0),
             key=lambda t: (t[0], round(float(t[2].shift), 9), t[2].count, round(float(t[2].sigma), 9),
@@ -271,6 +295,8 @@ class _Problem:
                 if not opts:
                     m = int(np.argmin([_distance(g.shift, mm) for mm in mults]))
                     opts = [(m, pen(_distance(g.shift, mults[m])))]
+                if SPLIT_GROUP_COST is not None and g.count >= 2 and _shift_class(g) == 2:
+                    opts += self._split_options(g, [m for m, _ in opts], pen)
                 if UNOBSERVED_GROUP_COST is not None:
                     opts.append((NOT_OBSERVED, float(UNOBSERVED_GROUP_COST)))
             options.append(opts)
@@ -290,8 +316,8 @@ class _Problem:
         self.g_shift = np.array([float(g.shift) for _, _, g in groups])
         g_sig = np.array([max(float(g.sigma), 1e-3) for _, _, g in groups])
         self.g_cls = np.array([_shift_class(g) for _, _, g in groups], int)
-        self.m_lo = np.array([min(mm.range) for mm in mults], float)
-        self.m_hi = np.array([max(mm.range) for mm in mults], float)
+        self.m_lo = np.array([min(mm.range) for mm in mults] + [v[1] for v in self.virt], float)
+        self.m_hi = np.array([max(mm.range) for mm in mults] + [v[2] for v in self.virt], float)
         self.g_su = g_sig * np.sqrt(1.0 - share)
         self.tau = np.ones(3)
         for c in range(3):
@@ -307,6 +333,48 @@ class _Problem:
                       and self.counts[q1] == self.counts[q2]]
         self.memo: dict[tuple, tuple[float, np.ndarray]] = {}
         self.ch_of = [[q for q in range(n) if self.comp_of[q] == k and not exch[q]] for k in range(self.K)]
+
+    def _split_options(self, g: ProtonGroup, whole: Sequence[int], pen) -> list[tuple[int, float]]:
+        """Options of a group split over two of its window's multiplets (SPLIT_GROUP_COST):
+        every pair at most SPLIT_MAX_PPM apart, every division of its protons (halves only
+        for more than three), the shift term at the protons' centroid."""
+        mults, M = self.mults, self.M
+        n = int(g.count)
+        ms = sorted(m for m in whole if m >= 0)
+        centre = {m: 0.5 * (min(mults[m].range) + max(mults[m].range)) for m in ms}
+        half = {m: 0.5 * (max(mults[m].range) - min(mults[m].range)) for m in ms}
+        out = []
+        for i, m1 in enumerate(ms):
+            for m2 in ms[i + 1:]:
+                if abs(centre[m1] - centre[m2]) > SPLIT_MAX_PPM:
+                    continue
+                for n1 in (range(1, n) if n <= 3 else ([n // 2] if n % 2 == 0 else [])):
+                    parts = ((m1, n1), (m2, n - n1))
+                    c = (n1 * centre[m1] + (n - n1) * centre[m2]) / n
+                    h = max(half[m1], half[m2])
+                    v = self._virt_index.get(parts)
+                    if v is None:
+                        v = self._virt_index[parts] = M + len(self.virt)
+                        self.virt.append((parts, c - h, c + h))
+                    d = 0.0 if c - h <= g.shift <= c + h else min(abs(g.shift - (c - h)), abs(g.shift - (c + h)))
+                    out.append((v, float(SPLIT_GROUP_COST) + pen(d)))
+        return out
+
+    def option_parts(self, q: int, m: int) -> tuple[tuple[int, int], ...]:
+        """(multiplet, protons) parts of group q on option multiplet index m."""
+        if m < 0:
+            return ()
+        if m < self.M:
+            return ((m, int(self.counts[q])),)
+        return self.virt[m - self.M][0]
+
+    def share_parts(self, m: int) -> tuple[tuple[int, float], ...]:
+        """(multiplet, share of the group) of option index m (for the filling start)."""
+        if m < self.M:
+            return ((m, 1.0),)
+        ps = self.virt[m - self.M][0]
+        n = float(sum(c for _, c in ps))
+        return tuple((mm, c / n) for mm, c in ps)
 
     def shared_shift_term(self, qs: np.ndarray, ms: np.ndarray) -> float:
         """-2 log Student-t of the shift residuals after the class offsets, plus their prior."""
@@ -338,10 +406,10 @@ class _Problem:
                 sm.append(m)
             else:
                 pen += p
-            if m >= 0:
-                A[m, self.comp_of[q]] += self.counts[q]
+            for mm, c in self.option_parts(q, m):
+                A[mm, self.comp_of[q]] += c
                 if self.exch[q]:
-                    s[m] = self.s_exch[m]
+                    s[mm] = self.s_exch[mm]
         if oh is not None:
             A[oh, self.K] = 1.0
             s[oh] = self.s_exch[oh]
@@ -398,9 +466,9 @@ class _Problem:
             hit = self.memo[key] = (chi2 + pen + self.unobserved_excess(assign), w)
         return hit
 
-    def local_search(self, start: Sequence[int], oh: int | None = None):
-        """Descend from ``start`` by single moves, swaps and free-exchange changes;
-        returns (cost, assignment, free exchange multiplet, amounts)."""
+    def local_search(self, start: Sequence[int], oh: int | None = None, swaps: bool = True):
+        """Descend from ``start`` by single moves, swaps (unless ``swaps`` is False) and
+        free-exchange changes; returns (cost, assignment, free exchange multiplet, amounts)."""
         options = self.options
         assign = list(start)
         cur, w = self.solve(assign, oh)
@@ -416,7 +484,7 @@ class _Problem:
                     c, w2 = self.solve(trial, oh)
                     if c < cur - 1e-9:
                         cur, w, assign, improved = c, w2, trial, True
-            for q1, q2 in self.swaps:
+            for q1, q2 in (self.swaps if swaps else ()):
                 m1, m2 = options[q1][assign[q1]][0], options[q2][assign[q2]][0]
                 if m1 == m2 or m2 not in self.opt_index[q1] or m1 not in self.opt_index[q2]:
                     continue
@@ -444,9 +512,9 @@ class _Problem:
         out = list(assign)
         held = np.zeros((2, self.M), int)
         for q, a in enumerate(assign):
-            m = self.options[q][a][0]
-            if m >= 0 and not self.exch[q]:
-                held[self.comp_of[q], m] += int(self.counts[q])
+            if not self.exch[q]:
+                for mm, c in self.option_parts(q, self.options[q][a][0]):
+                    held[self.comp_of[q], mm] += int(c)
         for k in (0, 1):
             qs = [q for q in range(len(self.groups)) if self.comp_of[q] == k and not self.exch[q]]
             if not qs:
@@ -454,7 +522,7 @@ class _Problem:
             cost = np.full((len(qs), self.M), 1.0e6)
             for r, q in enumerate(qs):
                 for m, p in self.options[q]:
-                    if m >= 0:
+                    if 0 <= m < self.M:
                         cost[r, m] = p / self.counts[q]
             _, where = assign_whole_groups(cost, self.counts[qs].astype(int), held[1 - k], np.full(len(qs), 1.0e4))
             for r, q in enumerate(qs):
@@ -470,7 +538,9 @@ class _Problem:
         out = [[int(np.argmin([p for _, p in opts])) for opts in options]]
         out += [[int(rng.integers(len(opts))) for opts in options] for _ in range(_RESTARTS)]
         if self.K == 2 and RATIO_STARTS:
-            out += [_filling_start(f, options, self.counts, self.comp_of, self.I, self.s_plain) for f in RATIO_STARTS]
+            out += [_filling_start(f, options, self.counts, self.comp_of, self.I, self.s_plain,
+                                   parts=self.share_parts)
+                    for f in RATIO_STARTS]
         return out
 
 
@@ -502,28 +572,14 @@ def fit_integrals(multiplets: Sequence[Multiplet], components: Sequence[Sequence
             mirrored = P.mirror(assign)
             if tuple(mirrored) not in seen_starts:
                 seen_starts.add(tuple(mirrored))
-                cur, assign, oh, w = P.local_search(mirrored, oh)
+                # no swap moves from here: they would lead straight back to the reading
+                # mirrored (for a pair of one-group candidates the mirror IS a swap), and
+                # the mirrored reading must stay a mode of its own for the spread
+                cur, assign, oh, w = P.local_search(mirrored, oh, swaps=False)
                 optima[(tuple(assign), oh)] = (cur, w[:K].copy())
                 if cur < best[0] - MIRROR_SWITCH:
                     best = (cur, assign, oh)
     cost_best, assign, oh = best
-    averaged = spread = plausible = None
-    if ASSIGNMENT_AVERAGING and len(optima) > 1:
-        costs = np.array([c for c, _ in optima.values()])
-        fr = np.array([x / x.sum() if x.sum() > 0 else np.full(K, np.nan) for _, x in optima.values()])
-        ok = np.isfinite(fr).all(axis=1)
-        p = np.exp(-(costs[ok] - costs[ok].min()) / (2.0 * AVERAGING_TEMPERATURE))
-        p /= p.sum()
-        averaged = p @ fr[ok]
-        if not AVERAGE_CENTRE:
-            # the best assignment's fractions, the others' spread measured around them
-            bw = optima[(tuple(assign), oh)][1]
-            if bw.sum() > 0:
-                averaged = bw / bw.sum()
-        spread = np.sqrt(np.clip(p @ (fr[ok] - averaged) ** 2, 0.0, None))
-        keep = p >= PLAUSIBLE_WEIGHT
-        if keep.sum() > 1:
-            plausible = fr[ok][keep]
     # final weights: bounded least squares with the analytic Jacobian (the model is
     # linear), with the robust weights of the search's solution
     from scipy.optimize import least_squares
@@ -554,12 +610,40 @@ def fit_integrals(multiplets: Sequence[Multiplet], components: Sequence[Sequence
         notes.append("the peak list cannot tell some candidates apart: their groups fall into the same "
                       "multiplets in the same proportions")
     cov_full = np.linalg.pinv(Mx) * max(1.0, chi2_red)
+    averaged = spread = plausible = None
+    if ASSIGNMENT_AVERAGING and len(optima) > 1:
+        # a cost whose integrals the best assignment misfits by chi2_red is that much too
+        # sharp (the same inflation as the covariance's): the temperature grows with it
+        temperature = AVERAGING_TEMPERATURE * (max(1.0, chi2_red) if MISFIT_TEMPERATURE else 1.0)
+        costs = np.array([c for c, _ in optima.values()])
+        fr = np.array([x / x.sum() if x.sum() > 0 else np.full(K, np.nan) for _, x in optima.values()])
+        ok = np.isfinite(fr).all(axis=1)
+        p = np.exp(-(costs[ok] - costs[ok].min()) / (2.0 * temperature))
+        p /= p.sum()
+        averaged = p @ fr[ok]
+        if not AVERAGE_CENTRE:
+            # the best assignment's fractions, the others' spread measured around them
+            bw = optima[(tuple(assign), oh)][1]
+            if bw.sum() > 0:
+                averaged = bw / bw.sum()
+        spread = np.sqrt(np.clip(p @ (fr[ok] - averaged) ** 2, 0.0, None))
+        keep = p >= PLAUSIBLE_WEIGHT
+        if keep.sum() > 1:
+            plausible = fr[ok][keep]
     wcov = cov_full[:K, :K]
-    mult_of = tuple(int(P.options[q][assign[q]][0]) for q in range(len(groups)))
+    parts = tuple(tuple((int(mm), int(c)) for mm, c in P.option_parts(q, P.options[q][assign[q]][0]))
+                  for q in range(len(groups)))
+    mult_of = tuple(max(ps, key=lambda t: t[1])[0] if ps else NOT_OBSERVED for ps in parts)
+    split = [q for q, ps in enumerate(parts) if len(ps) > 1]
+    if split:
+        notes.append("a proton group is split over two multiplets (the list gives its protons as two lines): "
+                     + "; ".join(f"{groups[q][2].count} H at {groups[q][2].shift:.2f} ppm predicted -> "
+                                 + " + ".join(f"{c} H at {mults[mm].shift:.2f}" for mm, c in parts[q])
+                                 for q in split))
     assignment = GroupAssignment(
         groups=tuple((int(k), int(i)) for k, i, _ in groups), counts=tuple(int(c) for c in P.counts),
         exchangeable=tuple(bool(x) for x in P.exch), multiplet=mult_of, n_multiplets=M,
-        free_exchange=-1 if oh is None else int(oh), cost=float(cost_best))
+        free_exchange=-1 if oh is None else int(oh), cost=float(cost_best), parts=parts if split else ())
     regions = []
     for k in range(K):
         for m in assignment.exclusive(k):

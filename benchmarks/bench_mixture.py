@@ -22,7 +22,7 @@ the pairs whose records list every proton (a record may list a CH2 as one proton
 tests/data/mixture_isomer_pairs.json, simulated 400 MHz spectra from
 experimental shifts, fitted with the predicted spectra).
 
-usage: python benchmarks/bench_mixture.py [--limit N] [--half fit|held_back] [--dump FILE] [--spectra [--seeds N] [--snr S] [--quick]]
+usage: python benchmarks/bench_mixture.py [--limit N] [--half fit|held_back] [--dump FILE] [--reversed] [--spectra [--seeds N] [--snr S] [--quick]]
 """
 
 from __future__ import annotations
@@ -128,7 +128,7 @@ def peaklist_tasks(limit: int = 0) -> tuple[list[dict], Path]:
     return out, dev
 
 
-def main_peaklists(limit: int, half: str | None = None, dump: str | None = None) -> None:
+def main_peaklists(limit: int, half: str | None = None, dump: str | None = None, reverse: bool = False) -> None:
     from specmatch.errors import SpecmatchError
     from specmatch.identification.mixture import estimate_mixture
     from specmatch.prediction import predict
@@ -139,7 +139,7 @@ def main_peaklists(limit: int, half: str | None = None, dump: str | None = None)
         tasks = [t for t in tasks if t["half"] == half]
     print(f"inputs: {dev}; {len({(t['a'], t['b']) for t in tasks})} isomer pairs with experimental 1H, "
           f"true major fractions {', '.join(f'{r:.2f}' for r in RATIOS)}; multiplets +-{HALF_WIDTH_PPM} ppm, "
-          f"merged within {MERGE_PPM} ppm")
+          f"merged within {MERGE_PPM} ppm; candidates given {'minor first' if reverse else 'major first'}")
     print(f"predictor: {predict('CCO').tables_version}")
     rows = []
     t0 = time.time()
@@ -147,13 +147,15 @@ def main_peaklists(limit: int, half: str | None = None, dump: str | None = None)
         mults = tuple(Multiplet((lo + hi) / 2, (lo - HALF_WIDTH_PPM, hi + HALF_WIDTH_PPM), i, "m")
                       for lo, hi, i in t["multiplets"])
         pl = PeakList("1H", (), mults, frequency_mhz=400.0, solvent="CDCl3", source="bench peak list")
+        # the major compound is listed first unless --reversed (the estimate must not care)
+        j = 1 if reverse else 0
         try:
-            est = estimate_mixture([t["a"], t["b"]], peaklist=pl, solvent="CDCl3")
+            est = estimate_mixture([t["b"], t["a"]] if reverse else [t["a"], t["b"]], peaklist=pl, solvent="CDCl3")
         except SpecmatchError as exc:
             rows.append({**t, "error": str(exc)})
             continue
-        lo, hi = est.interval_95[0]
-        rows.append({**t, "est": est.fractions[0], "sd": est.uncertainties[0], "lo": lo, "hi": hi, "error": None})
+        lo, hi = est.interval_95[j]
+        rows.append({**t, "est": est.fractions[j], "sd": est.uncertainties[j], "lo": lo, "hi": hi, "error": None})
     groups = ([(h, None) for h in ("fit", "held_back", None)] + [(h, True) for h in ("fit", "held_back", None)]
               + [(h, "every_h") for h in ("fit", "held_back", None)])
     for half, core in groups:
@@ -191,13 +193,15 @@ def main() -> None:
     ap.add_argument("--half", choices=("fit", "held_back"), default=None,
                     help="peak lists: only this half (develop on 'fit'; the held-back half is the honest figure)")
     ap.add_argument("--dump", default=None, help="peak lists: write one JSON line per task to this file")
+    ap.add_argument("--reversed", action="store_true",
+                    help="peak lists: give the candidates minor first (the figures must not depend on the order)")
     ap.add_argument("--spectra", action="store_true", help="the synthetic full-spectrum benchmark instead")
     ap.add_argument("--seeds", type=int, default=2, help="noise/J draws per pair and ratio (default 2)")
     ap.add_argument("--snr", type=float, default=500.0, help="tallest compound line / noise sd (default 500)")
     ap.add_argument("--quick", action="store_true", help="ratios 0.9 and 0.6 only, one seed")
     args = ap.parse_args()
     if not args.spectra:
-        main_peaklists(args.limit, args.half, args.dump)
+        main_peaklists(args.limit, args.half, args.dump, args.reversed)
         return
 
     from specmatch.identification.mixture import estimate_mixture

@@ -13,7 +13,8 @@ Prints its inputs (file, scope, molecules, CPUs), then
   the whole ``predict_structure`` and the JSON row;
 - the whole command ``specmatch predict --batch IN --out OUT`` (one process start, default
   worker policy, and ``--workers 0``) in molecules/s, start-up included;
-- the start-up time of ``specmatch --help`` (best of 5);
+- the start-up time of ``specmatch --help`` and of a one-molecule ``predict --batch``
+  (best of 5, wall and CPU);
 - with ``--baseline DIR`` (another source tree of specmatch, e.g. a checkout of the
   previous commit: ``git worktree add /tmp/base HEAD~3``), the whole command of that
   tree and of this one, alternately, ``--rounds`` times each, wall and CPU seconds
@@ -142,15 +143,19 @@ def _command(smiles: list[str], workers: str | None, tree: str | None = None) ->
     return wall, cpu
 
 
-def _startup() -> float:
+def _startup(args: list[str] | None = None) -> tuple[float, float]:
+    """Best wall and CPU seconds of 5 runs of ``specmatch ARGS`` (default ``--help``)."""
     exe = shutil.which("specmatch", path=str(Path(sys.executable).parent)) or shutil.which("specmatch")
     cmd = [exe] if exe else [sys.executable, "-m", "specmatch"]
-    best = float("inf")
+    best, best_cpu = float("inf"), float("inf")
     for _ in range(5):
+        before = resource.getrusage(resource.RUSAGE_CHILDREN)
         t = time.perf_counter()
-        subprocess.run(cmd + ["--help"], capture_output=True)
+        subprocess.run(cmd + (args or ["--help"]), capture_output=True)
         best = min(best, time.perf_counter() - t)
-    return best
+        after = resource.getrusage(resource.RUSAGE_CHILDREN)
+        best_cpu = min(best_cpu, after.ru_utime - before.ru_utime + after.ru_stime - before.ru_stime)
+    return best, best_cpu
 
 
 def main() -> None:
@@ -183,7 +188,13 @@ def main() -> None:
         what = "default workers" if workers is None else f"--workers {workers}"
         print(f"whole command, {what}: {len(smiles) / wall:.0f} molecules/s ({wall:.2f} s wall, "
               f"{cpu:.2f} s CPU, start-up included)")
-    print(f"start-up, specmatch --help (best of 5): {_startup():.2f} s")
+    wall, cpu = _startup()
+    print(f"start-up, specmatch --help (best of 5): {wall:.2f} s wall, {cpu:.2f} s CPU")
+    with tempfile.TemporaryDirectory() as tmp:
+        src = os.path.join(tmp, "one.smi")
+        Path(src).write_text("CC(C)CO\n", encoding="utf-8")
+        wall, cpu = _startup(["predict", "--batch", src, "--out", os.path.join(tmp, "one.jsonl")])
+    print(f"start-up, one-molecule predict --batch (best of 5): {wall:.2f} s wall, {cpu:.2f} s CPU")
 
 
 def _compare(smiles: list[str], baseline: str, rounds: int, workers: str) -> None:

@@ -1,3 +1,3 @@
-from specmatch.cli import main
+from specmatch.cli import console_main
 
-raise SystemExit(main())
+console_main()

@@ -50,3 +50,20 @@ def test_bad_workers_option_is_a_usage_error(tmp_path):
     src.write_text("CCO\n", encoding="utf-8")
     p = run("--batch", str(src), "--out", str(tmp_path / "o.jsonl"), "--workers", "many")
     assert p.returncode == 2 and "Traceback" not in p.stderr
+
+
+def test_batch_command_ends_without_teardown_but_runs_exit_functions(tmp_path):
+    # console_main skips the interpreter's teardown after a batch (its output closed) but
+    # still flushes the streams and runs the atexit functions; main() itself returns
+    src, out = tmp_path / "in.smi", tmp_path / "out.jsonl"
+    src.write_text("CCO\nC1CC\n", encoding="utf-8")
+    code = ("import atexit, sys; atexit.register(lambda: print('exit functions ran', file=sys.stderr)); "
+            f"sys.argv = ['specmatch', 'predict', '--batch', {str(src)!r}, '--out', {str(out)!r}]; "
+            "from specmatch.cli import console_main; print('stdout kept', end=''); console_main()")
+    p = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+    assert p.returncode == 1 and p.stdout == "stdout kept"
+    assert "exit functions ran" in p.stderr and "1 predicted, 1 failed" in p.stderr
+    assert len(out.read_text(encoding="utf-8").splitlines()) == 2
+    from specmatch.cli import main
+
+    assert main(["predict", "--batch", str(src), "--out", str(out)]) == 1  # returns in-process

@@ -24,7 +24,13 @@ EXIT_USER_ERROR = 2
 _COMMAND_MODULES = ("predict", "simulate", "enumerate", "peaks", "rank", "identify", "history", "app")
 
 
-def build_parser() -> argparse.ArgumentParser:
+#: commands whose module registers that one command alone: run as the first word, only
+#: that module is imported to parse the line (the batch commands' start-up)
+_ALONE = ("predict", "rank")
+
+
+def build_parser(only: str | None = None) -> argparse.ArgumentParser:
+    """The ``specmatch`` parser; ``only``: register that command's module alone."""
     ap = argparse.ArgumentParser(
         prog="specmatch",
         description="Which isomer did the carbocation reaction give? Enumerate the products, "
@@ -34,14 +40,42 @@ def build_parser() -> argparse.ArgumentParser:
     ap.add_argument("--version", action="version", version=f"specmatch {__version__}")
     ap.add_argument("--debug", action="store_true", help="show tracebacks on errors")
     sub = ap.add_subparsers(dest="command", metavar="COMMAND")
-    for name in _COMMAND_MODULES:
+    for name in _COMMAND_MODULES if only is None else (only,):
         import_module(f"{__name__}.{name}").register(sub)
     return ap
 
 
+def console_main() -> None:
+    """The ``specmatch`` command (console script and ``python -m specmatch``): :func:`main`,
+    then exit with its status.
+
+    A batch command that has written and closed its output asks to end without the
+    interpreter's teardown (``_common._fast_exit_after``): streams are flushed and the
+    ``atexit`` functions run, then the process exits at once. ``main()`` itself always
+    returns, so callers in Python (tests) are unaffected.
+    """
+    code = main()
+    from . import _common
+
+    if _common.FAST_EXIT:
+        import atexit
+        import os
+
+        try:
+            sys.stdout.flush()
+            sys.stderr.flush()
+        except (OSError, ValueError):  # a closed pipe (output into `head`): nothing more to say
+            pass
+        atexit._run_exitfuncs()
+        os._exit(code)
+    raise SystemExit(code)
+
+
 def main(argv: Sequence[str] | None = None) -> int:
-    parser = build_parser()
-    args = parser.parse_args(argv)
+    words = list(sys.argv[1:] if argv is None else argv)
+    first = next((w for w in words if not w.startswith("-")), None)
+    parser = build_parser(first if first in _ALONE else None)
+    args = parser.parse_args(words)
     if not getattr(args, "func", None):
         parser.print_help()
         return 0

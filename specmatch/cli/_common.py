@@ -9,6 +9,22 @@ from typing import Any
 from ..errors import SpecmatchError
 
 
+#: set by a batch handler whose output is written and closed: the ``specmatch`` command
+#: then ends without the interpreter's teardown (see :func:`specmatch.cli.console_main`)
+FAST_EXIT = False
+
+
+def _fast_exit_after() -> None:
+    """Ask :func:`specmatch.cli.console_main` to skip the teardown once this command returns.
+
+    Freeing a batch's caches (thousands of predictions and RDKit molecules) and the
+    correction tables one object at a time costs 0.1-0.2 s at exit, a fifth of a
+    710-molecule ``predict --batch``; the operating system frees the memory at once.
+    """
+    global FAST_EXIT
+    FAST_EXIT = True
+
+
 def _print_json(obj: Any) -> None:
     json.dump(obj, sys.stdout, indent=2, ensure_ascii=False, default=str)
     sys.stdout.write("\n")

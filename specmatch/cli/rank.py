@@ -6,7 +6,7 @@ import argparse
 import sys
 
 from ..errors import SpecmatchError
-from ._common import _progress
+from ._common import _fast_exit_after, _progress
 
 
 def cmd_rank(args: argparse.Namespace) -> int:
@@ -21,6 +21,7 @@ def cmd_rank(args: argparse.Namespace) -> int:
     print(f"specmatch rank: {total - failed} of {total} task(s) ranked, {failed} failed"
           + (f" (see the 'error' field in {args.out})" if failed else "") + f"; results in {args.out}",
           file=sys.stderr)
+    _fast_exit_after()  # every line written and the file closed
     return 1 if failed else 0
 
 

@@ -512,12 +512,14 @@ def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: li
 
     g = graph if graph is not None else MolGraph(mol)
     sp3 = Chem.HybridizationType.SP3
-    # sp3 atoms (of any element), read once
-    tetrahedral = [mol.GetAtomWithIdx(i).GetHybridization() == sp3 for i in range(g.n)]
     nbrs_of, nh_of = g.nbrs, g.nh_total
+
+    def tetrahedral(i: int) -> bool:  # sp3 (any element); asked only where it decides
+        return mol.GetAtomWithIdx(i).GetHybridization() == sp3
+
     # Cheap pre-test: without a stereo element or a prochiral centre nothing can be
     # diastereotopic, which spares the labelled-molecule test for most small molecules.
-    if not original_stereo and not any(tetrahedral[i] and nh_of[i] <= 1 and _may_be_prochiral(nbrs_of[i], classes)
+    if not original_stereo and not any(nh_of[i] <= 1 and _may_be_prochiral(nbrs_of[i], classes) and tetrahedral(i)
                                        for i in range(g.n)):
         return frozenset(), ()
     # Fast path of the substitution test, without building the labelled molecule: when no
@@ -562,10 +564,11 @@ def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: li
     # twin ligands): equivalent atoms get the same answer, so each class is labelled once
     known: dict[tuple[int, ...], bool] = {}
     for idx in range(g.n):
-        if g.z[idx] != 6 or not tetrahedral[idx]:
+        n_h = nh_of[idx]
+        # a CH3 is neither a CH2 nor a centre with twin ligands that can become a stereocentre
+        if g.z[idx] != 6 or n_h > 2 or not tetrahedral(idx):
             continue
         neighbours = nbrs_of[idx]
-        n_h = nh_of[idx]
         has_other = bool(elsewhere - {idx})
         other_element = fast and has_other
         # with configurations given, in a chiral molecule: a stereogenic labelled centre

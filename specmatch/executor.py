@@ -355,6 +355,19 @@ class _Worker:
         self.buf = bytearray()
 
 
+def _release_in_order(group: list[Outcome], buffered: dict[int, Outcome], next_out: int
+                      ) -> tuple[list[Outcome], int]:
+    """Park ``group`` in ``buffered`` and take out the run of outcomes that continues at
+    ``next_out`` (ordered output: a later chunk may finish first)."""
+    for o in group:
+        buffered[o.index] = o
+    out = []
+    while next_out in buffered:
+        out.append(buffered.pop(next_out))
+        next_out += 1
+    return out, next_out
+
+
 class _Forked:
     """Local workers forked from this process and fed over two pipes each: the workers
     inherit the item list, so a chunk is sent as two numbers and comes back as one
@@ -470,12 +483,7 @@ class _Forked:
                     for i, (ok, value) in enumerate(results, start=first):
                         group.append(Outcome(i, ok, value if ok else None, "" if ok else str(value)))
             if ordered:
-                for o in group:
-                    buffered[o.index] = o
-                group = []
-                while next_out in buffered:
-                    group.append(buffered.pop(next_out))
-                    next_out += 1
+                group, next_out = _release_in_order(group, buffered, next_out)
             if group:
                 yield group
 
@@ -671,12 +679,7 @@ def _drive(pool: Any, fn: Callable, items: Iterable[Any], ordered: bool,
             for i, (ok, value) in zip(idx, results):
                 group_out.append(Outcome(i, ok, value if ok else None, "" if ok else str(value)))
         if ordered:
-            for o in group_out:
-                buffered[o.index] = o
-            group_out = []
-            while next_out in buffered:
-                group_out.append(buffered.pop(next_out))
-                next_out += 1
+            group_out, next_out = _release_in_order(group_out, buffered, next_out)
         # after the buffer is flushed: with nothing in flight it is empty, so this
         # always sends more while items are left
         top_up()

@@ -459,21 +459,32 @@ def pack_table(path: Path) -> None:
                    array("d", [x[3] for x in items]), array("d", [x[4] for x in items])])
 
 
-def read_packed_table(path: Path) -> HoseTable | None:
-    """The correction table of ``path`` from its packed copy (None if absent or stale)."""
+def _packed_codes(path: Path, kind: str, typecodes: list[str]):
+    """Header, code texts and the other arrays of the packed copy of ``path``: None if
+    the copy is absent, stale, of another kind or layout, or its codes do not line up
+    with the first value array (a damaged copy falls back to the CSV)."""
     got = _read_packed(path)
-    if got is None or got[0].get("kind") != "codes":
+    if got is None or got[0].get("kind") != kind:
         return None
     h, arrays = got
-    if [a.typecode for a in arrays] != ["B", "I", "d", "d"]:
+    if [a.typecode for a in arrays] != typecodes:
         return None
-    text, ns, means, sds = arrays
+    text, *values = arrays
     try:
         codes = text.tobytes().decode("ascii").split("\n") if len(text) else []
     except UnicodeDecodeError:
         return None
-    if len(codes) != len(ns):
+    if len(codes) != len(values[0]):
         return None
+    return h, codes, values
+
+
+def read_packed_table(path: Path) -> HoseTable | None:
+    """The correction table of ``path`` from its packed copy (None if absent or stale)."""
+    got = _packed_codes(path, "codes", ["B", "I", "d", "d"])
+    if got is None:
+        return None
+    h, codes, (ns, means, sds) = got
     spans, at = {}, 0
     for r, n in h["radii"]:
         spans[r] = (at, at + n)  # rows sorted by code text within each radius: bisect finds them
@@ -691,19 +702,10 @@ def pack_layer(path: Path) -> None:
 
 def read_packed_layer(path: Path) -> NeighbourLayer | None:
     """The neighbour layer of ``path`` from its packed copy (None if absent or stale)."""
-    got = _read_packed(path)
-    if got is None or got[0].get("kind") != "layer":
+    got = _packed_codes(path, "layer", ["B", "d"])
+    if got is None:
         return None
-    h, arrays = got
-    if [a.typecode for a in arrays] != ["B", "d"]:
-        return None
-    text, weights = arrays
-    try:
-        codes = text.tobytes().decode("ascii").split("\n") if len(text) else []
-    except UnicodeDecodeError:
-        return None
-    if len(codes) != len(weights):
-        return None
+    h, codes, (weights,) = got
     by_prefix, at = {}, 0
     for prefix, n in h["prefixes"]:
         by_prefix[prefix] = dict(zip(codes[at:at + n], weights[at:at + n]))

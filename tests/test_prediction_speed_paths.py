@@ -250,3 +250,16 @@ def test_row_json_is_json_dumps_of_the_row():
     plain = Prediction("CC", "CC", (CarbonShift((0,), 7.126, 0.333, 3, "CH3 \u00b5"),),
                        (ProtonGroup((0, 1), 0.8765, 0.1, 6, "d", (7.04, 1.25), True, False),), ("w\u00e9\"",))
     assert row_json(plain, "CC") == json.dumps(plain.to_dict())
+
+
+@pytest.mark.parametrize("n_items,chunk,workers", [(710, 22, 2), (7000, 218, 2), (10, 4, 2), (1, 1, 1), (0, 4, 2),
+                                                    (333, 16, 3)])
+def test_chunk_spans_cover_every_item_once_in_order(n_items, chunk, workers):
+    """The forked pool's spans (shrinking toward the end) hold every item once, in order."""
+    from specmatch.executor import _chunk_spans
+
+    spans = _chunk_spans(n_items, chunk, workers)
+    assert [i for a, b in spans for i in range(a, b)] == list(range(n_items))
+    assert all(0 < b - a <= chunk for a, b in spans)
+    sizes = [b - a for a, b in spans]
+    assert sizes[:-1] == sorted(sizes[:-1], reverse=True)

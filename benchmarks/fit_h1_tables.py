@@ -49,6 +49,9 @@ from specmatch.prediction.h1 import tables as h1_tables  # noqa: E402
 from specmatch.prediction.h1.environment import proton_sites  # noqa: E402
 from specmatch.structures import parse_structure  # noqa: E402
 
+sys.path.insert(0, str(ROOT / "benchmarks"))
+from dev_exclusions import H1_EXCLUDED  # noqa: E402
+
 DEFAULT_DATA = ROOT.parent / "shared" / "reference" / "nmrshiftdb2_dev.jsonl"
 HUBER_PPM = 0.2
 MIN_SUPPORT = 3  # protons; rows seen less often keep their handbook value
@@ -105,6 +108,8 @@ def load_molecules(path: Path, keys: dict[str, int]):
         if m is None or len(spec) != sum(a.GetTotalNumHs() for a in m.GetAtoms()):
             continue
         n_rec += 1
+        if rec["nmrshiftdb2_id"] in H1_EXCLUDED:  # listed shifts not of this structure: not fitted on
+            continue
         try:
             st = parse_structure(rec["smiles"])
         except SpecmatchError:
@@ -260,7 +265,8 @@ def main() -> None:
     n_prot = sum(len(m["y"]) for m in mols)
     n_core = sum(m["core"] for m in mols)
     print(f"data: {a.data}")
-    print(f"records with a complete 1H list: {n_rec}; used {len(mols)} molecules ({n_core} core), {n_prot} protons")
+    print(f"records with a complete 1H list: {n_rec}; used {len(mols)} molecules ({n_core} core), {n_prot} protons "
+          f"({len(H1_EXCLUDED)} records left out, benchmarks/dev_exclusions.py)")
     if missing:
         print(f"terms without a table row (ignored): {missing}")
     base_all = errors(mols, x0)

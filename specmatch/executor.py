@@ -368,6 +368,22 @@ def _release_in_order(group: list[Outcome], buffered: dict[int, Outcome], next_o
     return out, next_out
 
 
+def _chunk_spans(n_items: int, chunk: int, workers: int) -> list[tuple[int, int]]:
+    """(first, end) item spans: ``chunk`` items each, shrinking toward the end of the batch.
+
+    A span is at most the items left over four times the workers, so the last spans are
+    small (down to a quarter of ``chunk``) and the workers finish together: with equal
+    spans one worker may still run a whole span after the other has run out of work.
+    """
+    spans, first = [], 0
+    smallest = max(1, chunk // 4)
+    while first < n_items:
+        size = max(smallest, min(chunk, -(-(n_items - first) // (4 * max(1, workers)))))
+        spans.append((first, min(n_items, first + size)))
+        first += size
+    return spans
+
+
 class _Forked:
     """Local workers forked from this process and fed over two pipes each: the workers
     inherit the item list, so a chunk is sent as two numbers and comes back as one
@@ -442,8 +458,7 @@ class _Forked:
         import pickle
         import select
 
-        n_items = len(self.items)
-        todo = [(first, min(n_items, first + chunk)) for first in range(0, n_items, chunk)]
+        todo = _chunk_spans(len(self.items), chunk, len(self.workers))
         todo.reverse()  # popped from the end: first chunk first
         buffered: dict[int, Outcome] = {}
         next_out = 0

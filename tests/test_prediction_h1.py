@@ -112,12 +112,37 @@ def test_toluene():
     ("C1CCOC1", 4, 3.73, 0.2),      # THF OCH2 (from memory)
     ("C=CC", 1, 5.83, 0.25),        # propene CH= (from memory)
     ("CC=O", 1, 9.79, 0.3),         # acetaldehyde CHO (from memory)
+    # intramolecular O-H...O=C hydrogen bond (CDCl3, from memory)
+    ("O=Cc1ccccc1O", 8, 11.0, 0.6),       # salicylaldehyde OH
+    ("CC(=O)/C=C(/C)O", 6, 15.5, 0.7),    # enol of pentane-2,4-dione OH
+    # fused rings: peri and bay protons (CDCl3, from memory)
+    ("Oc1cccc2ccccc12", 9, 8.2, 0.25),    # 1-naphthol H8 (peri OH)
+    ("O=Cc1cccc2ccccc12", 10, 9.25, 0.3),  # 1-naphthaldehyde H8 (peri CHO)
+    ("c1ccc2c(c1)ccc1ccccc12", 2, 8.70, 0.25),  # phenanthrene H4/H5 (bay)
 ])
 def test_handbook_shifts(smiles, atom, shift, tol):
     found = on_atom(smiles, atom)
     assert found, f"no 1H signal on atom {atom} of {smiles}: the case would check nothing"
     for g in found:
         assert g.shift == pytest.approx(shift, abs=tol), (smiles, g)
+
+
+def test_chelated_oh_only_next_to_the_carbonyl():
+    # 2-hydroxybenzaldehyde's OH is hydrogen-bonded to the C=O (about 11 ppm), the
+    # 4-isomer's is not (near 6 ppm in CDCl3; from memory): the term must not fire para
+    ortho = [g for g in groups("O=Cc1ccccc1O") if g.exchangeable]
+    para = [g for g in groups("O=Cc1ccc(O)cc1") if g.exchangeable]
+    assert "chelated" in ortho[0].environment and "chelated" not in para[0].environment
+    assert ortho[0].shift - para[0].shift > 3.0
+
+
+def test_fused_ring_downfield_protons_in_order():
+    # the peri H8 of 1-naphthol and the bay H4/H5 of phenanthrene are the most downfield
+    # ring protons of their molecules (1-naphthol H8 8.2, H2 6.8; phenanthrene H4 8.7,
+    # H9 7.7 ppm; from memory): the ring-H order a mixture assignment relies on
+    for smiles, atom in (("Oc1cccc2ccccc12", 9), ("c1ccc2c(c1)ccc1ccccc12", 2)):
+        ring = [g for g in groups(smiles) if not g.exchangeable]
+        assert max(ring, key=lambda g: g.shift).atoms[0] == atom, smiles
 
 
 def test_methane_and_cyclohexane_are_singlets():

@@ -193,3 +193,73 @@ def test_forked_worker_that_dies_fails_only_its_running_chunk():
     assert [o.index for o in out if o.error == WORKER_DIED] == [12, 13, 14, 15]
     assert "ValueError" in out[20].error and "pickle" in out[30].error
     assert all(o.value == 2 * o.index for o in out if o.ok) and sum(o.ok for o in out) == 50 - 6
+
+
+def test_increment_table_fast_reader_equals_the_csv_module(tmp_path):
+    """The byte-level reader of the 13C increment CSV gives what the csv module gives, on
+    the shipped file and on a file it must leave to the csv module (quoted term, a quoted
+    field running over a line end)."""
+    import csv
+
+    from specmatch.prediction.c13.tables import TABLE_DIR, _read_increments
+
+    def by_csv(path):
+        value, support = {}, {}
+        with open(path, newline="", encoding="utf-8") as fh:
+            for row in csv.DictReader(fh):
+                value[row["term"]] = float(row["shift_ppm"])
+                support[row["term"]] = int(row["n_carbons"])
+        return value, support
+
+    shipped = TABLE_DIR / "c13_increments.csv"
+    assert _read_increments(shipped) == by_csv(shipped)
+    odd = tmp_path / "odd.csv"
+    odd.write_text('term,shift_ppm,handbook_ppm,n_carbons,meaning,source\r\n'
+                   '"a,b",1.5,1,3,"two\r\nlines",x\r\nc,2,1,4,plain,"y, z"\r\n', encoding="utf-8")
+    assert _read_increments(odd) == by_csv(odd) == ({"a,b": 1.5, "c": 2.0}, {"a,b": 3, "c": 4})
+
+
+def test_row_json_is_json_dumps_of_the_row():
+    """The directly written row is ``json.dumps`` of ``Prediction.to_dict()`` (with the
+    input SMILES), byte for byte, on the nmrshiftdb2 test subsets (tests/data, attributed
+    there) and on a prediction holding non-finite numbers and a non-ASCII warning."""
+    import math
+    from pathlib import Path
+
+    from specmatch.prediction import CarbonShift, Prediction, ProtonGroup
+    from specmatch.prediction.batch import row_json
+
+    data = Path(__file__).parent / "data"
+    smiles = []
+    for name in ("nmrshiftdb2_c13_subset.jsonl", "nmrshiftdb2_h1_core_subset.jsonl"):
+        for line in (data / name).read_text(encoding="utf-8").splitlines():
+            rec = json.loads(line)
+            if "smiles" in rec:
+                smiles.append(rec["smiles"])
+    assert len(smiles) > 150
+    for smi in smiles:
+        pred = predict(smi, geometry=False)
+        row = pred.to_dict()
+        row["smiles"] = smi
+        assert row_json(pred, smi) == json.dumps(row), smi
+    odd = Prediction("CC", "CC", (CarbonShift((0, 1), math.nan, 1.0, 3, "CH3 \u00b5"),),
+                     (ProtonGroup((0, 1), 0.9, math.inf, 6, "s", (7.04,), False, True),), ("w\u00e9\"",))
+    row = odd.to_dict()
+    row["smiles"] = "C C"
+    assert row_json(odd, "C C") == json.dumps(row)
+    plain = Prediction("CC", "CC", (CarbonShift((0,), 7.126, 0.333, 3, "CH3 \u00b5"),),
+                       (ProtonGroup((0, 1), 0.8765, 0.1, 6, "d", (7.04, 1.25), True, False),), ("w\u00e9\"",))
+    assert row_json(plain, "CC") == json.dumps(plain.to_dict())
+
+
+@pytest.mark.parametrize("n_items,chunk,workers", [(710, 22, 2), (7000, 218, 2), (10, 4, 2), (1, 1, 1), (0, 4, 2),
+                                                    (333, 16, 3)])
+def test_chunk_spans_cover_every_item_once_in_order(n_items, chunk, workers):
+    """The forked pool's spans (shrinking toward the end) hold every item once, in order."""
+    from specmatch.executor import _chunk_spans
+
+    spans = _chunk_spans(n_items, chunk, workers)
+    assert [i for a, b in spans for i in range(a, b)] == list(range(n_items))
+    assert all(0 < b - a <= chunk for a, b in spans)
+    sizes = [b - a for a, b in spans]
+    assert sizes[:-1] == sorted(sizes[:-1], reverse=True)

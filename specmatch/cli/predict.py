@@ -38,7 +38,7 @@ def _batch(args: argparse.Namespace) -> int:
     from functools import partial
 
     from ..executor import plan_workers, run_tasks
-    from ..prediction.batch import predict_line, warm
+    from ..prediction.batch import predict_line, warm, worker_setup
 
     if not args.out:
         raise SpecmatchError("--batch needs --out OUT.jsonl")
@@ -53,7 +53,8 @@ def _batch(args: argparse.Namespace) -> int:
     n_ok = n_failed = n_skipped = 0
     first_error = ""
     with _open_out(args.out) as out, _progress(len(lines), "predict") as bar, \
-            closing(run_tasks(task, lines, plan, ordered=True, chunk=chunk, fork=True)) as outcomes:
+            closing(run_tasks(task, lines, plan, ordered=True, chunk=chunk, fork=True,
+                              initializer=worker_setup if plan.kind == "processes" else None)) as outcomes:
         for group in outcomes:
             for o in group:
                 if o.ok:

@@ -785,24 +785,22 @@ class NeighbourLayer:
                 t20(r0, 0.0) + t21(r1, 0.0), t30(r0, 0.0) + t31(r1, 0.0)) for r0, r1, r2 in hexes]
         out = []
         for centre in centres:
-            c0 = hexes[centre][0]
-            paired = (None, *(parts.get(f"{d}:c{c0}", empty).get for d in (1, 2, 3)))
-            paired_r1 = parts.get(f"1:d{c0}", empty).get
-            paired2_r1 = parts.get(f"2:d{c0}", empty).get
-            paired2_c1 = parts.get(f"2:e{hexes[centre][1]}", empty).get
-            paired3_c1 = parts.get(f"3:e{hexes[centre][1]}", empty).get
+            c0, c1 = hexes[centre][0], hexes[centre][1]
+            p1, p2, p3 = (parts.get(f"{d}:c{c0}", empty).get for d in (1, 2, 3))
+            q1, q2 = parts.get(f"1:d{c0}", empty).get, parts.get(f"2:d{c0}", empty).get
+            e2, e3 = parts.get(f"2:e{c1}", empty).get, parts.get(f"3:e{c1}", empty).get
             values = []
+            add = values.extend
             for a, d in enumerate(dist[centre]):
-                if 1 <= d <= LAYER_DISTANCE:
-                    values.append(own[a][d])
-                    values.append(paired[d](hexes[a][0], 0.0))
-                    if d == 1:
-                        values.append(paired_r1(hexes[a][1], 0.0))
-                    elif d == 2:
-                        values.append(paired2_r1(hexes[a][1], 0.0))
-                        values.append(paired2_c1(hexes[a][0], 0.0))
-                    else:
-                        values.append(paired3_c1(hexes[a][0], 0.0))
+                if d == 1:
+                    r0, r1, _ = hexes[a]
+                    add((own[a][1], p1(r0, 0.0), q1(r1, 0.0)))
+                elif d == 2:
+                    r0, r1, _ = hexes[a]
+                    add((own[a][2], p2(r0, 0.0), q2(r1, 0.0), e2(r0, 0.0)))
+                elif d == 3:
+                    r0 = hexes[a][0]
+                    add((own[a][3], p3(r0, 0.0), e3(r0, 0.0)))
             out.append(math.fsum(values))
         return out
 

@@ -546,6 +546,38 @@ def _aromatic_substituent_type(g: _Graph, s: int, r: int) -> str | None:
     return t
 
 
+#: substituent types with a peri row in h1_aromatic.csv (others add no peri term)
+_PERI_TYPES = {"CH3", "alkyl", "OH", "OR", "Cl", "Br", "CHO", "COR", "COOH", "COOR", "NO2"}
+
+
+def _peri_term(g: _Graph, r: int, ring_set: set[int]) -> tuple[str, str] | None:
+    """The peri or bay term of a ring H whose ortho ring atom ``r`` is a fusion atom.
+
+    In naphthalene the alpha H (H1) faces the other ring's alpha position (C8) across
+    the fusion atom: a substituent there (peri) deshields H1 by its field and steric
+    compression (1-naphthaldehyde H8 near 9.2 ppm, 1-naphthol H8 near 8.2, from memory).
+    When that position is itself a fusion atom, the H sits in a bay (phenanthrene H4/H5
+    near 8.7 ppm against 7.8 for the naphthalene-like H1; from memory), which the
+    ortho/meta increments of the fused ring do not give. Returns ``("peri", type)``,
+    ``("bay", "ring")`` or None.
+    """
+    if not g.arom[r]:
+        return None
+    for p, o in g.nbrs[r]:
+        if p in ring_set or not g.arom[p] or not g.ri.AreAtomsInSameRing(r, p):
+            continue
+        ring_nbrs = [w for w, _ in g.nbrs[p] if w != r and g.arom[w] and g.ri.AreAtomsInSameRing(p, w)]
+        if len(ring_nbrs) >= 2 and all(w not in ring_set for w in ring_nbrs):
+            return ("bay", "ring")
+        for w, _ in g.nbrs[p]:
+            if w == r or g.ri.AreAtomsInSameRing(p, w):
+                continue
+            t = _aromatic_substituent_type(g, w, p)
+            if t in _PERI_TYPES:
+                return ("peri", t)
+    return None
+
+
 def _aromatic_site(g: _Graph, atoms: tuple[int, ...], i: int, j_hz: dict[str, float]) -> ProtonSite:
     ring = _aromatic_ring(g, i)
     coup: list[tuple[int, float]] = []
@@ -591,6 +623,11 @@ def _aromatic_site(g: _Graph, atoms: tuple[int, ...], i: int, j_hz: dict[str, fl
             if t == "F" and d in (1, 2) and n == 6:
                 coup.append((1, j_hz["3J_HF_aromatic_ortho"] if d == 1 else j_hz["4J_HF_aromatic_meta"]))
     if n == 6:
+        for k in (1, n - 1):  # fused neighbours: peri and bay positions across the ring fusion
+            where = _peri_term(g, ring[(pos + k) % n], ring_set)
+            if where:
+                terms.append((f"arom:{where[0]}:{where[1]}", 1.0))
+                words.append(f"{where[0]} {where[1]}")
         terms.insert(0, ("arom:base:base", 1.0))
         sigma_class, env = "aromatic", "ArH (benzene increments)"
     else:
@@ -654,6 +691,24 @@ def _aldehyde_site(g: _Graph, atoms: tuple[int, ...], i: int, j_hz: dict[str, fl
                       f"CHO, {kind}", tuple(coup), fallback=kind == "other")
 
 
+def _chelating_neighbour(g: _Graph, y: int) -> bool:
+    """True when the sp2 carbon ``y`` carrying an OH has a neighbour on its C=C or aromatic
+    ring that bears a carbonyl or nitro group: the OH then sits in a six-membered
+    intramolecular hydrogen bond (O-H...O=C), which moves it some 5-10 ppm downfield
+    (salicylaldehyde OH near 11 ppm, the enol of pentane-2,4-dione near 15.5 ppm; from memory)."""
+    for w, o in g.nbrs[y]:
+        if g.z[w] != 6 or o == 1.0:
+            continue  # only the partner across the C=C or along the aromatic ring (order 1.5)
+        for v, o2 in g.nbrs[w]:
+            if v == y or o2 != 1.0:
+                continue
+            if g.z[v] == 6 and not g.arom[v] and g.double_o(v):
+                return True
+            if g.z[v] == 7 and sum(1 for u, _ in g.nbrs[v] if g.z[u] == 8) == 2:
+                return True
+    return False
+
+
 def _exchangeable_site(g: _Graph, atoms: tuple[int, ...], i: int) -> ProtonSite:
     z = g.z[i]
     nb = [y for y, _ in g.nbrs[i] if g.z[y] != 1]
@@ -665,11 +720,11 @@ def _exchangeable_site(g: _Graph, atoms: tuple[int, ...], i: int) -> ProtonSite:
             if g.z[y] == 8:
                 kind = "hydroperoxide"
             elif g.z[y] == 6 and g.arom[y]:
-                kind = "phenol"
+                kind = "phenol_chelated" if _chelating_neighbour(g, y) else "phenol"
             elif g.z[y] == 6 and g.double_o(y):
                 kind = "acid"
             elif g.z[y] == 6 and not g.sp3(y):
-                kind = "enol"
+                kind = "enol_chelated" if _chelating_neighbour(g, y) else "enol"
             elif g.z[y] == 6:
                 kind = "alcohol"
             else:

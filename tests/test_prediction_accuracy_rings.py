@@ -75,3 +75,39 @@ def test_cyclohexanol_carbinol_carbon():
     carbons = predict("OC1CCCCC1").carbons
     c1 = next(c for c in carbons if c.hydrogens == 1)
     assert abs(c1.shift - 70.0) <= 3.0
+
+
+# ------------------------------------------------------------------ relative configuration
+# Without 3D (geometry=False, as predict --batch runs) the environment codes cannot tell
+# diastereomers apart; the neighbour layer's cis/trans features can.
+
+def _shift(smiles: str, hydrogens: int) -> float:
+    values = [c.shift for c in predict(smiles, geometry=False).carbons if c.hydrogens == hydrogens]
+    return sum(values) / len(values)
+
+
+def test_dimethylcyclohexane_methyls_cis_upfield_of_trans():
+    # 1,2-dimethylcyclohexane CH3: trans 20.1, cis 15.7 ppm, cis averaged over its two chairs
+    # with one axial methyl (Dalling & Grant, J. Am. Chem. Soc. 1967, 89, 6612; values from memory)
+    cis, trans = _shift("C[C@@H]1CCCC[C@@H]1C", 3), _shift("C[C@@H]1CCCC[C@H]1C", 3)
+    assert abs(cis - 15.7) <= 3.0 and abs(trans - 20.1) <= 3.0, (cis, trans)
+    assert trans - cis >= 1.5, (cis, trans)
+
+
+def test_decalin_bridgehead_cis_upfield_of_trans():
+    # decalin C4a/C8a: trans 44.0, cis 36.9 ppm (Dalling, Grant & Paul, J. Am. Chem. Soc. 1973,
+    # 95, 3718; values from memory): a fused polycycle, which the 3D stereo layer leaves alone
+    cis, trans = _shift("C1CC[C@H]2CCCC[C@H]2C1", 1), _shift("C1CC[C@H]2CCCC[C@@H]2C1", 1)
+    assert abs(cis - 36.9) <= 3.0 and abs(trans - 44.0) <= 3.0, (cis, trans)
+    assert trans - cis >= 2.0, (cis, trans)
+
+
+def test_tert_butylcyclohexanol_carbinol_axial_oh_upfield():
+    # 4-tert-butylcyclohexanol C1: cis (axial OH) 65.9, trans (equatorial OH) 71.2 ppm
+    # (Pretsch et al., from memory)
+    def carbinol(smiles: str) -> float:
+        return max(c.shift for c in predict(smiles, geometry=False).carbons if c.hydrogens == 1)
+
+    cis, trans = carbinol("O[C@H]1CC[C@@H](C(C)(C)C)CC1"), carbinol("O[C@H]1CC[C@H](C(C)(C)C)CC1")
+    assert cis < trans, (cis, trans)
+    assert abs(cis - 65.9) <= 3.0 and abs(trans - 71.2) <= 5.0, (cis, trans)

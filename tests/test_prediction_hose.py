@@ -273,3 +273,45 @@ def test_written_table_gets_its_packed_copy_and_a_stale_copy_is_ignored(tmp_path
     _write_gz_csv(path, ["test table"], "radius,code,n,mean_ppm,sd_ppm,by_fold,example",
                   ['1,"0104b75c",3,9.0000,0.5000,0:3:9.0000:0.5000,C(C)C'])
     assert read_packed_table(path) is None and read_table(path).entry(1, "0104b75c").mean == 9.0
+
+
+# ------------------------------------------------------------------ relative configuration
+def _config_feats(smiles: str) -> dict[int, list[str]]:
+    from specmatch.prediction.hose import configuration_features, hex_codes
+
+    mol = Chem.MolFromSmiles(smiles)
+    dist = Chem.GetDistanceMatrix(mol).astype(int).tolist()
+    return configuration_features(mol, hex_codes(MolCodes(mol).bits), dist, range(mol.GetNumAtoms()))
+
+
+def _relations(smiles: str) -> set[str]:
+    return {f.split(":")[1][-1] for fs in _config_feats(smiles).values() for f in fs}
+
+
+def test_ring_faces_tell_cis_from_trans():
+    # cis-1,2-dimethylcyclohexane is the meso form (1R,2S), trans the chiral (1R,2R) one; the
+    # 1,4 isomers (centres that are not CIP stereocentres) differ too
+    assert _relations("C[C@@H]1CCCC[C@@H]1C") == {"c"}  # RDKit: (1R,2S)
+    assert _relations("C[C@@H]1CCCC[C@H]1C") == {"t"}  # RDKit: (1R,2R)
+    assert _relations("C[C@H]1CC[C@@H](C)CC1") != _relations("C[C@H]1CC[C@H](C)CC1")
+    assert _config_feats("CC1CCCCC1C") == {i: [] for i in range(8)}  # no configuration given
+
+
+def test_alkene_pairs_follow_the_slashes():
+    from specmatch.prediction.hose import alkene_pairs
+
+    assert alkene_pairs(Chem.MolFromSmiles("C/C=C/C")) == [(0, 3, False)]
+    assert alkene_pairs(Chem.MolFromSmiles("C/C=C\\C")) == [(0, 3, True)]
+    assert alkene_pairs(Chem.MolFromSmiles("CC=CC")) == []
+
+
+@pytest.mark.parametrize("smiles", ["C[C@@H]1CCCC[C@H]1O", "O[C@H]1CC[C@@H](C(C)(C)C)CC1",
+                                    "C[C@@]12CCCC[C@H]1CCCC2", "C/C=C(\\C)CCl"])
+def test_configuration_features_do_not_depend_on_atom_order(smiles):
+    # the same molecule written from other atoms: the feature multiset of every atom class
+    mol = Chem.MolFromSmiles(smiles)
+    ref = sorted(sorted(v) for v in _config_feats(smiles).values())
+    assert any(ref)
+    for root in range(mol.GetNumAtoms()):
+        other = Chem.MolToSmiles(mol, rootedAtAtom=root, canonical=False)
+        assert sorted(sorted(v) for v in _config_feats(other).values()) == ref, other

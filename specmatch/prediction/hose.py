@@ -28,7 +28,10 @@ The code table knows a neighbourhood only as a whole; the layer learns the
 pieces, so a carbon whose whole environment is new still gets the part of the
 correction its neighbours explain. It applies only to carbons whose first-sphere
 code is in the table (the weights were learned there); the code table is fitted
-on the residual the layer leaves.
+on the residual the layer leaves. Where the input gives a relative configuration (two
+or more configured atoms on one ring, or a double bond of given geometry) the layer also
+has one weight per cis or trans pair near the carbon (:func:`configuration_features`):
+the codes themselves carry no geometry.
 
 Cross-validated mode. Each row also keeps its statistics per development fold
 (5 folds by InChIKey connectivity block, the folds of the fitting scripts). With
@@ -326,7 +329,8 @@ class HoseTable:
         return corr, math.sqrt(var) * (self.sigma_scale if depth else 1.0), depth
 
 
-_ROW = re.compile(r'^(\d+,"[^"]*"),(.*)$', re.M)
+#: a row of a code table's CSV (compiled on first use: the packed copies are read instead)
+_ROW = r'^(\d+,"[^"]*"),(.*)$'
 
 
 def _read_csv_table(path: Path) -> tuple[dict[str, str], float, int, float, str]:
@@ -345,7 +349,7 @@ def _read_csv_table(path: Path) -> tuple[dict[str, str], float, int, float, str]
             max_radius = int(line.split()[2])
         elif line.startswith("# sigma_scale "):
             scale = float(line.split()[2])
-    return dict(_ROW.findall(text)), shrink, max_radius, scale, "\n".join(head)
+    return dict(re.findall(_ROW, text, re.M)), shrink, max_radius, scale, "\n".join(head)
 
 
 def read_table(path: Path) -> HoseTable:
@@ -563,6 +567,153 @@ def features_from_hex(hexes: list[tuple[str, str, str]], dist_row: list[int], ce
     return out
 
 
+#: ring stereo features reach atoms this far from the nearer substituted ring atom (and the
+#: farther one at most RELATION_FAR)
+RELATION_NEAR, RELATION_FAR = 2, 4
+_TETRAHEDRAL = (Chem.ChiralType.CHI_TETRAHEDRAL_CW, Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
+
+
+def _odd(seq: list[int], ref: list[int]) -> bool:
+    """True if ``seq`` is an odd permutation of ``ref`` (four items at most)."""
+    p = [ref.index(x) for x in seq]
+    return sum(1 for i in range(len(p)) for j in range(i + 1, len(p)) if p[i] > p[j]) % 2 == 1
+
+
+def ring_faces(mol: Chem.Mol) -> dict[tuple[int, int, int], bool]:
+    """The face of every substituent on a ring stereocentre, from the chiral tags alone.
+
+    For a ring of RDKit's ring set walked in its atom order, a configured ring atom ``a``
+    with ring neighbours ``p`` (before) and ``n`` (after) and a heavy substituent ``s``
+    off that ring (the fourth neighbour ``t``: H or another substituent) lies on one face
+    or the other: the parity of (p, n, s, t) within the atom's bond order, flipped by
+    the tag (clockwise / anticlockwise). Two substituents of one ring are cis when their
+    faces agree; walking the ring the other way flips every face, so the relation does
+    not depend on the atom order (checked against 3D embeddings: 215 pairs of 215 on
+    dev molecules). No 3D is built.
+
+    Returns
+    -------
+    dict
+        ``(ring index, ring atom, substituent atom) -> face`` for rings holding two or
+        more configured atoms; empty when the molecule has fewer than two.
+    """
+    centres = [a.GetIdx() for a in mol.GetAtoms() if a.GetChiralTag() in _TETRAHEDRAL]
+    if len(centres) < 2:
+        return {}
+    rings = mol.GetRingInfo().AtomRings()
+    todo = []
+    for k, ring in enumerate(rings):
+        on = [a for a in centres if a in ring]
+        if len(on) >= 2:
+            todo.append((k, ring, on))
+    if not todo:
+        return {}
+    out: dict[tuple[int, int, int], bool] = {}
+    for k, ring, on in todo:
+        last = len(ring) - 1
+        for a in on:
+            at = mol.GetAtomWithIdx(a)
+            order = [b.GetOtherAtomIdx(a) for b in at.GetBonds()]
+            if len(order) == 3:
+                # an implicit H counts as the last neighbour of the tag's order (the faces
+                # equal those read with explicit hydrogens, Chem.AddHs, on all 860 dev
+                # molecules with configured ring atoms)
+                order.append(-1)
+            at_ring = ring.index(a)
+            p, n = ring[at_ring - 1], ring[at_ring + 1 if at_ring < last else 0]
+            exo = [x for x in order if x != p and x != n]
+            if len(order) != 4 or len(exo) != 2:
+                continue
+            ccw = at.GetChiralTag() == Chem.ChiralType.CHI_TETRAHEDRAL_CCW
+            for s, t in ((exo[0], exo[1]), (exo[1], exo[0])):
+                if s >= 0 and mol.GetAtomWithIdx(s).GetAtomicNum() != 1:
+                    out[(k, a, s)] = _odd([p, n, s, t], order) != ccw
+    return out
+
+
+_BS = Chem.BondStereo
+#: double-bond stereo values that fix which substituents are cis (True) or trans (False) to
+#: the reference atoms
+_BOND_CIS = {_BS.STEREOZ: True, _BS.STEREOCIS: True, _BS.STEREOE: False, _BS.STEREOTRANS: False}
+
+
+def alkene_pairs(mol: Chem.Mol) -> list[tuple[int, int, bool]]:
+    """``(substituent on one end, substituent on the other, cis?)`` for every pair across a
+    double bond whose geometry the input gives (E/Z or the SMILES slashes)."""
+    out = []
+    for bond in mol.GetBonds():
+        cis = _BOND_CIS.get(bond.GetStereo())
+        ref = list(bond.GetStereoAtoms())
+        if cis is None or len(ref) != 2:
+            continue
+        b0, b1 = bond.GetBeginAtom(), bond.GetEndAtom()
+        i0, i1 = b0.GetIdx(), b1.GetIdx()
+        r0, r1 = (ref[0], ref[1]) if mol.GetBondBetweenAtoms(ref[0], i0) is not None else (ref[1], ref[0])
+        for x in (n.GetIdx() for n in b0.GetNeighbors()):
+            if x == i1:
+                continue
+            for y in (n.GetIdx() for n in b1.GetNeighbors()):
+                if y != i0:
+                    # a non-reference substituent sits on the other side of its end
+                    out.append((x, y, cis if (x == r0) == (y == r1) else not cis))
+    return out
+
+
+def configuration_features(mol: Chem.Mol, hexes: list[tuple[str, str, str]], dist: list[list[int]],
+                           centres: Iterable[int]) -> dict[int, list[str]]:
+    """Features of the relative configuration the input gives, per centre atom (neighbour layer).
+
+    Rings: for every pair of substituents on two configured atoms of one ring
+    (:func:`ring_faces`), ``z:<ring size>.<ring distance>.<d1>.<d1s>.<d2>.<d2s><c|t>:<centre code>``
+    (the centre's distances to the nearer ring atom and its substituent, then to the
+    other pair; ``c`` cis, ``t`` trans) and the coarser
+    ``z:<size>.<ring distance>.<d1>.<d2><c|t>:<centre code>``. Double bonds of given
+    geometry: ``y:<d1>.<d2><c|t>:<centre code>`` for every pair of substituents across
+    (:func:`alkene_pairs`), by the centre's distances to the two. Only centres within
+    ``RELATION_NEAR`` of the nearer atom of the pair and ``RELATION_FAR`` of the other
+    get them.
+
+    The environment codes and the other layer features have no geometry: a pair of
+    diastereomers gets one prediction without these. With them the layer learns, per
+    kind of carbon near the pair, the mean shift of cis against trans (the gamma-gauche
+    interactions of axial or cis groups, averaged over the conformers the data holds).
+    Cross-validated gain: see the header of ``tables/layer_c13.csv.gz``.
+    """
+    centres = list(centres)
+    out: dict[int, list[str]] = {c: [] for c in centres}
+    faces = ring_faces(mol)
+    alkene = alkene_pairs(mol) if mol.GetNumBonds() else []
+    if not faces and not alkene:
+        return out
+    pairs = []  # (atom, its substituent, other atom, its substituent, ring text, relation)
+    if faces:
+        rings = mol.GetRingInfo().AtomRings()
+        items = sorted(faces.items())
+        for x, ((k, a, s), fa) in enumerate(items):
+            for (k2, b, u), fb in items[x + 1:]:
+                if k2 != k or b == a:
+                    continue
+                ring = rings[k]
+                gap = abs(ring.index(a) - ring.index(b))
+                pairs.append((a, s, b, u, f"{min(len(ring), 9)}.{min(gap, len(ring) - gap)}",
+                              "c" if fa == fb else "t"))
+    for c in centres:
+        d = dist[c]
+        c0 = hexes[c][0]
+        feats = out[c]
+        for a, s, b, u, ring_text, rel in pairs:
+            one, two = sorted(((d[a], d[s]), (d[b], d[u])))
+            if one[0] > RELATION_NEAR or two[0] > RELATION_FAR:
+                continue
+            feats.append(f"z:{ring_text}.{one[0]}.{one[1]}.{two[0]}.{two[1]}{rel}:{c0}")
+            feats.append(f"z:{ring_text}.{one[0]}.{two[0]}{rel}:{c0}")
+        for x, y, cis in alkene:
+            one, two = sorted((d[x], d[y]))
+            if one <= RELATION_NEAR and two <= RELATION_FAR:
+                feats.append(f"y:{one}.{two}{'c' if cis else 't'}:{c0}")
+    return out
+
+
 class NeighbourLayer:
     """Fitted weights of the neighbour layer (ridge regression of the increment residual
     on :func:`neighbour_features`), added to the increment sum before the code table.
@@ -666,7 +817,9 @@ class NeighbourLayer:
         return out
 
 
-_LAYER_ROW = re.compile(r'^([0-9a-f:]+),(.*)$', re.M)
+# features: d:... (d a distance) or the configuration features z:... and y:...
+# (compiled on first use: the packed copy is read instead)
+_LAYER_ROW = r'^([0-9yz]:[0-9a-z.:]+),(.*)$'
 
 
 def _read_csv_layer(path: Path) -> tuple[dict[str, str], str]:
@@ -675,7 +828,7 @@ def _read_csv_layer(path: Path) -> tuple[dict[str, str], str]:
     with gzip.open(path, "rt", encoding="utf-8", newline="") as fh:
         text = fh.read()
     head = [line[1:].strip() for line in text[: text.find("\nfeature,")].splitlines()]
-    return dict(_LAYER_ROW.findall(text)), "\n".join(head)
+    return dict(re.findall(_LAYER_ROW, text, re.M)), "\n".join(head)
 
 
 def read_layer(path: Path) -> NeighbourLayer:

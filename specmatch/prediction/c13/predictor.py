@@ -18,7 +18,8 @@ from dataclasses import replace
 from ...structures import Structure
 from ...structures.graph import MolGraph, graph_of
 from ...structures.molecule import DEUTERIUM_PROP, deuterium_counts
-from ..hose import MolCodes, fold_of_mol, hex_codes, load_layer, load_table, rank_tags
+from ..hose import (MolCodes, configuration_features, fold_of_mol, hex_codes, load_layer, load_table,
+                    rank_tags)
 from ..types import CarbonShift
 from .environment import carbon_environments, is_correction, nearest_term
 from .tables import SIGMA as _SIGMA, SUPPORT as _SUPPORT, TABLES_VERSION, VALUE as _VALUE
@@ -130,8 +131,8 @@ def _equivalent_carbons(structure: Structure, g: MolGraph) -> list[tuple[int, ..
     return sorted(tuple(v) for v in groups.values())
 
 
-def predict_carbons(structure: Structure, *, correction: bool = True, codes: MolCodes | None = None
-                    ) -> tuple[list[CarbonShift], list[str]]:
+def predict_carbons(structure: Structure, *, correction: bool = True, codes: MolCodes | None = None,
+                    configuration: bool = True) -> tuple[list[CarbonShift], list[str]]:
     """One :class:`CarbonShift` per set of equivalent carbons.
 
     Diastereotopic twin groups (the two methyls of an isopropyl next to a
@@ -148,6 +149,10 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
         fitted on).
     codes : MolCodes, optional
         Code builder of this molecule, if the caller already has one.
+    configuration : bool
+        Let the neighbour layer read the relative configuration the input gives
+        (``hose.configuration_features``); False where the 3D stereo layer will add
+        its own cis/trans terms (both would count the same effect twice).
 
     Returns
     -------
@@ -225,8 +230,17 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
             if layer is not None and own and table.entry(1, own[0], fold) is not None:
                 layered.append(k)
         if layered:
-            for k, v in zip(layered, layer.shifts(hex_codes(codes.bits), g.dist, [out[k][0][0] for k in layered], fold)):
+            hexes = hex_codes(codes.bits)
+            centres = [out[k][0][0] for k in layered]
+            for k, v in zip(layered, layer.shifts(hexes, g.dist, centres, fold)):
                 out[k][1] += v
+            # cis/trans on rings and double bonds, where the input gives the configuration (the
+            # isomeric SMILES differs from the plain one only then: most molecules skip the walk)
+            if configuration and structure.isomeric_smiles != structure.canonical_smiles:
+                relations = configuration_features(mol, hexes, g.dist, centres)
+                for k, centre in zip(layered, centres):
+                    if relations[centre]:
+                        out[k][1] += layer.shift(relations[centre], fold)
         for c, own in zip(out, owns):
             if not own:
                 continue

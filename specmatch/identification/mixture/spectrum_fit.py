@@ -642,6 +642,7 @@ def fit_spectrum(
     sweeps: int = 3,
     predictions: Sequence | None = None,
     start_shifts: Sequence[Sequence[float]] | None = None,
+    relocate: bool = False,
 ) -> SpectrumFit:
     """Fit a 1H spectrum as a non-negative combination of candidate spectra.
 
@@ -674,6 +675,10 @@ def fit_spectrum(
         shifts, no search, no detection test and no first-order comparison: a
         diagnostic that tells the model's reach (from the shifts a demo spectrum was
         made with) from the search's (``benchmarks/bench_spin.py --from-table``).
+    relocate : bool
+        With ``start_shifts``: after the polish, the residual-guided relocation of single
+        groups (:func:`_relocate`, as in the search) when the polish leaves more than
+        ``EXACT_RELOCATE_MIN_CHI2`` per point: a start with a group far off its place.
 
     Returns
     -------
@@ -682,7 +687,7 @@ def fit_spectrum(
     with _single_threaded_blas():
         return _fit_spectrum(ppm, intensity, components, frequency_mhz=frequency_mhz, masks_ppm=masks_ppm,
                              extra_lines_ppm=extra_lines_ppm, sweeps=sweeps, predictions=predictions,
-                             start_shifts=start_shifts)
+                             start_shifts=start_shifts, relocate=relocate)
 
 
 def _single_threaded_blas():
@@ -713,7 +718,7 @@ def _single_threaded_blas():
 
 
 def _fit_spectrum(ppm, intensity, components, *, frequency_mhz, masks_ppm, extra_lines_ppm, sweeps,
-                  predictions, start_shifts=None) -> SpectrumFit:
+                  predictions, start_shifts=None, relocate=False) -> SpectrumFit:
     f = float(frequency_mhz)
     groups = group_models(components)
     K = len(components)
@@ -751,7 +756,7 @@ def _fit_spectrum(ppm, intensity, components, *, frequency_mhz, masks_ppm, extra
                 raise SpecmatchError(f"start_shifts: {len(start_shifts)} candidates, the fit has {K}")
             theta_x[model_x.i_c] = np.clip([float(start_shifts[g.component][g.index]) for g in groups],
                                            lb_x[model_x.i_c], ub_x[model_x.i_c])
-            return _exact_polish_only(model_x, theta_x, lb_x, ub_x, predictions, free_x, n_oh)
+            return _exact_polish_only(model_x, theta_x, lb_x, ub_x, predictions, free_x, n_oh, relocate)
         try:
             exact = exact_fit(model_x, theta_x, lb_x, ub_x, predictions, free_x, n_oh)
         except SpecmatchError:
@@ -1183,6 +1188,17 @@ EXACT_ORDERED_MAX_GROUPS = 14
 #: this far (Hz) around its new place (about one vicinal coupling: the centres of a triplet
 #: and a doublet on each other's lines differ by up to half a coupling)
 EXACT_SWAP_WINDOW_HZ = 8.0
+#: residual-guided relocation (:func:`_relocate`), run when a solution leaves more than
+#: EXACT_RELOCATE_MIN_CHI2 per point (noise: 1) and less than EXACT_HOPELESS_CHI2: the
+#: residual smoothed by EXACT_RELOCATE_SMOOTH_HZ (about a multiplet's width), its
+#: EXACT_RELOCATE_TARGETS largest separated positive humps (unexplained intensity) as
+#: targets, per target the EXACT_RELOCATE_GROUPS groups that can reach it sitting where the
+#: model most exceeds the data, at most EXACT_RELOCATE_ROUNDS accepted moves
+EXACT_RELOCATE_MIN_CHI2 = 1.5
+EXACT_RELOCATE_SMOOTH_HZ = 6.0
+EXACT_RELOCATE_TARGETS = 3
+EXACT_RELOCATE_GROUPS = 4
+EXACT_RELOCATE_ROUNDS = 3
 
 
 #: exact lines are drawn as exact Lorentzians within EXACT_NEAR_POINTS grid steps (at
@@ -1913,6 +1929,77 @@ def _ordered_stage(es: _ExactModel, t: np.ndarray, lo: np.ndarray, hi: np.ndarra
     return _exact_polish(es, t, lo, hi, radius=radius)
 
 
+def _relocate(em: _ExactModel, t: np.ndarray, lo: np.ndarray, hi: np.ndarray, n_oh: int
+              ) -> tuple[np.ndarray, float]:
+    """Residual-guided relocation of single groups; (theta, cost), never worse than ``t``.
+
+    A polished solution can hold a group where the model puts intensity the data lack
+    while intensity elsewhere stays unexplained, out of reach of the per-group searches:
+    e.g. both halves of a diastereotopic CH2 on one place form a near-A2 pair whose lines
+    follow each half's shift by about one half (no line is the group's own), and moving
+    one half alone across the gap first makes things worse. Here the data residual,
+    smoothed over about a multiplet's width, gives the unexplained humps (targets); each
+    group that may reach a target is tried there, ranked by how far the model exceeds the
+    data where it sits now: the candidate simulated exactly with the group moved, amounts
+    re-solved, the group searched within ``EXACT_SWAP_WINDOW_HZ`` of the target. The best
+    trials are polished (:func:`_exact_polish`, a few rounds) and the first that lowers the
+    cost is kept; repeated up to ``EXACT_RELOCATE_ROUNDS`` times.
+    """
+    groups = em.b.groups
+    f = em.f
+    win = EXACT_SWAP_WINDOW_HZ / f
+    sep = 2.0 * EXACT_RELOCATE_SMOOTH_HZ / f
+    em.relinearise(t[em.i_c])
+    cost = em.cost(t)
+    for _ in range(EXACT_RELOCATE_ROUNDS):
+        s = _ExactSearch(em, t, hi, n_oh)
+        s.t[em.i_c] = t[em.i_c]
+        x = s.x
+        r = np.where(s.used, s.y - s.total(), 0.0)
+        rs, shrink = _smoothed(x, r, EXACT_RELOCATE_SMOOTH_HZ, f)
+        level = 3.0 * em.b.noise * shrink
+        # separated local maxima of the smoothed residual above its noise, largest first
+        peak = np.zeros(len(x), bool)
+        peak[1:-1] = (rs[1:-1] >= rs[:-2]) & (rs[1:-1] > rs[2:]) & (rs[1:-1] > level)
+        targets: list[float] = []
+        for i in np.argsort(-np.where(peak, rs, -np.inf)):
+            if not peak[i] or len(targets) >= EXACT_RELOCATE_TARGETS:
+                break
+            if all(abs(x[i] - c) >= sep for c in targets):
+                targets.append(float(x[i]))
+        trials = []
+        for c in targets:
+            able = [j for j, g in enumerate(groups)
+                    if s.active[g.component] and abs(c - g.shift0) <= g.bound and abs(t[j] - c) >= sep]
+            # over-explained places first: the smoothed residual where the group sits
+            able.sort(key=lambda j: float(np.interp(t[j], x, rs)))
+            for j in able[:EXACT_RELOCATE_GROUPS]:
+                k = groups[j].component
+                saved = (s.t.copy(), s.c, s.curves.copy(), list(em.parts), em.ref.copy())
+                sh = em.ref.copy()
+                sh[j] = c
+                em.set_part(k, em.simulate(k, sh), sh)
+                trial = s.t.copy()
+                trial[j] = c
+                s.curves = s._curves(trial)
+                s.t, s.c = s.solve(s.curves, trial)
+                s.search_group(j, win)
+                trials.append((s.c, s.t.copy()))
+                s.t, s.c, s.curves, em.parts, em.ref = saved
+                em._join()
+        moved = False
+        for c_trial, tt in sorted(trials, key=lambda a: a[0])[:2]:
+            em.relinearise(tt[em.i_c])
+            tp, cp = _exact_polish(em, tt, lo, hi, rounds=4)
+            if cp < cost:
+                t, cost, moved = tp, cp, True
+                break
+        em.relinearise(t[em.i_c])
+        if not moved or cost / max(1, len(em.b.xu)) <= EXACT_RELOCATE_MIN_CHI2:
+            break
+    return t, cost
+
+
 def _exact_run(em: _ExactModel, start: np.ndarray, lo: np.ndarray, hi: np.ndarray, n_oh: int,
                sweeps: int = EXACT_SWEEPS, polish: bool = True) -> tuple[np.ndarray, float]:
     """One start: per-group searches (largest groups first), then (``polish``) least squares,
@@ -2009,18 +2096,23 @@ def _assemble_exact(model: _Model, em: _ExactModel, t: np.ndarray, undetected: d
 
 
 def _exact_polish_only(model: _Model, theta0: np.ndarray, lb: np.ndarray, ub: np.ndarray, predictions, free,
-                       n_oh: int) -> SpectrumFit:
+                       n_oh: int, relocate: bool = False) -> SpectrumFit:
     """The exact fit polished from the shifts in ``theta0`` (exchangeable lines and width
-    searched first, then :func:`_exact_polish`); see ``fit_spectrum(start_shifts=...)``."""
+    searched first, then :func:`_exact_polish`, then with ``relocate`` :func:`_relocate`
+    if the polish leaves a misfit); see ``fit_spectrum(start_shifts=...)``."""
     em = _ExactModel(model, predictions, theta0[model.i_c])
     lo, hi = _exact_bounds(model, em, lb, ub)
     s = _ExactSearch(em, _exact_theta(model, em, theta0), hi, n_oh)
     s.search_oh()
     s.search_width()
-    t, _ = _exact_polish(em, s.t, lo, hi)
+    t, cost = _exact_polish(em, s.t, lo, hi)
+    relocated = relocate and cost / max(1, len(model.xu)) > EXACT_RELOCATE_MIN_CHI2
+    if relocated:
+        t, cost = _relocate(em, t, lo, hi, n_oh)
     em.relinearise(t[em.i_c])
     fit = _assemble_exact(model, em, t, {}, free, n_oh)
-    fit.notes.insert(0, "polished from the given start shifts (no search)")
+    fit.notes.insert(0, "polished from the given start shifts, then residual-guided relocation" if relocated
+                     else "polished from the given start shifts (no search)")
     return fit
 
 
@@ -2079,6 +2171,8 @@ def exact_fit(model: _Model, theta0: np.ndarray, lb: np.ndarray, ub: np.ndarray,
             em.relinearise(t[em.i_c])
             return _assemble_exact(model, em, t, {}, free, n_oh)
         em.relinearise(t[em.i_c])
+    if EXACT_RELOCATE_MIN_CHI2 < cost / n_pts <= EXACT_HOPELESS_CHI2:
+        t, cost = _relocate(em, t, lo, hi, n_oh)
     undetected: dict[int, float] = {}
     for k in range(em.K):
         w = t[em.i_w]

@@ -251,6 +251,13 @@ def test_row_json_is_json_dumps_of_the_row():
                        (ProtonGroup((0, 1), 0.8765, 0.1, 6, "d", (7.04, 1.25), True, False),), ("w\u00e9\"",))
     assert row_json(plain, "CC") == json.dumps(plain.to_dict())
 
+    class Scalar(float):  # a float subclass with its own repr, as numpy's scalars have
+        def __repr__(self) -> str:
+            return f"Scalar({float(self)})"
+
+    wrapped = Prediction("CC", "CC", (CarbonShift((0,), Scalar(7.126), 0.333, 3, "CH3"),), (), ())
+    assert row_json(wrapped, "CC") == json.dumps(wrapped.to_dict())
+
 
 @pytest.mark.parametrize("n_items,chunk,workers", [(710, 22, 2), (7000, 218, 2), (10, 4, 2), (1, 1, 1), (0, 4, 2),
                                                     (333, 16, 3)])

@@ -46,6 +46,9 @@ def _batch(args: argparse.Namespace) -> int:
     # the 3D stereo layer costs 0.1-1 s per molecule with a relative configuration: opt-in here
     task = partial(predict_line, geometry=True) if args.stereo_3d else predict_line
     plan = plan_workers(len(lines), args.workers, per_worker=PER_WORKER)
+    # workers without the cyclic collector (prediction/batch.py): checked for the plain
+    # predictions; the 3D layer (numpy, conformers) keeps it
+    setup = worker_setup if plan.kind == "processes" and not args.stereo_3d else None
     warm()  # tables read once here; forked workers inherit them
     # about 16 chunks per worker: a round trip costs some 50 us (two pipes, one pickled list),
     # and small last chunks keep both cores busy to the end
@@ -54,7 +57,7 @@ def _batch(args: argparse.Namespace) -> int:
     first_error = ""
     with _open_out(args.out) as out, _progress(len(lines), "predict") as bar, \
             closing(run_tasks(task, lines, plan, ordered=True, chunk=chunk, fork=True,
-                              initializer=worker_setup if plan.kind == "processes" else None)) as outcomes:
+                              initializer=setup)) as outcomes:
         for group in outcomes:
             for o in group:
                 if o.ok:

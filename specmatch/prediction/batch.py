@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import json
-import math
 from json.encoder import encode_basestring_ascii as _text
 from typing import TYPE_CHECKING, Any
 
@@ -43,17 +42,38 @@ def _bool(x: bool) -> str:
     return "true" if x else "false"
 
 
+def _plain(pred: Prediction) -> bool:
+    """Every number of the row a finite built-in float or int and every flag a bool (what
+    :func:`row_json` writes as the json module would); else the json module writes it."""
+    for c in pred.carbons:
+        if not (type(c.shift) is float and type(c.sigma) is float and c.shift - c.shift == 0.0
+                and c.sigma - c.sigma == 0.0 and type(c.hydrogens) is int):
+            return False
+    for h in pred.protons:
+        if not (type(h.shift) is float and type(h.sigma) is float and h.shift - h.shift == 0.0
+                and h.sigma - h.sigma == 0.0 and type(h.count) is int and type(h.exchangeable) is bool
+                and type(h.diastereotopic) is bool
+                and all(type(j) is float and j - j == 0.0 for j in h.j_hz)):
+            return False
+    return True
+
+
 def row_json(pred: Prediction, smiles: str) -> str:
     """``json.dumps`` of the row of a prediction (``pred.to_dict()`` with ``smiles`` set),
     the same text, written directly.
 
     Building the dictionaries and walking them costs more than the text itself (some
     50 us of a 1.3 ms prediction; this takes about 30). Every value the row holds is a
-    float (written as ``repr``, as the json module does), an int, a bool, a string or a
-    list of these; a non-finite number (none is predicted) falls back to the json module.
+    built-in float (written as ``repr``, as the json module does), int or bool, a string
+    or a list of these; any other value (a non-finite number, a numpy scalar: none is
+    predicted) is left to the json module.
     ``tests/test_prediction_speed_paths.py`` compares both on the test molecules: a key
     added to :meth:`Prediction.to_dict` must be added here.
     """
+    if not _plain(pred):
+        row = pred.to_dict()
+        row["smiles"] = smiles
+        return _encode(row)  # the json module's own text (NaN, Infinity) or its error
     rnd = round
     carbons = ", ".join([
         f'{{"atoms": [{", ".join([str(a + 1) for a in c.atoms])}], "shift": {rnd(c.shift, 2)!r}, '
@@ -65,11 +85,6 @@ def row_json(pred: Prediction, smiles: str) -> str:
         f'"j_hz": [{", ".join([repr(rnd(j, 1)) for j in h.j_hz])}], "exchangeable": {_bool(h.exchangeable)}, '
         f'"diastereotopic": {_bool(h.diastereotopic)}}}'
         for h in pred.protons])
-    if not all(math.isfinite(x) for c in pred.carbons for x in (c.shift, c.sigma)) or \
-            not all(math.isfinite(x) for h in pred.protons for x in (h.shift, h.sigma, *h.j_hz)):
-        row = pred.to_dict()
-        row["smiles"] = smiles
-        return _encode(row)  # NaN / Infinity as the json module writes them
     return (f'{{"smiles": {_text(smiles)}, "ok": true, "canonical_smiles": {_text(pred.canonical_smiles)}, '
             f'"carbons": [{carbons}], "protons": [{protons}], '
             f'"warnings": [{", ".join([_text(w) for w in pred.warnings])}]}}')

@@ -329,7 +329,8 @@ class HoseTable:
         return corr, math.sqrt(var) * (self.sigma_scale if depth else 1.0), depth
 
 
-_ROW = re.compile(r'^(\d+,"[^"]*"),(.*)$', re.M)
+#: a row of a code table's CSV (compiled on first use: the packed copies are read instead)
+_ROW = r'^(\d+,"[^"]*"),(.*)$'
 
 
 def _read_csv_table(path: Path) -> tuple[dict[str, str], float, int, float, str]:
@@ -348,7 +349,7 @@ def _read_csv_table(path: Path) -> tuple[dict[str, str], float, int, float, str]
             max_radius = int(line.split()[2])
         elif line.startswith("# sigma_scale "):
             scale = float(line.split()[2])
-    return dict(_ROW.findall(text)), shrink, max_radius, scale, "\n".join(head)
+    return dict(re.findall(_ROW, text, re.M)), shrink, max_radius, scale, "\n".join(head)
 
 
 def read_table(path: Path) -> HoseTable:
@@ -817,7 +818,8 @@ class NeighbourLayer:
 
 
 # features: d:... (d a distance) or the configuration features z:... and y:...
-_LAYER_ROW = re.compile(r'^([0-9yz]:[0-9a-z.:]+),(.*)$', re.M)
+# (compiled on first use: the packed copy is read instead)
+_LAYER_ROW = r'^([0-9yz]:[0-9a-z.:]+),(.*)$'
 
 
 def _read_csv_layer(path: Path) -> tuple[dict[str, str], str]:
@@ -826,7 +828,7 @@ def _read_csv_layer(path: Path) -> tuple[dict[str, str], str]:
     with gzip.open(path, "rt", encoding="utf-8", newline="") as fh:
         text = fh.read()
     head = [line[1:].strip() for line in text[: text.find("\nfeature,")].splitlines()]
-    return dict(_LAYER_ROW.findall(text)), "\n".join(head)
+    return dict(re.findall(_LAYER_ROW, text, re.M)), "\n".join(head)
 
 
 def read_layer(path: Path) -> NeighbourLayer:

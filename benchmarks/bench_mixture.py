@@ -171,7 +171,7 @@ def main_peaklists(limit: int, half: str | None = None, dump: str | None = None,
         err = np.array([abs(r["est"] - r["fa"]) for r in ok]) * 100
         cov95 = np.mean([r["lo"] - 1e-9 <= r["fa"] <= r["hi"] + 1e-9 for r in ok]) if ok else float("nan")
         cov68 = np.mean([abs(r["est"] - r["fa"]) <= r["sd"] for r in ok]) if ok else float("nan")
-        print(f"{half or 'all':<10} tasks {len(sel):4d}: within 3 pp {100 * np.mean(err <= 3.0):.0f}% (target >= 80%), "
+        print(f"{half or 'all':<10} tasks {len(sel):4d}: within 3 pp {100 * np.mean(err <= 3.0):.1f}% (target >= 80%), "
               f"mean |error| {err.mean():.2f} pp, 95% interval covers {100 * cov95:.0f}% (target 85-100%), "
               f"1 sd covers {100 * cov68:.0f}%, failed {len(sel) - len(ok)}")
     worst = sorted((r for r in rows if r["error"] is None), key=lambda r: -abs(r["est"] - r["fa"]))[:5]
@@ -266,7 +266,7 @@ def main() -> None:
         cov68 = np.mean([abs(r["est"] - r["ratio"]) <= r["sd"] for r in sel])
         within3 = np.mean(err <= 3.0)
         print(f"{label:<22} n={len(sel):<3} |error| mean {err.mean():.2f} pp, max {err.max():.2f} pp, "
-              f"within 3 pp: {100 * within3:.0f}%;  coverage 95%-interval {100 * cov95:.0f}%, 1-sd {100 * cov68:.0f}%")
+              f"within 3 pp: {100 * within3:.1f}%;  coverage 95%-interval {100 * cov95:.0f}%, 1-sd {100 * cov68:.0f}%")
     if pure:
         worst = min(r["est"] for r in pure)
         absent_ok = np.mean([r["lo_b"] <= 0.0 + 1e-12 for r in pure])

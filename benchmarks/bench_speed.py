@@ -7,14 +7,16 @@ Usage::
 
 Prints its inputs (file, scope, molecules, CPUs), then
 
-- per stage, milliseconds per molecule measured in this process on fresh caches:
+- per stage, CPU milliseconds per molecule measured in this process on fresh caches:
   parse (``mol_from_text``), perceive (``perceive``: symmetry, stereo, diastereotopic
   groups), the shared graph view, 13C increments + correction, 1H sites + correction,
   the whole ``predict_structure`` and the JSON row;
 - the whole command ``specmatch predict --batch IN --out OUT`` (one process start, default
   worker policy, and ``--workers 0``) in molecules/s, start-up included;
 - the start-up time of ``specmatch --help`` and of a one-molecule ``predict --batch``
-  (best of 5, wall and CPU);
+  (best of 5, wall and CPU); where Python writes no bytecode (``PYTHONDONTWRITEBYTECODE``
+  set: every start then compiles specmatch's modules again), also the one-molecule
+  start-up with a bytecode cache in a temporary folder, which shows that share;
 - with ``--baseline DIR`` (another source tree of specmatch, e.g. a checkout of the
   previous commit: ``git worktree add /tmp/base HEAD~3``), the whole command of that
   tree and of this one, alternately, ``--rounds`` times each, wall and CPU seconds
@@ -70,43 +72,45 @@ def _stages(smiles: list[str]) -> None:
 
     load_table("13C"), load_table("1H")
     mols, structs = [], []
-    t = time.perf_counter()
+    t = time.process_time()
     for s in smiles:
         try:
             mols.append((s, mol_from_text(s)))
         except SpecmatchError:
             pass
-    t_parse = time.perf_counter() - t
-    t = time.perf_counter()
+    t_parse = time.process_time() - t
+    t = time.process_time()
     for s, m in mols:
         structs.append(perceive(m, s))
-    t_perc = time.perf_counter() - t
+    t_perc = time.process_time() - t
     n = len(structs)
-    t = time.perf_counter()
+    t = time.process_time()
     for st in structs:
         graph_of(st)
-    t_graph = time.perf_counter() - t
-    t = time.perf_counter()
+    t_graph = time.process_time() - t
+    t = time.process_time()
     codes = [MolCodes(st.mol) for st in structs]
-    t_codes = time.perf_counter() - t
-    t = time.perf_counter()
+    t_codes = time.process_time() - t
+    t = time.process_time()
     for st, c in zip(structs, codes):
         predict_carbons(st, codes=c)
-    t_c = time.perf_counter() - t
-    t = time.perf_counter()
+    t_c = time.process_time() - t
+    t = time.process_time()
     for st, c in zip(structs, codes):
         predict_protons(st, codes=c)
-    t_h = time.perf_counter() - t
+    t_h = time.process_time() - t
     # the whole prediction on freshly perceived structures (graph view not yet built)
     fresh = [perceive(m, s) for s, m in mols]
-    t = time.perf_counter()
+    t = time.process_time()
     preds = [predict_structure(st, geometry=False) for st in fresh]
-    t_all = time.perf_counter() - t
-    t = time.perf_counter()
+    t_all = time.process_time() - t
+    from specmatch.prediction.batch import row_json
+
+    t = time.process_time()
     for p in preds:
-        json.dumps(p.to_dict())
-    t_json = time.perf_counter() - t
-    print(f"stages, ms per molecule ({n} molecules, this process):")
+        row_json(p, p.smiles)  # the batch command's row text (json.dumps of to_dict, written directly)
+    t_json = time.process_time() - t
+    print(f"stages, CPU ms per molecule ({n} molecules, this process; CPU time: the machine may be shared):")
     for name, v in (("parse (mol_from_text)", t_parse), ("perceive (Structure)", t_perc),
                     ("graph view", t_graph), ("environment-code builder", t_codes),
                     ("13C (environments, sums, correction)", t_c),
@@ -143,15 +147,21 @@ def _command(smiles: list[str], workers: str | None, tree: str | None = None) ->
     return wall, cpu
 
 
-def _startup(args: list[str] | None = None) -> tuple[float, float]:
-    """Best wall and CPU seconds of 5 runs of ``specmatch ARGS`` (default ``--help``)."""
+def cmd_of_specmatch() -> list[str]:
+    """The ``specmatch`` command of this interpreter's environment."""
     exe = shutil.which("specmatch", path=str(Path(sys.executable).parent)) or shutil.which("specmatch")
-    cmd = [exe] if exe else [sys.executable, "-m", "specmatch"]
+    return [exe] if exe else [sys.executable, "-m", "specmatch"]
+
+
+def _startup(args: list[str] | None = None, env: dict[str, str] | None = None) -> tuple[float, float]:
+    """Best wall and CPU seconds of 5 runs of ``specmatch ARGS`` (default ``--help``),
+    with environment ``env`` (default: this one)."""
+    cmd = cmd_of_specmatch()
     best, best_cpu = float("inf"), float("inf")
     for _ in range(5):
         before = resource.getrusage(resource.RUSAGE_CHILDREN)
         t = time.perf_counter()
-        subprocess.run(cmd + (args or ["--help"]), capture_output=True)
+        subprocess.run(cmd + (args or ["--help"]), capture_output=True, env=env)
         best = min(best, time.perf_counter() - t)
         after = resource.getrusage(resource.RUSAGE_CHILDREN)
         best_cpu = min(best_cpu, after.ru_utime - before.ru_utime + after.ru_stime - before.ru_stime)
@@ -193,8 +203,19 @@ def main() -> None:
     with tempfile.TemporaryDirectory() as tmp:
         src = os.path.join(tmp, "one.smi")
         Path(src).write_text("CC(C)CO\n", encoding="utf-8")
-        wall, cpu = _startup(["predict", "--batch", src, "--out", os.path.join(tmp, "one.jsonl")])
-    print(f"start-up, one-molecule predict --batch (best of 5): {wall:.2f} s wall, {cpu:.2f} s CPU")
+        one = ["predict", "--batch", src, "--out", os.path.join(tmp, "one.jsonl")]
+        wall, cpu = _startup(one)
+        print(f"start-up, one-molecule predict --batch (best of 5): {wall:.2f} s wall, {cpu:.2f} s CPU")
+        if sys.dont_write_bytecode:
+            # no bytecode is written here (PYTHONDONTWRITEBYTECODE, or an editable install
+            # that has never been run with it off): every start compiles specmatch's own
+            # modules; the same start with a bytecode cache (filled by the first of the runs)
+            # shows that share
+            env = {**os.environ, "PYTHONDONTWRITEBYTECODE": "", "PYTHONPYCACHEPREFIX": os.path.join(tmp, "pyc")}
+            subprocess.run(cmd_of_specmatch() + one, capture_output=True, env=env)
+            wall, cpu = _startup(one, env)
+            print(f"start-up, the same with a bytecode cache (PYTHONPYCACHEPREFIX, best of 5): "
+                  f"{wall:.2f} s wall, {cpu:.2f} s CPU")
 
 
 def _compare(smiles: list[str], baseline: str, rounds: int, workers: str) -> None:

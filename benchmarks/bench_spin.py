@@ -22,6 +22,12 @@ PPM off its table shift first and fits twice: polish only, then with the residua
 relocation (``fit_spectrum(..., relocate=True)``): whether the fit finds its way back.
 
     python benchmarks/bench_spin.py --demo-fit b --from-table --perturb 1:3:0.25
+
+``--h1-sigma-scale S`` (with ``--demo-fit``) sets the 1H code table's sigma scale to S for
+this run only (the prediction sigmas set the search bounds and priors): how robust the
+search is to a table change that moves sigmas but not the spectrum.
+
+    python benchmarks/bench_spin.py --demo-fit b --h1-sigma-scale 0.90
 """
 
 from __future__ import annotations
@@ -156,7 +162,18 @@ def main(argv=None) -> int:
     ap.add_argument("--perturb", metavar="K:I:PPM",
                     help="with --from-table: move group I of candidate K PPM off first, then fit with and "
                          "without the residual-guided relocation")
+    ap.add_argument("--h1-sigma-scale", type=float, metavar="S",
+                    help="with --demo-fit: the 1H code table's sigma scale for this run (robustness of the search)")
     args = ap.parse_args(argv)
+    if args.h1_sigma_scale is not None:
+        from specmatch.prediction.hose import load_table
+
+        table = load_table("1H")
+        if table is None or not args.h1_sigma_scale > 0:
+            print("--h1-sigma-scale: needs the 1H code table and a positive scale")
+            return 2
+        print(f"1H code table sigma scale {table.sigma_scale:g} -> {args.h1_sigma_scale:g} (this run only)")
+        table.sigma_scale = args.h1_sigma_scale
     if args.demo_fit and args.from_table:
         return demo_fit_from_table(args.demo_fit, args.perturb)
     if args.demo_fit:

@@ -96,18 +96,15 @@ def test_trace_multiplets_of_a_candidate_stay_in_the_fit():
     assert masked(masks, 5.77) and masked(masks, 4.87)
 
 
-def test_demo_a_from_the_shifts_it_was_made_with_reaches_the_noise():
-    # the invented demo (a) at 400 MHz: 70:30 of the two alcohols and 4% unreacted
-    # vinylcyclohexane, drawn by sample_spectra/make_demo.py with the exact simulation at the
-    # shifts of shift_values.csv. Polished from those shifts, the exact model must fit to the
-    # noise and return the tube's fractions: what is left on the search from the predicted
-    # shifts (a crowded cyclohexyl envelope) is then the search's, not the model's.
+def _demo_from_table(key: str):
+    """A demo case's 1H spectrum, its truth, candidates, the group shifts it was drawn with
+    (sample_spectra/shift_values.csv, through make_demo.py), the prepared candidates and the
+    estimate's masks and extra lines: the set-up of a polish from known shifts."""
     import sys
     from pathlib import Path
 
     from specmatch.demo import demo_case
     from specmatch.identification.mixture.estimate import _masks, _prepare_candidates, _try_process
-    from specmatch.identification.mixture.spectrum_fit import fit_spectrum
     from specmatch.spectra import read_jcampdx
 
     samples = str(Path(__file__).resolve().parents[1] / "sample_spectra")
@@ -117,14 +114,26 @@ def test_demo_a_from_the_shifts_it_was_made_with_reaches_the_noise():
     finally:
         sys.path.remove(samples)
 
-    case = demo_case("a")
+    case = demo_case(key)
     spec = read_jcampdx(case.h1.read_bytes(), source=case.h1.name)
     truth = {**case.truth, **case.impurities}
     cands = list(truth)
     rows = make_demo.read_table()
-    start = [make_demo.group_shifts(smi, rows)[1] for smi in cands]
+    start = [list(make_demo.group_shifts(smi, rows)[1]) for smi in cands]
     cs = _prepare_candidates(cands, None)
     masks, _, lines = _masks(_try_process(spec, "CDCl3", []), "CDCl3", [], cs)
+    return spec, truth, cands, start, cs, masks, lines
+
+
+def test_demo_a_from_the_shifts_it_was_made_with_reaches_the_noise():
+    # the invented demo (a) at 400 MHz: 70:30 of the two alcohols and 4% unreacted
+    # vinylcyclohexane, drawn by sample_spectra/make_demo.py with the exact simulation at the
+    # shifts of shift_values.csv. Polished from those shifts, the exact model must fit to the
+    # noise and return the tube's fractions: what is left on the search from the predicted
+    # shifts (a crowded cyclohexyl envelope) is then the search's, not the model's.
+    from specmatch.identification.mixture.spectrum_fit import fit_spectrum
+
+    spec, truth, cands, start, cs, masks, lines = _demo_from_table("a")
     fit = fit_spectrum(spec.ppm, spec.intensity, [c.groups for c in cs], frequency_mhz=spec.frequency_mhz,
                        masks_ppm=masks, extra_lines_ppm=lines, predictions=[c.pred for c in cs],
                        start_shifts=start)
@@ -141,30 +150,10 @@ def test_demo_b_from_a_group_placed_off_its_place_returns_to_the_noise(group, of
     # there (reduced chi-square in the hundreds or thousands: the lines it would have to move
     # onto are taken by the other candidate, or too far for a local step); the
     # residual-guided relocation moves the group back to the unexplained intensity.
-    import sys
-    from pathlib import Path
-
-    from specmatch.demo import demo_case
-    from specmatch.identification.mixture.estimate import _masks, _prepare_candidates, _try_process
     from specmatch.identification.mixture.spectrum_fit import fit_spectrum
-    from specmatch.spectra import read_jcampdx
 
-    samples = str(Path(__file__).resolve().parents[1] / "sample_spectra")
-    sys.path.insert(0, samples)
-    try:
-        import make_demo
-    finally:
-        sys.path.remove(samples)
-
-    case = demo_case("b")
-    spec = read_jcampdx(case.h1.read_bytes(), source=case.h1.name)
-    truth = {**case.truth, **case.impurities}
-    cands = list(truth)
-    rows = make_demo.read_table()
-    start = [list(make_demo.group_shifts(smi, rows)[1]) for smi in cands]
+    spec, truth, cands, start, cs, masks, lines = _demo_from_table("b")
     start[1][group] += offset
-    cs = _prepare_candidates(cands, None)
-    masks, _, lines = _masks(_try_process(spec, "CDCl3", []), "CDCl3", [], cs)
     kw = dict(frequency_mhz=spec.frequency_mhz, masks_ppm=masks, extra_lines_ppm=lines,
               predictions=[c.pred for c in cs], start_shifts=start)
     stuck = fit_spectrum(spec.ppm, spec.intensity, [c.groups for c in cs], **kw)

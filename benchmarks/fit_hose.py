@@ -27,8 +27,7 @@ What it does
   increment residual on the codes of the atoms at distance 1-3
   (``hose.neighbour_features``), fitted per fold on the training records (with
   their out-of-fold increments); the code table of the fold is then built on what
-  the layer leaves. The layer applies only to carbons whose first-sphere code the
-  training data has (as the predictor does). ``--layer-lambda 0`` turns it off.
+  the layer leaves. The layer applies to every carbon (as the predictor does). ``--layer-lambda 0`` turns it off.
   Where a record gives a relative configuration, its carbons also carry the cis/trans
   features of ``hose.configuration_features`` (pairs on rings and across double bonds);
   5-fold CV with k 2: core 1.731 -> 1.710, wide 1.509 -> 1.502 ppm (layer lambda 10);
@@ -468,10 +467,12 @@ def fold_split(recs, f: int, oof=None, layer=None):
     train = [r for r in fold_recs if r["fold"] != f]
     test = [r for r in fold_recs if r["fold"] == f]
     if layer is not None:
+        # the layer on every test carbon, as the predictor applies it (also where the first
+        # sphere is unseen: CV core 1.690 -> 1.657, wide 1.491 -> 1.469 ppm against layering
+        # only carbons whose first-sphere code the training data has)
         weights, _ = fit_layer(train, *layer)
-        known = {sg[4][0] for r in train for sg in r["signals"]}
         train = [with_layer(r, weights) for r in train]
-        test = [with_layer(r, weights, known) for r in test]
+        test = [with_layer(r, weights) for r in test]
     return train, test
 
 

@@ -119,6 +119,8 @@ def test_toluene():
     ("Oc1cccc2ccccc12", 9, 8.2, 0.25),    # 1-naphthol H8 (peri OH)
     ("O=Cc1cccc2ccccc12", 10, 9.25, 0.3),  # 1-naphthaldehyde H8 (peri CHO)
     ("c1ccc2c(c1)ccc1ccccc12", 2, 8.70, 0.25),  # phenanthrene H4/H5 (bay)
+    ("c1ccc2ccccc2c1", 2, 7.84, 0.1),     # naphthalene H1 (from memory)
+    ("c1ccc2ccccc2c1", 1, 7.47, 0.1),     # naphthalene H2 (from memory)
 ])
 def test_handbook_shifts(smiles, atom, shift, tol):
     found = on_atom(smiles, atom)
@@ -143,6 +145,16 @@ def test_fused_ring_downfield_protons_in_order():
     for smiles, atom in (("Oc1cccc2ccccc12", 9), ("c1ccc2c(c1)ccc1ccccc12", 2)):
         ring = [g for g in groups(smiles) if not g.exchangeable]
         assert max(ring, key=lambda g: g.shift).atoms[0] == atom, smiles
+
+
+def test_biaryl_ring_deshields_less_than_a_ring_fusion():
+    # a phenyl substituent, twisted out of the ring plane, moves the ortho H of biphenyl
+    # to 7.60 ppm; the fused ring of naphthalene moves H1 to 7.84 (CDCl3, from memory):
+    # the two are separate rows, and biphenyl's ortho H stays below naphthalene's H1
+    ortho = one("c1ccc(cc1)-c1ccccc1", 2)
+    h1 = one("c1ccc2ccccc2c1", 2)
+    assert ortho.shift == pytest.approx(7.60, abs=0.12)
+    assert h1.shift - ortho.shift > 0.15
 
 
 def test_methane_and_cyclohexane_are_singlets():

@@ -617,6 +617,10 @@ def _aromatic_site(g: _Graph, atoms: tuple[int, ...], i: int, j_hz: dict[str, fl
             t = _aromatic_substituent_type(g, s, r)
             if t is None:
                 continue
+            if t == "aryl" and g.ri.AreAtomsInSameRing(r, s):
+                # the other ring of a fused system is not a twisted biaryl ring: its own
+                # rows (a phenyl substituent shields less than a ring fusion deshields)
+                t = "fused"
             terms.append((f"arom:{where}:{t}", 1.0))
             words.append(f"{where} {t}")
             fallback |= t == "other"

@@ -21,7 +21,7 @@ from ..multiplicity import multiplicity
 from .environment import proton_sites
 from .tables import load_tables
 
-TABLES_VERSION = "h1-2026.12-3+morgan-codes-2026-12-03"
+TABLES_VERSION = "h1-2026.12-4+morgan-codes-2026-12-03b"
 
 #: (couplings, exchangeable) -> multiplicity letters and J: a pure function of its inputs,
 #: and the same few hundred partner patterns recur in every batch

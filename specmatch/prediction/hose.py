@@ -714,6 +714,73 @@ def configuration_features(mol: Chem.Mol, hexes: list[tuple[str, str, str]], dis
     return out
 
 
+class _Prefixes(dict):
+    """prefix -> code -> weight of a packed layer, each prefix's dictionary built on first use.
+
+    The packed copy holds some 4,500 prefixes (most of them one centre code's paired
+    features, a handful of codes each) and 62,000 weights; building every dictionary took
+    about 10 ms of each start of the command, while a batch of a few hundred molecules
+    meets a fraction of the centre codes. ``get`` answers as a plain dictionary would;
+    iterating, ``len`` and ``values`` build every prefix first.
+    """
+
+    __slots__ = ("_spans", "_codes", "_weights")
+
+    def __init__(self, spans: dict[str, tuple[int, int]], codes: list[str], weights: array):
+        super().__init__()
+        self._spans = spans
+        self._codes = codes
+        self._weights = weights
+
+    def get(self, prefix: str, default=None):  # type: ignore[override]
+        got = dict.get(self, prefix)
+        if got is None:
+            span = self._spans.pop(prefix, None)
+            if span is None:
+                return default
+            lo, hi = span
+            got = self[prefix] = dict(zip(self._codes[lo:hi], self._weights[lo:hi]))
+        return got
+
+    def __missing__(self, prefix: str) -> dict[str, float]:
+        got = self.get(prefix)
+        if got is None:
+            raise KeyError(prefix)
+        return got
+
+    def _all(self) -> None:
+        for prefix in list(self._spans):
+            self.get(prefix)
+
+    def __len__(self) -> int:
+        return dict.__len__(self) + len(self._spans)
+
+    def __iter__(self):
+        self._all()
+        return dict.__iter__(self)
+
+    def __contains__(self, prefix: object) -> bool:
+        return dict.__contains__(self, prefix) or prefix in self._spans
+
+    def keys(self):  # type: ignore[override]
+        self._all()
+        return dict.keys(self)
+
+    def values(self):  # type: ignore[override]
+        self._all()
+        return dict.values(self)
+
+    def items(self):  # type: ignore[override]
+        self._all()
+        return dict.items(self)
+
+    def __eq__(self, other: object) -> bool:
+        self._all()
+        return dict.__eq__(self, other)
+
+    __hash__ = None  # type: ignore[assignment]
+
+
 class NeighbourLayer:
     """Fitted weights of the neighbour layer (ridge regression of the increment residual
     on :func:`neighbour_features`), added to the increment sum before the code table.
@@ -857,11 +924,11 @@ def read_packed_layer(path: Path) -> NeighbourLayer | None:
     if got is None:
         return None
     h, codes, (weights,) = got
-    by_prefix, at = {}, 0
+    spans, at = {}, 0
     for prefix, n in h["prefixes"]:
-        by_prefix[prefix] = dict(zip(codes[at:at + n], weights[at:at + n]))
+        spans[prefix] = (at, at + n)
         at += n
-    return NeighbourLayer(None, h["provenance"], by_prefix=by_prefix, source=path)
+    return NeighbourLayer(None, h["provenance"], by_prefix=_Prefixes(spans, codes, weights), source=path)
 
 
 def write_layer(path: Path, rows: list[tuple[str, int, float, list[float], str]], provenance: list[str]) -> None:

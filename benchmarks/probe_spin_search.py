@@ -322,7 +322,7 @@ def demo_inputs(key: str):
     masks, _, lines = _masks(pl, "CDCl3", [], cs)
     got = {}
 
-    def catch(*args):
+    def catch(*args, **kwargs):
         got["args"] = args
         raise _Captured
 

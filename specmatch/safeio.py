@@ -20,7 +20,6 @@ The limits can be changed per kind with an environment variable
 from __future__ import annotations
 
 import codecs
-import hashlib
 import os
 import stat
 from pathlib import Path
@@ -186,6 +185,8 @@ def read_bytes(path: str | os.PathLike, *, kind: str) -> bytes:
 def sha256_file(path: str | os.PathLike, *, kind: str) -> str:
     """SHA-256 (hex) of a regular file, streamed: same checks and limit as :func:`read_bytes`,
     memory of one block."""
+    import hashlib  # here: every command reads its input through this module, few hash it (~1 ms of start-up)
+
     h = hashlib.sha256()
     for chunk in _chunks(path, kind):
         h.update(chunk)

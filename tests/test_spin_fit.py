@@ -163,3 +163,24 @@ def test_demo_b_from_a_group_placed_off_its_place_returns_to_the_noise(group, of
     assert fit.chi2_red < 1.3
     tot = sum(truth.values())
     assert fit.fractions == pytest.approx([truth[c] / tot for c in cands], abs=0.003)
+
+
+def test_integral_anchor_of_the_picked_multiplets():
+    # the proportions the exact fit's search holds the amounts in (fit_spectrum(anchor_fractions=...)):
+    # read from the multiplet integrals, or none when there is nothing to read. Two invented
+    # multiplets (a CH3 near 0.9 ppm, a CH-O near 3.5 ppm: common practice); with so few the
+    # reading itself is not unique, so only its form is checked here (the demo figures are
+    # benchmarks/bench_spin.py --demo-fit a)
+    from specmatch.identification.mixture.estimate import _integral_anchor, _prepare_candidates
+    from specmatch.spectra.types import Multiplet, Peak, PeakList
+
+    cands = _prepare_candidates(["CCC1(O)CCCCC1", "CC(O)C1CCCCC1"], None)
+    mults = [Multiplet(0.90, (0.87, 0.93), 3.0, "t"), Multiplet(3.55, (3.52, 3.58), 0.5, "m")]
+    pl = PeakList("1H", tuple(Peak(m.shift, 1.0) for m in mults), tuple(mults), frequency_mhz=400.0)
+    assert _integral_anchor(cands, None) is None
+    assert _integral_anchor(cands[:1], pl) is None
+    bare = PeakList("1H", pl.peaks, tuple(Multiplet(m.shift, m.range, None, m.multiplicity) for m in mults),
+                    frequency_mhz=400.0)
+    assert _integral_anchor(cands, bare) is None
+    fr = _integral_anchor(cands, pl)
+    assert fr is not None and fr.shape == (2,) and np.all(fr >= 0) and fr.sum() == pytest.approx(1.0, abs=1e-6)

@@ -863,7 +863,8 @@ def _from_spectrum(cands, spectrum, peaklist, solvent, f_mhz, warnings, src) -> 
                              "export the processed (real, phased) 1H spectrum")
     masks, mask_names, lines = _masks(peaklist, solvent, warnings, cands)
     fit = fit_spectrum(ppm, y, [c.groups for c in cands], frequency_mhz=f_mhz, masks_ppm=masks,
-                       extra_lines_ppm=lines, predictions=[c.pred for c in cands])
+                       extra_lines_ppm=lines, predictions=[c.pred for c in cands],
+                       anchor_fractions=_integral_anchor(cands, peaklist))
     exact = any("exact second-order" in n for n in fit.notes)
     fitted: dict[int, dict[int, float]] = {}
     for j, g in enumerate(fit.groups):
@@ -902,6 +903,25 @@ def _from_spectrum(cands, spectrum, peaklist, solvent, f_mhz, warnings, src) -> 
                   warnings=warnings, source=src, fitted=fitted, group_keys=group_keys, details=details,
                   undetected=fit.undetected, observed=observed)
     return replace(est, fit=fit)
+
+
+def _integral_anchor(cands, peaklist) -> np.ndarray | None:
+    """Fractions from the picked multiplets' integrals (``integral_fit.fit_integrals``, trace
+    multiplets included), or None: the spectrum fit holds its amounts in these proportions
+    while it searches a crowded envelope (``fit_spectrum(anchor_fractions=...)``); the
+    reported amounts are the fit's own."""
+    from .integral_fit import fit_integrals
+
+    if peaklist is None or len(cands) < 2:
+        return None
+    mults = [m for m in peaklist.multiplets if m.integral and m.integral > 0 and m.flag in (None, "trace")]
+    if not mults:
+        return None
+    try:
+        fr = np.asarray(fit_integrals(mults, [c.groups for c in cands]).fractions, float)
+    except SpecmatchError:
+        return None  # no reading of the integrals: the fit searches without an anchor
+    return fr if fr.shape == (len(cands),) and np.all(np.isfinite(fr)) and fr.sum() > 0 else None
 
 
 def _from_peaklist(cands, peaklist, warnings, src) -> MixtureEstimate:

@@ -260,3 +260,18 @@ def test_observed_multiplicity_partner_counts():
     assert _observed_partners("s") == 0
     assert _observed_partners("m") is None
     assert _observed_partners("br s") is None
+
+
+def test_fitted_groups_keep_the_vinyl_couplings_and_drop_only_the_geminal_of_twins():
+    """Diastereotopic twins lose their mutual geminal coupling in the fitted first-order
+    multiplets, and only that one. Reference values: terminal vinyl =CH2 of vinylcyclohexane,
+    3J trans ~17 Hz, 3J cis ~10 Hz, 2J(gem) 0-3 Hz (common practice; the rows 3J_vinyl_trans,
+    3J_vinyl_cis, 2J_vinyl_gem of prediction/tables/h1_coupling.csv); ring CH2 2J(gem) ~13 Hz."""
+    from specmatch.identification.mixture.estimate import _prepare_candidates
+
+    cand = _prepare_candidates(["C=CC1CCCCC1", "CCO"], None)[0]
+    vinyl = [g for g in cand.groups if g.atoms == (0,)]
+    assert sorted(sorted(abs(j) for _, j in g.couplings) for g in vinyl) == [[1.5, 10.0], [1.5, 17.0]]
+    ring = [g for g in cand.groups if g.atoms == (4, 6)]
+    assert len(ring) == 2 and all(13.0 not in [abs(j) for _, j in g.couplings] for g in ring)
+    assert all(7.0 in [abs(j) for _, j in g.couplings] for g in ring)

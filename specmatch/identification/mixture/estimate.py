@@ -373,9 +373,17 @@ def _fit_groups(groups: Sequence) -> tuple:
 
     out = []
     for g in groups:
-        twin = g.diastereotopic and sum(1 for h in groups if h.atoms == g.atoms) > 1
-        if twin:
-            gem = [c for c in g.couplings if c[0] == 1 and abs(c[1]) >= GEMINAL_MIN_J_HZ]
+        twins = [h for h in groups if h is not g and h.atoms == g.atoms] if g.diastereotopic else []
+        if twins:
+            # the mutual coupling is in both twins' lists: the largest |J| shared by them.
+            # Of the =CH2 pair of a terminal vinyl group the large couplings are the trans
+            # (17 Hz) and cis (10 Hz) ones to =CH, one in each list, and the geminal is
+            # ~1.5 Hz: nothing is removed (the largest coupling alone was, which left the
+            # first-order =CH2 signals a narrow doublet and their integration windows
+            # cut through the real dd)
+            other = {round(abs(float(c[1])), 2) for h in twins for c in h.couplings if c[0] == 1}
+            gem = [c for c in g.couplings if c[0] == 1 and abs(c[1]) >= GEMINAL_MIN_J_HZ
+                   and round(abs(float(c[1])), 2) in other]
             if gem:
                 big = max(gem, key=lambda c: abs(c[1]))
                 rest = list(g.couplings)

@@ -237,13 +237,15 @@ class HoseTable:
         self.max_radius = max_radius
         self.provenance = provenance
         self.sigma_scale = sigma_scale
-        #: the packed copy: (codes sorted by radius and text, radius -> (first, end) row,
-        #: n, mean, sd arrays)
+        #: the packed copy: (sorted integer keys of the rows (:func:`code_key`), n, mean,
+        #: sd arrays)
         self._packed = packed
         self._source = source
         #: per radius: code -> parsed entry (or None), for the codes met so far (common
-        #: codes recur in almost every molecule)
+        #: codes recur in almost every molecule); CSV tables only
         self._seen: list[dict[str, HoseEntry | None]] = [{} for _ in range(MAX_RADIUS + 2)]
+        #: integer key -> parsed entry (or None) for the keys met so far; packed tables
+        self._seen_key: dict[int, HoseEntry | None] = {}
 
     def __repr__(self) -> str:
         return f"HoseTable(shrink={self.shrink:g}, max_radius={self.max_radius}, sigma_scale={self.sigma_scale:g})"
@@ -254,13 +256,17 @@ class HoseTable:
             self._rows = _read_csv_table(self._source)[0]
         return self._rows
 
+    def _lookup_key(self, key: int) -> HoseEntry | None:
+        """The statistics of one integer key of a packed table, all folds (not cached)."""
+        keys, ns, means, sds = self._packed
+        i = bisect_left(keys, key)
+        return HoseEntry(ns[i], means[i], sds[i]) if i < len(keys) and keys[i] == key else None
+
     def _lookup(self, radius: int, code: str) -> HoseEntry | None:
         """The statistics of one code, all folds (not cached)."""
         if self._packed is not None:
-            codes, spans, ns, means, sds = self._packed
-            lo, hi = spans.get(radius, (0, 0))
-            i = bisect_left(codes, code, lo, hi)
-            return HoseEntry(ns[i], means[i], sds[i]) if i < hi and codes[i] == code else None
+            key = code_key(radius, code)
+            return None if key is None else self._lookup_key(key)
         v = self.rows.get(f'{radius},"{code}"')
         if v is None:
             return None
@@ -272,6 +278,14 @@ class HoseTable:
 
         With ``exclude_fold`` the statistics leave out that development fold.
         """
+        if exclude_fold is None and self._packed is not None:
+            key = code_key(radius, code)
+            if key is None:
+                return None
+            got = self._seen_key.get(key, False)
+            if got is False:
+                got = self._seen_key[key] = self._lookup_key(key)
+            return got
         if exclude_fold is None:
             seen = self._seen[radius] if radius < len(self._seen) else {}
             got = seen.get(code, False)
@@ -312,7 +326,7 @@ class HoseTable:
         for r, code in enumerate(codes, start=1):
             if r > self.max_radius:
                 break
-            if exclude_fold is None and r < len(seen):  # entry() inlined: called per atom and radius
+            if exclude_fold is None and r < len(seen) and self._packed is None:  # entry() inlined
                 e = seen[r].get(code, False)
                 if e is False:
                     e = seen[r][code] = self._lookup(r, code)
@@ -327,6 +341,66 @@ class HoseTable:
             var = w * (e.n * e.sd * e.sd + var) / (e.n + 1) + (1.0 - w) * var
             depth = r
         return corr, math.sqrt(var) * (self.sigma_scale if depth else 1.0), depth
+
+    def correct_atom(self, bits: list[int], tag: str, base_sigma: float, exclude_fold: int | None = None
+                     ) -> tuple[float, float, int]:
+        """:meth:`correct` of one atom given by its identifiers (a row of
+        :attr:`MolCodes.bits`) and its rank tag (``""``, ``"|0"``, ...), the same numbers.
+
+        On a packed table the identifiers are looked up as integer keys
+        (:func:`code_key`), without writing the codes as text: the predictors call this
+        per signal and radius. Otherwise (a CSV table, a fold left out, a tag beyond the
+        keys' range) the codes are written and :meth:`correct` answers.
+        """
+        t = 0 if not tag else _TAG_NUMBER.get(tag, -1)
+        if self._packed is None or exclude_fold is not None or t < 0:
+            return self.correct([f"{x:08x}{tag}" for x in bits[1:self.max_radius + 1]], base_sigma,
+                                exclude_fold)
+        corr = 0.0
+        var = base_sigma * base_sigma
+        depth = 0
+        k = self.shrink
+        seen = self._seen_key
+        lookup = self._lookup_key
+        for r in range(1, min(self.max_radius, len(bits) - 1) + 1):
+            key = (r << 40) | (bits[r] << 8) | t
+            e = seen.get(key, False)
+            if e is False:
+                e = seen[key] = lookup(key)
+            if e is None:
+                break
+            # the same arithmetic as correct(), in the same order (the same bits)
+            w = e.n / (e.n + k)
+            corr = w * e.mean + (1.0 - w) * corr
+            var = w * (e.n * e.sd * e.sd + var) / (e.n + 1) + (1.0 - w) * var
+            depth = r
+        return corr, math.sqrt(var) * (self.sigma_scale if depth else 1.0), depth
+
+
+#: a code a packed table can hold: an identifier of 32 bits as 8 lower-case hex digits,
+#: optionally a rank tag ``|k`` (k < 100, written without leading zeros)
+_KEYABLE = r"([0-9a-f]{8})(?:\|(0|[1-9][0-9]?))?"
+_KEYABLE_RE = None
+#: rank tag -> its number in a key (tags of signals of one class, see rank_tags)
+_TAG_NUMBER = {f"|{k}": k + 1 for k in range(100)}
+
+
+def code_key(radius: int, code: str) -> int | None:
+    """The integer key of a code in a packed table: radius, identifier and rank tag
+    (0 without one, k + 1 for ``|k``) in one number, ``radius << 40 | identifier << 8 | tag``;
+    None for a code of another form (no packed table holds one).
+
+    One key per code text and one text per key (the form is checked in full), so a
+    lookup by key finds exactly the row the text would.
+    """
+    global _KEYABLE_RE
+    if _KEYABLE_RE is None:
+        _KEYABLE_RE = re.compile(_KEYABLE)
+    m = _KEYABLE_RE.fullmatch(code) if 0 <= radius < 1 << 20 else None
+    if m is None:
+        return None
+    tag = m.group(2)
+    return (radius << 40) | (int(m.group(1), 16) << 8) | (0 if tag is None else int(tag) + 1)
 
 
 #: a row of a code table's CSV (compiled on first use: the packed copies are read instead)
@@ -442,25 +516,27 @@ def _read_packed(path: Path) -> tuple[dict, list] | None:
 
 
 def pack_table(path: Path) -> None:
-    """Write the packed copy of a correction table's CSV: per radius the codes (one text)
-    and their n, mean and sd (arrays)."""
+    """Write the packed copy of a correction table's CSV: the rows' integer keys
+    (:func:`code_key`, sorted) and their n, mean and sd, as arrays.
+
+    Integer keys rather than the code texts: reading 10^5 texts meant splitting them at
+    every start (some 11 ms of the command), and a lookup then wrote each code as text.
+    """
     rows, shrink, max_radius, scale, provenance = _read_csv_table(path)
     items = []
     for key, v in rows.items():
         r, code = key.split(",", 1)
-        code = code[1:-1]
-        if "\n" in code:
-            raise ValueError(f"{path.name}: a code holds a line break; cannot pack")
+        k = code_key(int(r), code[1:-1])
+        if k is None:
+            raise ValueError(f"{path.name}: code {code} is not an 8-digit identifier with an optional "
+                             "rank tag; cannot pack")
         n_t, mean_t, sd_t = v.split(",", 3)[:3]
-        items.append((int(r), code, int(n_t), float(mean_t), float(sd_t)))
+        items.append((k, int(n_t), float(mean_t), float(sd_t)))
     items.sort()
-    radii: dict[int, int] = {}
-    for r, *_ in items:
-        radii[r] = radii.get(r, 0) + 1
-    _write_packed(path, {"kind": "codes", "shrink": shrink, "max_radius": max_radius, "sigma_scale": scale,
-                         "provenance": provenance, "radii": sorted(radii.items())},
-                  [array("B", "\n".join(x[1] for x in items).encode("ascii")), array("I", [x[2] for x in items]),
-                   array("d", [x[3] for x in items]), array("d", [x[4] for x in items])])
+    _write_packed(path, {"kind": "code-keys", "shrink": shrink, "max_radius": max_radius, "sigma_scale": scale,
+                         "provenance": provenance, "key": "radius << 40 | identifier << 8 | (0 or rank tag + 1)"},
+                  [array("Q", [x[0] for x in items]), array("I", [x[1] for x in items]),
+                   array("d", [x[2] for x in items]), array("d", [x[3] for x in items])])
 
 
 def _packed_codes(path: Path, kind: str, typecodes: list[str]):
@@ -484,17 +560,33 @@ def _packed_codes(path: Path, kind: str, typecodes: list[str]):
 
 
 def read_packed_table(path: Path) -> HoseTable | None:
-    """The correction table of ``path`` from its packed copy (None if absent or stale)."""
-    got = _packed_codes(path, "codes", ["B", "I", "d", "d"])
+    """The correction table of ``path`` from its packed copy (None if absent or stale).
+
+    A copy of the previous layout (the code texts, kind ``codes``, as a table fitted
+    before the integer keys has) is read too, its texts turned into keys.
+    """
+    got = _read_packed(path)
     if got is None:
         return None
-    h, codes, (ns, means, sds) = got
-    spans, at = {}, 0
-    for r, n in h["radii"]:
-        spans[r] = (at, at + n)  # rows sorted by code text within each radius: bisect finds them
-        at += n
+    h, arrays = got
+    if h.get("kind") == "code-keys" and [a.typecode for a in arrays] == ["Q", "I", "d", "d"]:
+        keys, ns, means, sds = arrays
+        if not all(len(a) == len(keys) for a in arrays):
+            return None  # damaged: the CSV is read instead
+    else:
+        old = _packed_codes(path, "codes", ["B", "I", "d", "d"])
+        if old is None:
+            return None
+        h, codes, (ns, means, sds) = old
+        radius = [r for r, n in h["radii"] for _ in range(n)]
+        keyed = [(code_key(r, c), n, m, sd) for r, c, n, m, sd in zip(radius, codes, ns, means, sds)]
+        if len(radius) != len(codes) or any(x[0] is None for x in keyed):
+            return None
+        keyed.sort()
+        keys = array("Q", [x[0] for x in keyed])
+        ns, means, sds = (array(t, [x[j] for x in keyed]) for j, t in ((1, "I"), (2, "d"), (3, "d")))
     return HoseTable(None, h["shrink"], h["max_radius"], h["provenance"], h["sigma_scale"],
-                     packed=(codes, spans, ns, means, sds), source=path)
+                     packed=(keys, ns, means, sds), source=path)
 
 
 @lru_cache(maxsize=4)

@@ -219,10 +219,11 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
         cls = structure.symmetry_classes
         fold = fold_of_mol(structure.mol)  # None unless SPECMATCH_CROSS_VALIDATED=1
         tags = rank_tags([cls[c[0][0]] for c in out], [c[1] for c in out])
-        owns = []
+        owns = []  # per entry: has it codes (not "other", a table of radius 1 or more)?
         layered = []  # entries of out the layer applies to
-        for k, (c, kind, tag) in enumerate(zip(out, kinds, tags)):
-            own = [] if kind == "other" else [x + tag for x in codes.iter_codes(c[0][0], table.max_radius)]
+        coded = table.max_radius >= 1
+        for k, (c, kind) in enumerate(zip(out, kinds)):
+            own = coded and kind != "other"
             owns.append(own)
             # the neighbour layer first (the code table was fitted on what it leaves), on every
             # carbon with codes, also where the first sphere is unseen: those carbons (bridged
@@ -243,10 +244,11 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
                 for k, centre in zip(layered, centres):
                     if relations[centre]:
                         out[k][1] += layer.shift(relations[centre], fold)
-        for c, own in zip(out, owns):
+        bits = codes.bits
+        for c, own, tag in zip(out, owns, tags):
             if not own:
                 continue
-            corr, sigma, depth = table.correct(own, c[2], fold)
+            corr, sigma, depth = table.correct_atom(bits[c[0][0]], tag, c[2], fold)
             if depth:
                 c[1] += corr
                 c[2] = sigma

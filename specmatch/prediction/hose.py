@@ -910,7 +910,7 @@ class NeighbourLayer:
         of the layer fitted without that development fold."""
         if exclude_fold is None and self._rows is None:
             prefix, _, code = feature.rpartition(":")
-            return self._flat[None].get(prefix, {}).get(code, 0.0)
+            return self._flat[None].get(prefix, {}).get(_layer_code(code), 0.0)
         at = 0 if exclude_fold is None else 1 + exclude_fold
         got = self._parsed.get(feature)
         if got is None:
@@ -928,11 +928,21 @@ class NeighbourLayer:
     def shifts(self, hexes: list[tuple[str, str, str]], dist: list[list[int]], centres: Iterable[int],
                exclude_fold: int | None = None) -> list[float]:
         """The layer's shift of each centre atom of one molecule: :meth:`shift` of its
-        :func:`neighbour_features`, equal up to the last bit.
+        :func:`neighbour_features`, equal up to the last bit (the codes as text, as
+        :func:`hex_codes` writes them; :meth:`shifts_bits` takes the identifiers)."""
+        return self.shifts_bits([(int(r0, 16), int(r1, 16), int(r2, 16)) for r0, r1, r2 in hexes], dist,
+                                centres, exclude_fold)
+
+    def shifts_bits(self, bits: list, dist: list[list[int]], centres: Iterable[int],
+                    exclude_fold: int | None = None) -> list[float]:
+        """:meth:`shifts` from the identifiers (:attr:`MolCodes.bits`, radius 0, 1 and 2 of
+        each row read).
 
         The unpaired features of an atom at distance d are the same for every centre, so
         their weights are summed once per atom and distance; only the features paired with
-        the centre are looked up per centre and atom (a third of the lookups).
+        the centre are looked up per centre and atom (a third of the lookups). The weights
+        are keyed by the identifiers as integers (:func:`_layer_code`): no code is
+        written as text but the centre's own, in the names of its paired prefixes.
         """
         parts = self._flat.get(exclude_fold)
         if parts is None:
@@ -941,11 +951,11 @@ class NeighbourLayer:
         t10, t11, t12 = (parts.get(k, empty).get for k in ("1:0", "1:1", "1:2"))
         t20, t21, t30, t31 = (parts.get(k, empty).get for k in ("2:0", "2:1", "3:0", "3:1"))
         # per atom: the weights of its unpaired features at distance 1, 2, 3 (index 0 unused)
-        own = [(0.0, math.fsum((t10(r0, 0.0), t11(r1, 0.0), t12(r2, 0.0))),
-                t20(r0, 0.0) + t21(r1, 0.0), t30(r0, 0.0) + t31(r1, 0.0)) for r0, r1, r2 in hexes]
+        own = [(0.0, math.fsum((t10(row[0], 0.0), t11(row[1], 0.0), t12(row[2], 0.0))),
+                t20(row[0], 0.0) + t21(row[1], 0.0), t30(row[0], 0.0) + t31(row[1], 0.0)) for row in bits]
         out = []
         for centre in centres:
-            c0, c1 = hexes[centre][0], hexes[centre][1]
+            c0, c1 = f"{bits[centre][0]:x}", f"{bits[centre][1]:x}"
             p1, p2, p3 = (parts.get(f"{d}:c{c0}", empty).get for d in (1, 2, 3))
             q1, q2 = parts.get(f"1:d{c0}", empty).get, parts.get(f"2:d{c0}", empty).get
             e2, e3 = parts.get(f"2:e{c1}", empty).get, parts.get(f"3:e{c1}", empty).get
@@ -953,27 +963,48 @@ class NeighbourLayer:
             add = values.extend
             for a, d in enumerate(dist[centre]):
                 if d == 1:
-                    r0, r1, _ = hexes[a]
+                    row = bits[a]
+                    r0, r1 = row[0], row[1]
                     add((own[a][1], p1(r0, 0.0), q1(r1, 0.0)))
                 elif d == 2:
-                    r0, r1, _ = hexes[a]
+                    row = bits[a]
+                    r0, r1 = row[0], row[1]
                     add((own[a][2], p2(r0, 0.0), q2(r1, 0.0), e2(r0, 0.0)))
                 elif d == 3:
-                    r0 = hexes[a][0]
+                    r0 = bits[a][0]
                     add((own[a][3], p3(r0, 0.0), e3(r0, 0.0)))
             out.append(math.fsum(values))
         return out
 
-    def _by_prefix(self, exclude_fold: int | None) -> dict[str, dict[str, float]]:
+    def _by_prefix(self, exclude_fold: int | None) -> dict[str, dict[int | str, float]]:
         """Weights grouped by feature prefix (``"d:r"``, ``"d:c<centre>"``): prefix -> code -> weight,
-        so :meth:`shifts` looks codes up without building feature names."""
-        out: dict[str, dict[str, float]] = {}
+        so :meth:`shifts` looks codes up without building feature names. Codes are keyed
+        as integers (:func:`_layer_code`; a code of another form keeps its text and is
+        found by :meth:`weight` only)."""
+        out: dict[str, dict[int | str, float]] = {}
         for f, v in self.rows.items():
             prefix, code = f.rsplit(":", 1)
             # only the weight column parsed when no fold is left out
             w = float(v.split(",", 2)[1]) if exclude_fold is None else self.weight(f, exclude_fold)
-            out.setdefault(prefix, {})[code] = w
+            key = _layer_code(code)
+            out.setdefault(prefix, {})[code if key is None else key] = w
         return out
+
+
+#: a code of a layer feature as :func:`hex_codes` writes it: hexadecimal, no leading zeros
+_LAYER_CODE = r"0|[1-9a-f][0-9a-f]{0,15}"
+_LAYER_CODE_RE = None
+
+
+def _layer_code(code: str) -> int | None:
+    """The identifier a layer feature's code writes (``f"{x:x}"``), None for another text.
+
+    The form is checked in full, so each integer stands for exactly one text.
+    """
+    global _LAYER_CODE_RE
+    if _LAYER_CODE_RE is None:
+        _LAYER_CODE_RE = re.compile(_LAYER_CODE)
+    return int(code, 16) if _LAYER_CODE_RE.fullmatch(code) else None
 
 
 # features: d:... (d a distance) or the configuration features z:... and y:...
@@ -1002,20 +1033,33 @@ def pack_layer(path: Path) -> None:
     groups = NeighbourLayer(rows, provenance)._by_prefix(None)
     prefixes = sorted(groups)
     codes = [c for p in prefixes for c in groups[p]]
-    if any("\n" in c or ":" in c for c in codes):
-        raise ValueError(f"{path.name}: a feature code holds a line break or ':'; cannot pack")
-    _write_packed(path, {"kind": "layer", "provenance": provenance,
+    if any(type(c) is not int for c in codes):
+        raise ValueError(f"{path.name}: a feature code is not a hexadecimal identifier; cannot pack")
+    # the codes as integers (no text to split at every start)
+    _write_packed(path, {"kind": "layer-keys", "provenance": provenance,
                          "prefixes": [[p, len(groups[p])] for p in prefixes]},
-                  [array("B", "\n".join(codes).encode("ascii")),
-                   array("d", [groups[p][c] for p in prefixes for c in groups[p]])])
+                  [array("Q", codes), array("d", [groups[p][c] for p in prefixes for c in groups[p]])])
 
 
 def read_packed_layer(path: Path) -> NeighbourLayer | None:
-    """The neighbour layer of ``path`` from its packed copy (None if absent or stale)."""
-    got = _packed_codes(path, "layer", ["B", "d"])
+    """The neighbour layer of ``path`` from its packed copy (None if absent or stale); a
+    copy of the earlier layout (codes as text) is read too, its codes turned into keys."""
+    got = _read_packed(path)
     if got is None:
         return None
-    h, codes, (weights,) = got
+    h, arrays = got
+    if h.get("kind") == "layer-keys" and [a.typecode for a in arrays] == ["Q", "d"]:
+        codes, weights = arrays
+        if len(codes) != len(weights):
+            return None
+    else:
+        old = _packed_codes(path, "layer", ["B", "d"])
+        if old is None:
+            return None
+        h, texts, (weights,) = old
+        codes = [_layer_code(c) for c in texts]
+        if any(c is None for c in codes):
+            return None
     spans, at = {}, 0
     for prefix, n in h["prefixes"]:
         spans[prefix] = (at, at + n)

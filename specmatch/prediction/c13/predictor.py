@@ -233,14 +233,13 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
             if layer is not None and own:
                 layered.append(k)
         if layered:
-            hexes = hex_codes(codes.bits)
             centres = [out[k][0][0] for k in layered]
-            for k, v in zip(layered, layer.shifts(hexes, g.dist, centres, fold)):
+            for k, v in zip(layered, layer.shifts_bits(codes.bits, g.dist, centres, fold)):
                 out[k][1] += v
             # cis/trans on rings and double bonds, where the input gives the configuration (the
             # isomeric SMILES differs from the plain one only then: most molecules skip the walk)
             if configuration and structure.isomeric_smiles != structure.canonical_smiles:
-                relations = configuration_features(mol, hexes, g.dist, centres)
+                relations = configuration_features(mol, hex_codes(codes.bits), g.dist, centres)
                 for k, centre in zip(layered, centres):
                     if relations[centre]:
                         out[k][1] += layer.shift(relations[centre], fold)

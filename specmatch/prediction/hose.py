@@ -893,6 +893,9 @@ class NeighbourLayer:
         self._parsed: dict[str, tuple[float, ...]] = {}
         #: fold left out (None: none) -> prefix -> code -> weight, built on first use by :meth:`shifts`
         self._flat: dict[int | None, dict[str, dict[str, float]]] = {}
+        #: fold left out -> (centre radius-0, radius-1 identifier) -> the ``get`` of the
+        #: centre's seven paired prefixes (:meth:`shifts_bits`)
+        self._paired: dict[int | None, dict[tuple[int, int], tuple]] = {}
         if by_prefix is not None:
             self._flat[None] = by_prefix
 
@@ -954,11 +957,20 @@ class NeighbourLayer:
         own = [(0.0, math.fsum((t10(row[0], 0.0), t11(row[1], 0.0), t12(row[2], 0.0))),
                 t20(row[0], 0.0) + t21(row[1], 0.0), t30(row[0], 0.0) + t31(row[1], 0.0)) for row in bits]
         out = []
+        # per centre code pair: the look-ups of the seven prefixes paired with the centre,
+        # found once per pair (kept with the layer: common centres recur in most molecules)
+        paired = self._paired.get(exclude_fold)
+        if paired is None or len(paired) > 100_000:  # bounded in a long-lived process
+            paired = self._paired[exclude_fold] = {}
         for centre in centres:
-            c0, c1 = f"{bits[centre][0]:x}", f"{bits[centre][1]:x}"
-            p1, p2, p3 = (parts.get(f"{d}:c{c0}", empty).get for d in (1, 2, 3))
-            q1, q2 = parts.get(f"1:d{c0}", empty).get, parts.get(f"2:d{c0}", empty).get
-            e2, e3 = parts.get(f"2:e{c1}", empty).get, parts.get(f"3:e{c1}", empty).get
+            row = bits[centre]
+            pair = (row[0], row[1])
+            got = paired.get(pair)
+            if got is None:
+                c0, c1 = f"{row[0]:x}", f"{row[1]:x}"
+                got = paired[pair] = tuple(parts.get(k, empty).get for k in (
+                    f"1:c{c0}", f"2:c{c0}", f"3:c{c0}", f"1:d{c0}", f"2:d{c0}", f"2:e{c1}", f"3:e{c1}"))
+            p1, p2, p3, q1, q2, e2, e3 = got
             values = []
             add = values.extend
             for a, d in enumerate(dist[centre]):

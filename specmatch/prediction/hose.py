@@ -237,13 +237,15 @@ class HoseTable:
         self.max_radius = max_radius
         self.provenance = provenance
         self.sigma_scale = sigma_scale
-        #: the packed copy: (codes sorted by radius and text, radius -> (first, end) row,
-        #: n, mean, sd arrays)
+        #: the packed copy: (sorted integer keys of the rows (:func:`code_key`), n, mean,
+        #: sd arrays)
         self._packed = packed
         self._source = source
         #: per radius: code -> parsed entry (or None), for the codes met so far (common
-        #: codes recur in almost every molecule)
+        #: codes recur in almost every molecule); CSV tables only
         self._seen: list[dict[str, HoseEntry | None]] = [{} for _ in range(MAX_RADIUS + 2)]
+        #: integer key -> parsed entry (or None) for the keys met so far; packed tables
+        self._seen_key: dict[int, HoseEntry | None] = {}
 
     def __repr__(self) -> str:
         return f"HoseTable(shrink={self.shrink:g}, max_radius={self.max_radius}, sigma_scale={self.sigma_scale:g})"
@@ -254,13 +256,17 @@ class HoseTable:
             self._rows = _read_csv_table(self._source)[0]
         return self._rows
 
+    def _lookup_key(self, key: int) -> HoseEntry | None:
+        """The statistics of one integer key of a packed table, all folds (not cached)."""
+        keys, ns, means, sds = self._packed
+        i = bisect_left(keys, key)
+        return HoseEntry(ns[i], means[i], sds[i]) if i < len(keys) and keys[i] == key else None
+
     def _lookup(self, radius: int, code: str) -> HoseEntry | None:
         """The statistics of one code, all folds (not cached)."""
         if self._packed is not None:
-            codes, spans, ns, means, sds = self._packed
-            lo, hi = spans.get(radius, (0, 0))
-            i = bisect_left(codes, code, lo, hi)
-            return HoseEntry(ns[i], means[i], sds[i]) if i < hi and codes[i] == code else None
+            key = code_key(radius, code)
+            return None if key is None else self._lookup_key(key)
         v = self.rows.get(f'{radius},"{code}"')
         if v is None:
             return None
@@ -272,6 +278,14 @@ class HoseTable:
 
         With ``exclude_fold`` the statistics leave out that development fold.
         """
+        if exclude_fold is None and self._packed is not None:
+            key = code_key(radius, code)
+            if key is None:
+                return None
+            got = self._seen_key.get(key, False)
+            if got is False:
+                got = self._seen_key[key] = self._lookup_key(key)
+            return got
         if exclude_fold is None:
             seen = self._seen[radius] if radius < len(self._seen) else {}
             got = seen.get(code, False)
@@ -312,7 +326,7 @@ class HoseTable:
         for r, code in enumerate(codes, start=1):
             if r > self.max_radius:
                 break
-            if exclude_fold is None and r < len(seen):  # entry() inlined: called per atom and radius
+            if exclude_fold is None and r < len(seen) and self._packed is None:  # entry() inlined
                 e = seen[r].get(code, False)
                 if e is False:
                     e = seen[r][code] = self._lookup(r, code)
@@ -327,6 +341,66 @@ class HoseTable:
             var = w * (e.n * e.sd * e.sd + var) / (e.n + 1) + (1.0 - w) * var
             depth = r
         return corr, math.sqrt(var) * (self.sigma_scale if depth else 1.0), depth
+
+    def correct_atom(self, bits: list[int], tag: str, base_sigma: float, exclude_fold: int | None = None
+                     ) -> tuple[float, float, int]:
+        """:meth:`correct` of one atom given by its identifiers (a row of
+        :attr:`MolCodes.bits`) and its rank tag (``""``, ``"|0"``, ...), the same numbers.
+
+        On a packed table the identifiers are looked up as integer keys
+        (:func:`code_key`), without writing the codes as text: the predictors call this
+        per signal and radius. Otherwise (a CSV table, a fold left out, a tag beyond the
+        keys' range) the codes are written and :meth:`correct` answers.
+        """
+        t = 0 if not tag else _TAG_NUMBER.get(tag, -1)
+        if self._packed is None or exclude_fold is not None or t < 0:
+            return self.correct([f"{x:08x}{tag}" for x in bits[1:self.max_radius + 1]], base_sigma,
+                                exclude_fold)
+        corr = 0.0
+        var = base_sigma * base_sigma
+        depth = 0
+        k = self.shrink
+        seen = self._seen_key
+        lookup = self._lookup_key
+        for r in range(1, min(self.max_radius, len(bits) - 1) + 1):
+            key = (r << 40) | (bits[r] << 8) | t
+            e = seen.get(key, False)
+            if e is False:
+                e = seen[key] = lookup(key)
+            if e is None:
+                break
+            # the same arithmetic as correct(), in the same order (the same bits)
+            w = e.n / (e.n + k)
+            corr = w * e.mean + (1.0 - w) * corr
+            var = w * (e.n * e.sd * e.sd + var) / (e.n + 1) + (1.0 - w) * var
+            depth = r
+        return corr, math.sqrt(var) * (self.sigma_scale if depth else 1.0), depth
+
+
+#: a code a packed table can hold: an identifier of 32 bits as 8 lower-case hex digits,
+#: optionally a rank tag ``|k`` (k < 100, written without leading zeros)
+_KEYABLE = r"([0-9a-f]{8})(?:\|(0|[1-9][0-9]?))?"
+_KEYABLE_RE = None
+#: rank tag -> its number in a key (tags of signals of one class, see rank_tags)
+_TAG_NUMBER = {f"|{k}": k + 1 for k in range(100)}
+
+
+def code_key(radius: int, code: str) -> int | None:
+    """The integer key of a code in a packed table: radius, identifier and rank tag
+    (0 without one, k + 1 for ``|k``) in one number, ``radius << 40 | identifier << 8 | tag``;
+    None for a code of another form (no packed table holds one).
+
+    One key per code text and one text per key (the form is checked in full), so a
+    lookup by key finds exactly the row the text would.
+    """
+    global _KEYABLE_RE
+    if _KEYABLE_RE is None:
+        _KEYABLE_RE = re.compile(_KEYABLE)
+    m = _KEYABLE_RE.fullmatch(code) if 0 <= radius < 1 << 20 else None
+    if m is None:
+        return None
+    tag = m.group(2)
+    return (radius << 40) | (int(m.group(1), 16) << 8) | (0 if tag is None else int(tag) + 1)
 
 
 #: a row of a code table's CSV (compiled on first use: the packed copies are read instead)
@@ -442,25 +516,27 @@ def _read_packed(path: Path) -> tuple[dict, list] | None:
 
 
 def pack_table(path: Path) -> None:
-    """Write the packed copy of a correction table's CSV: per radius the codes (one text)
-    and their n, mean and sd (arrays)."""
+    """Write the packed copy of a correction table's CSV: the rows' integer keys
+    (:func:`code_key`, sorted) and their n, mean and sd, as arrays.
+
+    Integer keys rather than the code texts: reading 10^5 texts meant splitting them at
+    every start (some 11 ms of the command), and a lookup then wrote each code as text.
+    """
     rows, shrink, max_radius, scale, provenance = _read_csv_table(path)
     items = []
     for key, v in rows.items():
         r, code = key.split(",", 1)
-        code = code[1:-1]
-        if "\n" in code:
-            raise ValueError(f"{path.name}: a code holds a line break; cannot pack")
+        k = code_key(int(r), code[1:-1])
+        if k is None:
+            raise ValueError(f"{path.name}: code {code} is not an 8-digit identifier with an optional "
+                             "rank tag; cannot pack")
         n_t, mean_t, sd_t = v.split(",", 3)[:3]
-        items.append((int(r), code, int(n_t), float(mean_t), float(sd_t)))
+        items.append((k, int(n_t), float(mean_t), float(sd_t)))
     items.sort()
-    radii: dict[int, int] = {}
-    for r, *_ in items:
-        radii[r] = radii.get(r, 0) + 1
-    _write_packed(path, {"kind": "codes", "shrink": shrink, "max_radius": max_radius, "sigma_scale": scale,
-                         "provenance": provenance, "radii": sorted(radii.items())},
-                  [array("B", "\n".join(x[1] for x in items).encode("ascii")), array("I", [x[2] for x in items]),
-                   array("d", [x[3] for x in items]), array("d", [x[4] for x in items])])
+    _write_packed(path, {"kind": "code-keys", "shrink": shrink, "max_radius": max_radius, "sigma_scale": scale,
+                         "provenance": provenance, "key": "radius << 40 | identifier << 8 | (0 or rank tag + 1)"},
+                  [array("Q", [x[0] for x in items]), array("I", [x[1] for x in items]),
+                   array("d", [x[2] for x in items]), array("d", [x[3] for x in items])])
 
 
 def _packed_codes(path: Path, kind: str, typecodes: list[str]):
@@ -484,17 +560,33 @@ def _packed_codes(path: Path, kind: str, typecodes: list[str]):
 
 
 def read_packed_table(path: Path) -> HoseTable | None:
-    """The correction table of ``path`` from its packed copy (None if absent or stale)."""
-    got = _packed_codes(path, "codes", ["B", "I", "d", "d"])
+    """The correction table of ``path`` from its packed copy (None if absent or stale).
+
+    A copy of the previous layout (the code texts, kind ``codes``, as a table fitted
+    before the integer keys has) is read too, its texts turned into keys.
+    """
+    got = _read_packed(path)
     if got is None:
         return None
-    h, codes, (ns, means, sds) = got
-    spans, at = {}, 0
-    for r, n in h["radii"]:
-        spans[r] = (at, at + n)  # rows sorted by code text within each radius: bisect finds them
-        at += n
+    h, arrays = got
+    if h.get("kind") == "code-keys" and [a.typecode for a in arrays] == ["Q", "I", "d", "d"]:
+        keys, ns, means, sds = arrays
+        if not all(len(a) == len(keys) for a in arrays):
+            return None  # damaged: the CSV is read instead
+    else:
+        old = _packed_codes(path, "codes", ["B", "I", "d", "d"])
+        if old is None:
+            return None
+        h, codes, (ns, means, sds) = old
+        radius = [r for r, n in h["radii"] for _ in range(n)]
+        keyed = [(code_key(r, c), n, m, sd) for r, c, n, m, sd in zip(radius, codes, ns, means, sds)]
+        if len(radius) != len(codes) or any(x[0] is None for x in keyed):
+            return None
+        keyed.sort()
+        keys = array("Q", [x[0] for x in keyed])
+        ns, means, sds = (array(t, [x[j] for x in keyed]) for j, t in ((1, "I"), (2, "d"), (3, "d")))
     return HoseTable(None, h["shrink"], h["max_radius"], h["provenance"], h["sigma_scale"],
-                     packed=(codes, spans, ns, means, sds), source=path)
+                     packed=(keys, ns, means, sds), source=path)
 
 
 @lru_cache(maxsize=4)
@@ -818,7 +910,7 @@ class NeighbourLayer:
         of the layer fitted without that development fold."""
         if exclude_fold is None and self._rows is None:
             prefix, _, code = feature.rpartition(":")
-            return self._flat[None].get(prefix, {}).get(code, 0.0)
+            return self._flat[None].get(prefix, {}).get(_layer_code(code), 0.0)
         at = 0 if exclude_fold is None else 1 + exclude_fold
         got = self._parsed.get(feature)
         if got is None:
@@ -836,11 +928,21 @@ class NeighbourLayer:
     def shifts(self, hexes: list[tuple[str, str, str]], dist: list[list[int]], centres: Iterable[int],
                exclude_fold: int | None = None) -> list[float]:
         """The layer's shift of each centre atom of one molecule: :meth:`shift` of its
-        :func:`neighbour_features`, equal up to the last bit.
+        :func:`neighbour_features`, equal up to the last bit (the codes as text, as
+        :func:`hex_codes` writes them; :meth:`shifts_bits` takes the identifiers)."""
+        return self.shifts_bits([(int(r0, 16), int(r1, 16), int(r2, 16)) for r0, r1, r2 in hexes], dist,
+                                centres, exclude_fold)
+
+    def shifts_bits(self, bits: list, dist: list[list[int]], centres: Iterable[int],
+                    exclude_fold: int | None = None) -> list[float]:
+        """:meth:`shifts` from the identifiers (:attr:`MolCodes.bits`, radius 0, 1 and 2 of
+        each row read).
 
         The unpaired features of an atom at distance d are the same for every centre, so
         their weights are summed once per atom and distance; only the features paired with
-        the centre are looked up per centre and atom (a third of the lookups).
+        the centre are looked up per centre and atom (a third of the lookups). The weights
+        are keyed by the identifiers as integers (:func:`_layer_code`): no code is
+        written as text but the centre's own, in the names of its paired prefixes.
         """
         parts = self._flat.get(exclude_fold)
         if parts is None:
@@ -849,11 +951,11 @@ class NeighbourLayer:
         t10, t11, t12 = (parts.get(k, empty).get for k in ("1:0", "1:1", "1:2"))
         t20, t21, t30, t31 = (parts.get(k, empty).get for k in ("2:0", "2:1", "3:0", "3:1"))
         # per atom: the weights of its unpaired features at distance 1, 2, 3 (index 0 unused)
-        own = [(0.0, math.fsum((t10(r0, 0.0), t11(r1, 0.0), t12(r2, 0.0))),
-                t20(r0, 0.0) + t21(r1, 0.0), t30(r0, 0.0) + t31(r1, 0.0)) for r0, r1, r2 in hexes]
+        own = [(0.0, math.fsum((t10(row[0], 0.0), t11(row[1], 0.0), t12(row[2], 0.0))),
+                t20(row[0], 0.0) + t21(row[1], 0.0), t30(row[0], 0.0) + t31(row[1], 0.0)) for row in bits]
         out = []
         for centre in centres:
-            c0, c1 = hexes[centre][0], hexes[centre][1]
+            c0, c1 = f"{bits[centre][0]:x}", f"{bits[centre][1]:x}"
             p1, p2, p3 = (parts.get(f"{d}:c{c0}", empty).get for d in (1, 2, 3))
             q1, q2 = parts.get(f"1:d{c0}", empty).get, parts.get(f"2:d{c0}", empty).get
             e2, e3 = parts.get(f"2:e{c1}", empty).get, parts.get(f"3:e{c1}", empty).get
@@ -861,27 +963,48 @@ class NeighbourLayer:
             add = values.extend
             for a, d in enumerate(dist[centre]):
                 if d == 1:
-                    r0, r1, _ = hexes[a]
+                    row = bits[a]
+                    r0, r1 = row[0], row[1]
                     add((own[a][1], p1(r0, 0.0), q1(r1, 0.0)))
                 elif d == 2:
-                    r0, r1, _ = hexes[a]
+                    row = bits[a]
+                    r0, r1 = row[0], row[1]
                     add((own[a][2], p2(r0, 0.0), q2(r1, 0.0), e2(r0, 0.0)))
                 elif d == 3:
-                    r0 = hexes[a][0]
+                    r0 = bits[a][0]
                     add((own[a][3], p3(r0, 0.0), e3(r0, 0.0)))
             out.append(math.fsum(values))
         return out
 
-    def _by_prefix(self, exclude_fold: int | None) -> dict[str, dict[str, float]]:
+    def _by_prefix(self, exclude_fold: int | None) -> dict[str, dict[int | str, float]]:
         """Weights grouped by feature prefix (``"d:r"``, ``"d:c<centre>"``): prefix -> code -> weight,
-        so :meth:`shifts` looks codes up without building feature names."""
-        out: dict[str, dict[str, float]] = {}
+        so :meth:`shifts` looks codes up without building feature names. Codes are keyed
+        as integers (:func:`_layer_code`; a code of another form keeps its text and is
+        found by :meth:`weight` only)."""
+        out: dict[str, dict[int | str, float]] = {}
         for f, v in self.rows.items():
             prefix, code = f.rsplit(":", 1)
             # only the weight column parsed when no fold is left out
             w = float(v.split(",", 2)[1]) if exclude_fold is None else self.weight(f, exclude_fold)
-            out.setdefault(prefix, {})[code] = w
+            key = _layer_code(code)
+            out.setdefault(prefix, {})[code if key is None else key] = w
         return out
+
+
+#: a code of a layer feature as :func:`hex_codes` writes it: hexadecimal, no leading zeros
+_LAYER_CODE = r"0|[1-9a-f][0-9a-f]{0,15}"
+_LAYER_CODE_RE = None
+
+
+def _layer_code(code: str) -> int | None:
+    """The identifier a layer feature's code writes (``f"{x:x}"``), None for another text.
+
+    The form is checked in full, so each integer stands for exactly one text.
+    """
+    global _LAYER_CODE_RE
+    if _LAYER_CODE_RE is None:
+        _LAYER_CODE_RE = re.compile(_LAYER_CODE)
+    return int(code, 16) if _LAYER_CODE_RE.fullmatch(code) else None
 
 
 # features: d:... (d a distance) or the configuration features z:... and y:...
@@ -910,20 +1033,33 @@ def pack_layer(path: Path) -> None:
     groups = NeighbourLayer(rows, provenance)._by_prefix(None)
     prefixes = sorted(groups)
     codes = [c for p in prefixes for c in groups[p]]
-    if any("\n" in c or ":" in c for c in codes):
-        raise ValueError(f"{path.name}: a feature code holds a line break or ':'; cannot pack")
-    _write_packed(path, {"kind": "layer", "provenance": provenance,
+    if any(type(c) is not int for c in codes):
+        raise ValueError(f"{path.name}: a feature code is not a hexadecimal identifier; cannot pack")
+    # the codes as integers (no text to split at every start)
+    _write_packed(path, {"kind": "layer-keys", "provenance": provenance,
                          "prefixes": [[p, len(groups[p])] for p in prefixes]},
-                  [array("B", "\n".join(codes).encode("ascii")),
-                   array("d", [groups[p][c] for p in prefixes for c in groups[p]])])
+                  [array("Q", codes), array("d", [groups[p][c] for p in prefixes for c in groups[p]])])
 
 
 def read_packed_layer(path: Path) -> NeighbourLayer | None:
-    """The neighbour layer of ``path`` from its packed copy (None if absent or stale)."""
-    got = _packed_codes(path, "layer", ["B", "d"])
+    """The neighbour layer of ``path`` from its packed copy (None if absent or stale); a
+    copy of the earlier layout (codes as text) is read too, its codes turned into keys."""
+    got = _read_packed(path)
     if got is None:
         return None
-    h, codes, (weights,) = got
+    h, arrays = got
+    if h.get("kind") == "layer-keys" and [a.typecode for a in arrays] == ["Q", "d"]:
+        codes, weights = arrays
+        if len(codes) != len(weights):
+            return None
+    else:
+        old = _packed_codes(path, "layer", ["B", "d"])
+        if old is None:
+            return None
+        h, texts, (weights,) = old
+        codes = [_layer_code(c) for c in texts]
+        if any(c is None for c in codes):
+            return None
     spans, at = {}, 0
     for prefix, n in h["prefixes"]:
         spans[prefix] = (at, at + n)

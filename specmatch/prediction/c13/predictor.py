@@ -219,10 +219,11 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
         cls = structure.symmetry_classes
         fold = fold_of_mol(structure.mol)  # None unless SPECMATCH_CROSS_VALIDATED=1
         tags = rank_tags([cls[c[0][0]] for c in out], [c[1] for c in out])
-        owns = []
+        owns = []  # per entry: has it codes (not "other", a table of radius 1 or more)?
         layered = []  # entries of out the layer applies to
-        for k, (c, kind, tag) in enumerate(zip(out, kinds, tags)):
-            own = [] if kind == "other" else [x + tag for x in codes.iter_codes(c[0][0], table.max_radius)]
+        coded = table.max_radius >= 1
+        for k, (c, kind) in enumerate(zip(out, kinds)):
+            own = coded and kind != "other"
             owns.append(own)
             # the neighbour layer first (the code table was fitted on what it leaves), on every
             # carbon with codes, also where the first sphere is unseen: those carbons (bridged
@@ -232,21 +233,21 @@ def predict_carbons(structure: Structure, *, correction: bool = True, codes: Mol
             if layer is not None and own:
                 layered.append(k)
         if layered:
-            hexes = hex_codes(codes.bits)
             centres = [out[k][0][0] for k in layered]
-            for k, v in zip(layered, layer.shifts(hexes, g.dist, centres, fold)):
+            for k, v in zip(layered, layer.shifts_bits(codes.bits, g.dist, centres, fold)):
                 out[k][1] += v
             # cis/trans on rings and double bonds, where the input gives the configuration (the
             # isomeric SMILES differs from the plain one only then: most molecules skip the walk)
             if configuration and structure.isomeric_smiles != structure.canonical_smiles:
-                relations = configuration_features(mol, hexes, g.dist, centres)
+                relations = configuration_features(mol, hex_codes(codes.bits), g.dist, centres)
                 for k, centre in zip(layered, centres):
                     if relations[centre]:
                         out[k][1] += layer.shift(relations[centre], fold)
-        for c, own in zip(out, owns):
+        bits = codes.bits
+        for c, own, tag in zip(out, owns, tags):
             if not own:
                 continue
-            corr, sigma, depth = table.correct(own, c[2], fold)
+            corr, sigma, depth = table.correct_atom(bits[c[0][0]], tag, c[2], fold)
             if depth:
                 c[1] += corr
                 c[2] = sigma

@@ -99,9 +99,9 @@ def predict_protons(structure: Structure, *, correction: bool = True, codes: Mol
         cls = structure.symmetry_classes
         fold = fold_of_mol(structure.mol)  # None unless SPECMATCH_CROSS_VALIDATED=1
         tags = rank_tags([cls[r[0].atoms[0]] for r in rows], [r[1] for r in rows])
+        bits = codes.bits
         for row, tag in zip(rows, tags):
-            own = codes.iter_codes(row[0].atoms[0], table.max_radius)
-            corr, sig, depth = table.correct([x + tag for x in own] if tag else own, row[2], fold)
+            corr, sig, depth = table.correct_atom(bits[row[0].atoms[0]], tag, row[2], fold)
             if depth:
                 row[1] += corr
                 row[2] = sig

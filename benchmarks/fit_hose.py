@@ -412,14 +412,39 @@ def add_features(c13) -> None:
         rec["signals"] = [(*sg[:6], feats[sg[5]]) for sg in rec["signals"]]
 
 
+#: ridge penalty of the neighbour layer's feature groups relative to ``--layer-lambda``
+#: (``layer_group``): the features that pair a neighbour with the centre's own code are
+#: specific and need less shrinkage than the plain "which atom at which distance" features,
+#: the pairs with a direct neighbour least. 5-fold CV (k 1, radius 5, lambda 20, 2026-12-04),
+#: 13C core / wide MAE: one penalty for all 1.657 / 1.469 ppm; pairs 0.5: 1.655 / 1.464;
+#: pairs 0.25: 1.662 / 1.465; distance-1 pairs 0.25 (or 0.13), the other pairs 0.5:
+#: 1.655 / 1.462 (kept); the same with the distance-3 pairs at 0.35: 1.656 / 1.464, at 1:
+#: 1.657 / 1.463; plain features 0.5: 1.661 / 1.470, 2 (pairs 0.5): 1.656 / 1.466; cis/trans
+#: features (z:, y:) at 0.5: no change (left at 1); lambda 15 or 28 with these factors: worse
+LAYER_PENALTY = {"1:c": 0.25, "1:d": 0.25, "2:c": 0.5, "2:d": 0.5, "2:e": 0.5, "3:c": 0.5, "3:e": 0.5}
+
+
+def layer_group(feature: str) -> str:
+    """Group of a neighbour-layer feature (``hose.neighbour_features``): distance and kind,
+    ``"2:0"`` (radius-0 code at distance 2), ``"1:c"`` (pair with the centre's radius-0 code),
+    ``"z:"``/``"y:"`` (relative configuration)."""
+    if feature[:2] in ("z:", "y:"):
+        return feature[:2]
+    d, kind = feature.split(":", 2)[:2]
+    return f"{d}:{kind if kind in ('0', '1', '2') else kind[0]}"
+
+
 def fit_layer(recs, lam: float, min_n: int) -> tuple[dict[str, float], dict[str, int]]:
     """Ridge regression of the clipped increment residual of each 13C signal on its
     neighbour features (``hose.neighbour_features``): feature -> weight (ppm), count.
 
     Features seen on fewer than ``min_n`` signals are left out (their weight would
-    be the noise of a handful of carbons); the penalty ``lam`` is the same for every
-    weight, so a feature's weight is at most n / (n + lam) of its mean residual.
-    Solved by LSQR (Paige & Saunders, ACM TOMS 1982, 8, 43) with damping.
+    be the noise of a handful of carbons); the penalty of a weight is ``lam`` times
+    its group's factor in ``LAYER_PENALTY`` (1 if not listed), so a feature's weight
+    is at most n / (n + penalty) of its mean residual. Solved by LSQR (Paige &
+    Saunders, ACM TOMS 1982, 8, 43) with damping; a group's penalty factor p is
+    applied by scaling its columns by 1 / sqrt(p) (ridge on the scaled column is ridge
+    with penalty lam * p on the weight) and the weights scaled back.
     """
     import scipy.sparse as sparse
     from scipy.sparse.linalg import lsqr
@@ -445,9 +470,10 @@ def fit_layer(recs, lam: float, min_n: int) -> tuple[dict[str, float], dict[str,
                 if j is not None:
                     rows.append(i)
                     cols.append(j)
-    X = sparse.csr_matrix((np.ones(len(rows)), (rows, cols)), shape=(len(y), len(index)))
-    # damping d minimises |Xw - y|^2 + d^2 |w|^2: d^2 = lam
-    w = lsqr(X, np.array(y), damp=lam ** 0.5, atol=1e-7, btol=1e-7, iter_lim=1000)[0]
+    col_scale = np.array([LAYER_PENALTY.get(layer_group(x), 1.0) ** -0.5 for x in index])
+    X = sparse.csr_matrix((col_scale[cols], (rows, cols)), shape=(len(y), len(index)))
+    # damping d minimises |Xw - y|^2 + d^2 |w|^2: d^2 = lam (per scaled column)
+    w = lsqr(X, np.array(y), damp=lam ** 0.5, atol=1e-7, btol=1e-7, iter_lim=1000)[0] * col_scale
     return {x: float(w[j]) for x, j in index.items()}, {x: count[x] for x in index}
 
 
@@ -569,12 +595,15 @@ def write_neighbour_layer(recs, layer, chosen, today: str):
             "paired with the centre's radius-1 code; example centre>atom; z:<ring size>.<ring distance>.<distances>"
             "<c|t>:<centre code> the cis or trans relation of two substituents on configured ring atoms near the centre, "
             "y:<distances><c|t>:<centre code> that of two substituents across a double bond of given geometry "
-            "(hose.configuration_features, example the molecule); only on carbons whose first-sphere code is in "
-            "hose_c13.csv.gz",
+            "(hose.configuration_features, example the molecule); applied to every carbon with codes, also where the "
+            "first-sphere code is not in hose_c13.csv.gz",
             f"fitted on the nmrshiftdb2 development part (../shared/reference/nmrshiftdb2_dev.jsonl; "
             f"Kuhn & Schlörer, Magn. Reson. Chem. 2015, 53, 582), {len(recs)} records, {today}",
             f"residuals measured minus increment prediction (specbench pairing), clipped at +-{CLIP['13C']:g} ppm; "
-            f"ridge penalty {lam:g} per weight, features seen on >= {min_n} signals; solved by LSQR",
+            f"ridge penalty {lam:g} per weight, times "
+            + ", ".join(f"{p:g} for {g}" for g, p in sorted(LAYER_PENALTY.items()))
+            + f" (feature groups: distance and kind, benchmarks/fit_hose.py LAYER_PENALTY); features seen on "
+            f">= {min_n} signals; solved by LSQR",
             f"chosen by 5-fold cross-validation grouped by InChIKey block, with the code table on top "
             f"(k {k:g}, radius <= {radius}): MAE core {cv_core:.3f}, wide {cv_wide:.3f} ppm",
             "by_fold: the weights of the layer fitted without each development fold (md5 of the InChIKey block "

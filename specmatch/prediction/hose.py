@@ -465,8 +465,9 @@ def _write_gz_csv(path: Path, comments: list[str], header: str, lines: Iterable[
 # batch's predictions, so each CSV has a packed copy beside it (``.packed``: a JSON header
 # line with the provenance and the settings, then the values a prediction uses as
 # binary arrays), derived from the CSV by :func:`pack_table` / :func:`pack_layer` whenever
-# a table is written. The copy records the size and CRC-32 of its CSV: a copy that does
-# not match its CSV is ignored and the CSV read instead (``tests/test_prediction_hose.py``
+# a table is written. The copy records the size of its CSV's gzip file, that file's CRC-32
+# and its gzip trailer (the CRC-32 and length of the text); size and trailer are checked at
+# load: a copy that does not match its CSV is ignored and the CSV read instead (``tests/test_prediction_hose.py``
 # checks that the shipped copies hold exactly the CSV's values).
 PACK_MAGIC = b"specmatch-packed-table 2\n"
 def _packed_path(path: Path) -> Path:
@@ -478,9 +479,20 @@ def _source_stamp(path: Path) -> tuple[int, int]:
     return len(data), zlib.crc32(data)
 
 
+def _source_tail(path: Path) -> tuple[int, str]:
+    """Size and last 8 bytes (hex) of a CSV's gzip file: the gzip trailer, CRC-32 and
+    length of the text itself, so a rewritten table shows in it (read without reading
+    the file, where the whole-file CRC-32 read some 4 MB at each start)."""
+    with open(path, "rb") as fh:
+        size = fh.seek(0, 2)
+        fh.seek(max(0, size - 8))
+        return size, fh.read(8).hex()
+
+
 def _write_packed(path: Path, header: dict, arrays: list) -> None:
     size, crc = _source_stamp(path)
     header = {**header, "source": path.name, "source_bytes": size, "source_crc32": crc,
+              "source_tail": _source_tail(path)[1],
               "written_by": "specmatch.prediction.hose.pack_table/pack_layer from the CSV beside it",
               "arrays": [[a.typecode, len(a)] for a in arrays], "byteorder": sys.byteorder}
     with open(_packed_path(path), "wb") as fh:
@@ -499,7 +511,11 @@ def _read_packed(path: Path) -> tuple[dict, list] | None:
                 return None
             header = json.loads(fh.readline())
             blob = fh.read()
-        if (header["source_bytes"], header["source_crc32"]) != _source_stamp(path):
+        if "source_tail" in header:  # the gzip trailer (CRC-32 and size of the text) and the file size
+            stale = (header["source_bytes"], header["source_tail"]) != _source_tail(path)
+        else:  # a copy written before the trailer was recorded: the whole file's CRC-32
+            stale = (header["source_bytes"], header["source_crc32"]) != _source_stamp(path)
+        if stale:
             return None  # the CSV was rewritten without its copy: the CSV is the table
         arrays, at = [], 0
         for typecode, n in header["arrays"]:
@@ -893,6 +909,11 @@ class NeighbourLayer:
         self._parsed: dict[str, tuple[float, ...]] = {}
         #: fold left out (None: none) -> prefix -> code -> weight, built on first use by :meth:`shifts`
         self._flat: dict[int | None, dict[str, dict[str, float]]] = {}
+        #: fold left out -> (centre radius-0, radius-1 identifier) -> the ``get`` of the
+        #: centre's seven paired prefixes (:meth:`shifts_bits`)
+        self._paired: dict[int | None, dict[tuple[int, int], tuple]] = {}
+        #: fold left out -> the ``get`` of the seven unpaired prefixes
+        self._unpaired: dict[int | None, tuple] = {}
         if by_prefix is not None:
             self._flat[None] = by_prefix
 
@@ -948,17 +969,29 @@ class NeighbourLayer:
         if parts is None:
             parts = self._flat[exclude_fold] = self._by_prefix(exclude_fold)
         empty: dict[str, float] = {}
-        t10, t11, t12 = (parts.get(k, empty).get for k in ("1:0", "1:1", "1:2"))
-        t20, t21, t30, t31 = (parts.get(k, empty).get for k in ("2:0", "2:1", "3:0", "3:1"))
+        unpaired = self._unpaired.get(exclude_fold)
+        if unpaired is None:  # the same seven prefixes for every molecule
+            unpaired = self._unpaired[exclude_fold] = tuple(
+                parts.get(k, empty).get for k in ("1:0", "1:1", "1:2", "2:0", "2:1", "3:0", "3:1"))
+        t10, t11, t12, t20, t21, t30, t31 = unpaired
         # per atom: the weights of its unpaired features at distance 1, 2, 3 (index 0 unused)
         own = [(0.0, math.fsum((t10(row[0], 0.0), t11(row[1], 0.0), t12(row[2], 0.0))),
                 t20(row[0], 0.0) + t21(row[1], 0.0), t30(row[0], 0.0) + t31(row[1], 0.0)) for row in bits]
         out = []
+        # per centre code pair: the look-ups of the seven prefixes paired with the centre,
+        # found once per pair (kept with the layer: common centres recur in most molecules)
+        paired = self._paired.get(exclude_fold)
+        if paired is None or len(paired) > 100_000:  # bounded in a long-lived process
+            paired = self._paired[exclude_fold] = {}
         for centre in centres:
-            c0, c1 = f"{bits[centre][0]:x}", f"{bits[centre][1]:x}"
-            p1, p2, p3 = (parts.get(f"{d}:c{c0}", empty).get for d in (1, 2, 3))
-            q1, q2 = parts.get(f"1:d{c0}", empty).get, parts.get(f"2:d{c0}", empty).get
-            e2, e3 = parts.get(f"2:e{c1}", empty).get, parts.get(f"3:e{c1}", empty).get
+            row = bits[centre]
+            pair = (row[0], row[1])
+            got = paired.get(pair)
+            if got is None:
+                c0, c1 = f"{row[0]:x}", f"{row[1]:x}"
+                got = paired[pair] = tuple(parts.get(k, empty).get for k in (
+                    f"1:c{c0}", f"2:c{c0}", f"3:c{c0}", f"1:d{c0}", f"2:d{c0}", f"2:e{c1}", f"3:e{c1}"))
+            p1, p2, p3, q1, q2, e2, e3 = got
             values = []
             add = values.extend
             for a, d in enumerate(dist[centre]):

@@ -616,7 +616,9 @@ def _diastereotopic(mol: Chem.Mol, classes: tuple[int, ...], original_stereo: li
 
 def perceive(mol: Chem.Mol, smiles: str = "") -> Structure:
     """Perceive an already parsed molecule (see :func:`parse_structure`)."""
-    classes = tuple(int(r) for r in Chem.CanonicalRankAtoms(mol, breakTies=False, includeChirality=False))
+    # by index: iterating RDKit's vector wrapper costs a Python call per atom
+    ranks = Chem.CanonicalRankAtoms(mol, breakTies=False, includeChirality=False)
+    classes = tuple([int(ranks[k]) for k in range(len(ranks))])
     from .graph import MolGraph
 
     graph = MolGraph(mol)  # built here once, kept with the structure for the predictors

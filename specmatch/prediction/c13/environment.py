@@ -325,8 +325,10 @@ def _sp3_terms(ctx: _Context, i: int) -> list[str]:
     t = ["sp3:base"]
     add = t.append  # locals: this is the predictor's innermost loop
     types, dist, nbrs, internal, deg = ctx.types, ctx.dist[i], ctx.nbrs, ctx.internal, ctx.deg
+    min_ring, rings, atom_rings = ctx._min_ring, ctx.rings, ctx.atom_rings
     deg_i = deg[i]
-    for a in nbrs[i]:
+    around = nbrs[i]
+    for a in around:
         if internal[a]:
             continue
         ta = types[a]
@@ -351,68 +353,71 @@ def _sp3_terms(ctx: _Context, i: int) -> list[str]:
             add(f"sp3:g:{tj}")
             add(f"sp3:g:{tj}@{deg_i}")
             # gamma reached through a heteroatom or an unsaturated atom, not a chain CH2
-            via = [a for a in nbrs[i] if all_dist[a][j] == 2]
+            via = [a for a in around if all_dist[a][j] == 2]
             if via and all(types[a] != "C" for a in via):
                 # two paths (a ring): the first type in sort order, not in atom order
                 add(f"sp3:g:{tj}@via-{min(types[a] for a in via)}")
         elif d == 4 and not internal[j]:
             add(f"sp3:d:{HETERO_ELEMENT.get(types[j], 'C')}")
-    r = ctx.min_ring(i)
+    r = min_ring[i]
     if r:
-        t.append(f"sp3:ring{_ring_bucket(r)}:H{ctx.hs[i]}")
-        nr = len(ctx.atom_rings[i])
+        add(f"sp3:ring{_ring_bucket(r)}:H{ctx.hs[i]}")
+        mine_rings = atom_rings[i]
+        nr = len(mine_rings)
         if nr >= 2:
-            t.append(f"sp3:rings{min(nr, 3)}")
+            add(f"sp3:rings{min(nr, 3)}")
         role = ctx.bridged_role(i)
         if role:
-            t.append(f"sp3:bridged:{role}:{_ring_bucket(r)}")
+            add(f"sp3:bridged:{role}:{_ring_bucket(r)}")
         # substituents outside the carbon's rings act differently from chain atoms
         # (ring substituent parameters of the Dalling-Grant type)
         mine = set()
-        for k in ctx.atom_rings[i]:
-            mine.update(ctx.rings[k])
-        for j in range(ctx.n):
-            d = dist[j]
-            if 1 <= d <= 3 and j not in mine and not ctx.internal[j]:
-                t.append(f"sp3:exo:{_POS[d - 1]}:{types[j]}")
-        for k in ctx.atom_rings[i]:
-            t.append(f"sp3:xring{_ring_bucket(len(ctx.rings[k]))}")
-    for a in nbrs[i]:
-        ra = ctx.min_ring(a)
-        if ra in (3, 4) and not any(i in ctx.rings[k] for k in ctx.atom_rings[a] if len(ctx.rings[k]) == ra):
-            t.append(f"sp3:nb-ring{ra}")
-    for a in nbrs[i]:
+        for k in mine_rings:
+            mine.update(rings[k])
+        for j, d in enumerate(dist):
+            if 1 <= d <= 3 and j not in mine and not internal[j]:
+                add(f"sp3:exo:{_POS[d - 1]}:{types[j]}")
+        for k in mine_rings:
+            add(f"sp3:xring{_ring_bucket(len(rings[k]))}")
+    for a in around:
+        ra = min_ring[a]
+        if (ra == 3 or ra == 4) and not any(i in rings[k] for k in atom_rings[a] if len(rings[k]) == ra):
+            add(f"sp3:nb-ring{ra}")
+    for a in around:
         if types[a] == "C=C":
             # gamma substituent cis across the double bond (steric, upfield)
             p = ctx.partner(a, 2.0)
             cis = ctx.cis_to(a, p, i)
             if cis is None:
                 if len(nbrs[p]) > 1:
-                    t.append("sp3:allyl-cis?")
+                    add("sp3:allyl-cis?")
             else:
                 # the effect is built into the ring terms when the C=C is in a ring
                 tag = "allyl-cis-ring" if ctx.min_ring_of_bond(a, p) else "allyl-cis"
-                t.extend(f"sp3:{tag}:{types[j]}" for j in cis if not ctx.internal[j])
+                t.extend(f"sp3:{tag}:{types[j]}" for j in cis if not internal[j])
     # first-shell signature: a class value for the combination of neighbours
-    t.append(f"sp3:sig:{'+'.join(sorted(types[a] for a in nbrs[i] if not ctx.internal[a]))}")
+    add(f"sp3:sig:{'+'.join(sorted([types[a] for a in around if not internal[a]]))}")
     het = ctx.hetero_subs(i)
-    for p in _pairs(het):
-        t.append(f"sp3:gem:{p}")
-    # a heteroatom next to an unsaturated or carbonyl group on the same carbon
-    unsat = [types[a] for a in nbrs[i] if types[a] not in ("C",) and types[a] not in HETERO_ELEMENT and not ctx.internal[a]]
-    for e1 in het:
-        for u in unsat:
-            t.append(f"sp3:gem:{e1}+{u}")
+    if len(het) > 1:
+        for p in _pairs(het):
+            add(f"sp3:gem:{p}")
     if het:
-        for a in nbrs[i]:
-            if types[a] in ("C",):
+        # a heteroatom next to an unsaturated or carbonyl group on the same carbon
+        unsat = [types[a] for a in around if types[a] != "C" and types[a] not in HETERO_ELEMENT and not internal[a]]
+        for e1 in het:
+            for u in unsat:
+                add(f"sp3:gem:{e1}+{u}")
+        for a in around:
+            if types[a] == "C":
                 for e2 in ctx.hetero_subs(a, exclude=i):
                     for e1 in het:
-                        t.append(f"sp3:vic:{''.join(sorted((e1, e2)))}")
-    for a in nbrs[i]:
+                        add(f"sp3:vic:{''.join(sorted((e1, e2)))}")
+    for a in around:
         if types[a] == "C":
-            for p in _pairs(ctx.hetero_subs(a, exclude=i)):
-                t.append(f"sp3:bgem:{p}")
+            subs = ctx.hetero_subs(a, exclude=i)
+            if len(subs) > 1:
+                for p in _pairs(subs):
+                    add(f"sp3:bgem:{p}")
     return t
 
 

@@ -135,9 +135,13 @@ def substituent_type(g: _Graph, x: int, frm: int) -> str | None:
     Returns None for an isotopic hydrogen kept as an atom.
     """
     key = (x, frm)
-    if key not in g._types:
-        g._types[key] = _substituent_type(g, x, frm)
-    return g._types[key]
+    got = g._types.get(key, _UNTYPED)
+    if got is _UNTYPED:
+        got = g._types[key] = _substituent_type(g, x, frm)
+    return got
+
+
+_UNTYPED = object()  # not typed yet (None is an answer: an isotopic H)
 
 
 def _substituent_type(g: _Graph, x: int, frm: int) -> str | None:
@@ -242,9 +246,13 @@ def _ring_term(size: int) -> str | None:
 
 
 # --------------------------------------------------------------------------- sp3
+#: an sp3 carbon's class by its H count (a carbon without H has no proton site)
+_HC_NAME = {4: "CH4", 3: "CH3", 2: "CH2", 1: "CH"}
+
+
 def _sp3_terms(g: _Graph, i: int) -> tuple[list[tuple[str, float]], str, str, bool]:
     nh = g.nh_total[i]
-    hc = {4: "CH4", 3: "CH3", 2: "CH2", 1: "CH"}[min(nh, 4)]
+    hc = _HC_NAME[min(nh, 4)]
     terms: list[tuple[str, float]] = [(f"sp3:base:alkyl:{hc}", 1.0)]
     fallback = False
     n_o = n_x = n_c = 0

@@ -319,3 +319,36 @@ def test_configuration_features_do_not_depend_on_atom_order(smiles):
     for root in range(mol.GetNumAtoms()):
         other = Chem.MolToSmiles(mol, rootedAtAtom=root, canonical=False)
         assert sorted(sorted(v) for v in _config_feats(other).values()) == ref, other
+
+
+# ------------------------------------------------------------------ integer keys
+def test_code_keys_stand_for_exactly_one_code_text():
+    # a packed table finds a code by its integer key: one key per text and one text per key
+    from specmatch.prediction.hose import code_key
+
+    assert code_key(1, "0104b75c") == (1 << 40) | (0x0104B75C << 8)
+    assert code_key(2, "0104b75c|0") == (2 << 40) | (0x0104B75C << 8) | 1
+    assert code_key(2, "0104b75c|1") != code_key(2, "0104b75c|0") != code_key(2, "0104b75c")
+    # texts of another form (upper case, leading zeros in the tag, short or long codes) have no key
+    for text in ("0104B75C", "0104b75c|00", "0104b75c|", "104b75c", "00104b75c", "zzzzzzzz", " 0104b75c"):
+        assert code_key(1, text) is None, text
+
+
+@pytest.mark.parametrize("smiles", ["CC(C)C(C)O", "C/C=C/CBr", "C1CC1C(Cl)CC=C", "CC(C)(C)C1CCC(O)CC1", "C=CC(C)CC"])
+def test_correct_atom_equals_the_correction_of_the_code_texts(smiles):
+    # the predictors look codes up by identifier (correct_atom); the walk over the code texts
+    # (correct) must give the same numbers, on the packed copy and on the CSV, with and
+    # without rank tags
+    from specmatch.prediction.hose import TABLE_DIR, read_table
+
+    mol = Chem.MolFromSmiles(smiles)
+    bits = MolCodes(mol).bits
+    for name, nucleus in (("hose_c13.csv.gz", "13C"), ("hose_h1.csv.gz", "1H")):
+        packed, csv = load_table(nucleus), read_table(TABLE_DIR / name)
+        for atom in range(mol.GetNumAtoms()):
+            for tag in ("", "|0", "|1", "|7"):
+                texts = [f"{x:08x}{tag}" for x in bits[atom][1:packed.max_radius + 1]]
+                want = csv.correct(texts, 2.0)
+                assert packed.correct_atom(bits[atom], tag, 2.0) == want
+                assert csv.correct_atom(bits[atom], tag, 2.0) == want
+                assert packed.correct(texts, 2.0) == want

@@ -12,7 +12,7 @@ import csv
 from pathlib import Path
 
 TABLE_DIR = Path(__file__).resolve().parent.parent / "tables"
-TABLES_VERSION = "c13-increments-2026-12-03+neighbour-layer-2026-12-04+morgan-codes-2026-12-04"
+TABLES_VERSION = "c13-increments-2026-12-03+neighbour-layer-2026-12-04b+morgan-codes-2026-12-04b"
 
 
 def _read_increments(path: Path) -> tuple[dict[str, float], dict[str, int]]:
